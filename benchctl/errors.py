@@ -1,0 +1,136 @@
+"""The one exception tree of benchctl.
+
+Every error a user can meet is one of these; messages say what was wrong, where
+(file and key, instrument and command) and what to do about it. Errors of the
+libraries underneath (pyvisa, sockets, SQLAlchemy, tomllib) are translated once, at
+the boundary where they happen, and chained with ``raise ... from exc``.
+
+::
+
+    BenchctlError
+    ├── ConfigurationError          station, plan, limits, parameter files and values
+    │   ├── StationFileError
+    │   ├── ParameterError
+    │   └── LimitsFileError
+    ├── InstrumentError             anything an instrument did or failed to do
+    │   ├── InstrumentConnectionError   resource unreachable, connection dropped
+    │   ├── InstrumentTimeout           no answer within the timeout
+    │   ├── InstrumentResponseError     an answer that cannot be parsed
+    │   ├── InstrumentStateError        identity or state not what was programmed (reset)
+    │   └── ScpiError                   the instrument queued a SCPI error
+    ├── InterlockError
+    │   ├── SetpointRefused             a setpoint outside the station limits (not sent)
+    │   └── InterlockTrip               a reading crossed a limit; outputs were turned off
+    ├── StoreError
+    │   └── SchemaVersionError
+    ├── ProcedureError              a procedure script that cannot be loaded or run
+    └── AnalysisInputError          data given to analysis that cannot be used (CSV files)
+"""
+
+from __future__ import annotations
+
+
+class BenchctlError(Exception):
+    """Base of every benchctl error."""
+
+
+class ConfigurationError(BenchctlError):
+    """A configuration file or value is wrong; ``problems`` lists every one found."""
+
+    def __init__(self, message: str, problems: list[str] | None = None) -> None:
+        self.problems = list(problems or [])
+        if self.problems:
+            message = message + "\n" + "\n".join(f"  - {p}" for p in self.problems)
+        super().__init__(message)
+
+
+class StationFileError(ConfigurationError):
+    """The station file cannot be used."""
+
+
+class ParameterError(ConfigurationError):
+    """A procedure parameter is unknown, of the wrong type or out of its range."""
+
+
+class LimitsFileError(ConfigurationError):
+    """A spec-limits file cannot be used."""
+
+
+class InstrumentError(BenchctlError):
+    """An instrument failed; names the instrument and the command where known."""
+
+    def __init__(self, message: str, *, instrument: str = "", command: str = "") -> None:
+        self.instrument = instrument
+        self.command = command
+        where = []
+        if instrument:
+            where.append(f"instrument {instrument}")
+        if command:
+            where.append(f"command {command!r}")
+        if where:
+            message = f"{', '.join(where)}: {message}"
+        super().__init__(message)
+
+
+class InstrumentConnectionError(InstrumentError):
+    """The instrument cannot be reached or dropped its connection."""
+
+
+class InstrumentTimeout(InstrumentError):
+    """The instrument did not answer within its timeout."""
+
+
+class InstrumentResponseError(InstrumentError):
+    """The instrument answered something that cannot be parsed."""
+
+
+class InstrumentStateError(InstrumentError):
+    """The instrument's identity or state differs from what was programmed."""
+
+
+class ScpiError(InstrumentError):
+    """The instrument reported an error in its SCPI error queue."""
+
+    def __init__(self, message: str, *, code: int, instrument: str = "", command: str = "") -> None:
+        self.code = code
+        super().__init__(message, instrument=instrument, command=command)
+
+
+class InterlockError(BenchctlError):
+    """Base of interlock refusals and trips."""
+
+
+class SetpointRefused(InterlockError):
+    """A setpoint is outside the station limits; nothing was sent to the instrument."""
+
+    def __init__(self, message: str, *, limit: str, value: float, instrument: str) -> None:
+        self.limit = limit
+        self.value = value
+        self.instrument = instrument
+        super().__init__(message)
+
+
+class InterlockTrip(InterlockError):
+    """A reading crossed a station limit; the outputs have been turned off."""
+
+    def __init__(self, message: str, *, limit: str, value: float, instrument: str) -> None:
+        self.limit = limit
+        self.value = value
+        self.instrument = instrument
+        super().__init__(message)
+
+
+class StoreError(BenchctlError):
+    """The measurement store cannot be opened, read or written."""
+
+
+class SchemaVersionError(StoreError):
+    """The database was written by a different schema version."""
+
+
+class ProcedureError(BenchctlError):
+    """A procedure cannot be found, loaded or run."""
+
+
+class AnalysisInputError(BenchctlError):
+    """Data handed to an analysis (for instance a CSV file) cannot be used."""
