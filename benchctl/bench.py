@@ -1,0 +1,191 @@
+"""The Bench a procedure receives: instruments by role behind the interlock, and helpers.
+
+``bench.source``, ``bench.load``, ``bench.input_meter``, ``bench.output_meter`` (and any
+role by ``bench.role(name)``) are guarded drivers; ``bench.record(...)`` stores one
+point durably before it returns; ``bench.settle(...)`` and ``bench.wait(...)`` wait for
+the DUT (and are cut short by an interlock trip); ``bench.sweep(plan)`` walks the
+planned points with progress reporting; ``bench.log`` is the procedure's logger.
+"""
+
+from __future__ import annotations
+
+import logging
+import time
+from typing import Any, Callable, Iterable, Iterator, Mapping
+
+from benchctl.errors import ProcedureError
+from benchctl.interlock import Interlock
+from benchctl.settle import SettleResult, settle_adaptive
+
+#: Unit implied by a quantity name's suffix (the project's naming convention).
+SUFFIX_UNITS = {
+    "_v": "V", "_a": "A", "_w": "W", "_hz": "Hz", "_s": "s", "_pct": "%", "_ohm": "ohm",
+    "_deg": "deg", "_db": "dB", "_f": "F", "_h": "H", "_c": "degC",
+}
+
+
+def unit_from_name(name: str) -> str:
+    """The unit a name's suffix implies ('' when it has none: efficiency, duty, counts)."""
+    for suffix, unit in SUFFIX_UNITS.items():
+        if name.endswith(suffix):
+            return unit
+    return ""
+
+
+class Bench:
+    """What a procedure's ``run(bench, p)`` works with."""
+
+    def __init__(
+        self,
+        *,
+        instruments: Mapping[str, Any],
+        interlock: Interlock,
+        recorder: Callable[..., int],
+        array_recorder: Callable[..., None] | None = None,
+        event_recorder: Callable[[str, str, Mapping[str, Any]], None] | None = None,
+        settle_enabled: bool = True,
+        progress: Callable[[int, int, Mapping[str, float]], None] | None = None,
+        clock: Callable[[], float] = time.monotonic,
+        log: logging.Logger | None = None,
+        skip_points: int = 0,
+    ) -> None:
+        self._instruments = dict(instruments)
+        self.interlock = interlock
+        self._recorder = recorder
+        self._array_recorder = array_recorder
+        self._event_recorder = event_recorder
+        self.settle_enabled = settle_enabled
+        self._progress = progress
+        self.clock = clock
+        self.log = log or logging.getLogger("benchctl.procedure")
+        self.skip_points = skip_points
+        self.points_recorded = 0
+        self._done = 0
+        self._total = 0
+        self._last_values: Mapping[str, float] = {}
+
+    # -- instruments ---------------------------------------------------------------
+
+    def role(self, name: str) -> Any:
+        try:
+            return self._instruments[name]
+        except KeyError:
+            raise ProcedureError(
+                f"the procedure used role {name!r}, which it did not declare in ROLES or the station lacks; "
+                f"roles available: {', '.join(sorted(self._instruments))}"
+            ) from None
+
+    def has_role(self, name: str) -> bool:
+        return name in self._instruments
+
+    @property
+    def source(self) -> Any:
+        return self.role("source")
+
+    @property
+    def load(self) -> Any:
+        return self.role("load")
+
+    @property
+    def input_meter(self) -> Any:
+        return self.role("input_meter")
+
+    @property
+    def output_meter(self) -> Any:
+        return self.role("output_meter")
+
+    # -- waiting -------------------------------------------------------------------
+
+    def wait(self, seconds: float) -> None:
+        """A fixed delay, cut short by an interlock trip (which then raises)."""
+        if self.settle_enabled:
+            self.interlock.wait(seconds)
+        else:
+            self.interlock.raise_if_tripped()
+
+    def settle(
+        self,
+        read: Callable[[], float],
+        *,
+        rel_tol: float = 1e-3,
+        abs_tol: float = 1e-3,
+        window: int = 4,
+        interval_s: float = 0.0,
+        timeout_s: float = 10.0,
+    ) -> SettleResult:
+        """Adaptive settle (see :func:`benchctl.settle.settle_adaptive`); one reading when settling is disabled."""
+        if not self.settle_enabled:
+            value = read()
+            return SettleResult(True, 0.0, 0.0, value, max(abs_tol, rel_tol * abs(value)), 1, "settling disabled")
+        return settle_adaptive(
+            read, rel_tol=rel_tol, abs_tol=abs_tol, window=window, interval_s=interval_s,
+            timeout_s=timeout_s, clock=self.clock, sleep=self.interlock.wait,
+        )
+
+    # -- walking a plan ------------------------------------------------------------
+
+    def sweep(self, points: Iterable[Mapping[str, Any]]) -> Iterator[Mapping[str, Any]]:
+        """Yield the planned points in order, reporting progress; skips points already done (resume)."""
+        points = list(points)
+        self._total = len(points)
+        self._done = min(self.skip_points, self._total)
+        self._report()
+        for k, point in enumerate(points):
+            if k < self.skip_points:
+                continue
+            self.interlock.raise_if_tripped()
+            yield point
+
+    def _report(self) -> None:
+        if self._progress is not None:
+            self._progress(self._done, self._total, self._last_values)
+
+    # -- recording -----------------------------------------------------------------
+
+    def record(
+        self,
+        values: Mapping[str, float],
+        *,
+        units: Mapping[str, str] | None = None,
+        settle: SettleResult | None = None,
+        tag: str | None = None,
+    ) -> int:
+        """Store one point durably (committed before this returns); returns its sequence number.
+
+        Units come from the names' suffixes (``vin_v`` → V) unless ``units`` says otherwise.
+        """
+        self.interlock.raise_if_tripped()
+        all_units = {name: unit_from_name(name) for name in values}
+        all_units.update(units or {})
+        seq = self._recorder(
+            dict(values), all_units, tag=tag,
+            settled=None if settle is None else settle.settled,
+            settle_time_s=None if settle is None else settle.settling_time_s,
+        )
+        self.points_recorded += 1
+        self._done += 1
+        self._last_values = dict(values)
+        self._report()
+        return seq
+
+    def record_array(
+        self,
+        name: str,
+        columns: Mapping[str, Any],
+        *,
+        units: Mapping[str, str] | None = None,
+        point_seq: int | None = None,
+        meta: Mapping[str, Any] | None = None,
+    ) -> None:
+        """Store an array record (a Bode sweep, a waveform) with the run."""
+        if self._array_recorder is None:
+            raise ProcedureError("this bench has no array store")
+        all_units = {c: unit_from_name(c) for c in columns}
+        all_units.update(units or {})
+        self._array_recorder(name, dict(columns), all_units, point_seq=point_seq, meta=dict(meta or {}))
+
+    def event(self, kind: str, message: str, **details: Any) -> None:
+        """Store an event (``info``, ``warning`` ...) with the run."""
+        self.log.info("%s: %s", kind, message)
+        if self._event_recorder is not None:
+            self._event_recorder(kind, message, details)

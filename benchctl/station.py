@@ -1,0 +1,339 @@
+"""Station files: which instrument plays which role, and the limits of the bench.
+
+A station file is TOML (read with the standard library's ``tomllib``; nothing in it is
+evaluated as code). Loading validates the whole file and reports every problem with its
+key, so one edit fixes them all. The format is documented in the README::
+
+    [station]
+    name = "bench-3"
+    watch_period_s = 0.1                     # interlock background watch period
+    hazardous_voltage_acknowledged = false   # must be true when a limit exceeds 60 V DC
+
+    [limits]
+    source_voltage_max_v = 60.0
+    source_current_max_a = 3.0
+    dut_output_voltage_max_v = 6.0
+    load_current_max_a = 6.0
+    load_power_max_w = 35.0
+
+    [instruments.source]
+    driver = "dc_source"
+    resource = "TCPIP::192.0.2.10::5025::SOCKET"
+    timeout_s = 2.0
+    [instruments.source.commands]            # dialect overrides, optional
+    set_voltage = "SOUR:VOLT {value:.4f}"
+"""
+
+from __future__ import annotations
+
+import math
+import tomllib
+from dataclasses import dataclass, field, fields
+from functools import lru_cache
+from importlib.metadata import entry_points
+from pathlib import Path
+from typing import Any, Mapping
+
+from benchctl.errors import StationFileError
+
+#: DC voltage above which a station must acknowledge hazardous voltage: the SELV / ES1
+#: boundary of 60 V DC (IEC 62368-1 Table 4; IEC 60950-1 §1.2.8.8 — from memory).
+HAZARDOUS_DC_VOLTAGE_V = 60.0
+
+#: The roles a procedure may ask for, and the driver kind each must have.
+ROLE_KINDS: dict[str, str] = {
+    "source": "dc_source",
+    "load": "electronic_load",
+    "input_meter": "power_meter",
+    "output_meter": "power_meter",
+    "analyzer": "loop_analyzer",
+    "scope": "oscilloscope",
+}
+
+DRIVER_ENTRY_POINT_GROUP = "benchctl.drivers"
+
+
+@lru_cache(maxsize=1)
+def _driver_entry_points() -> dict[str, Any]:
+    return {ep.name: ep for ep in entry_points(group=DRIVER_ENTRY_POINT_GROUP)}
+
+
+def driver_names() -> list[str]:
+    """Names of every installed driver (entry-point group ``benchctl.drivers``)."""
+    return sorted(_driver_entry_points())
+
+
+def load_driver_class(name: str) -> type:
+    """The driver class registered under ``name``; a lab adds its own through the entry-point group."""
+    eps = _driver_entry_points()
+    if name not in eps:
+        raise StationFileError(
+            f"unknown driver {name!r}; installed drivers: {', '.join(driver_names()) or 'none'}. "
+            f"A lab's own driver registers under the entry-point group {DRIVER_ENTRY_POINT_GROUP!r}"
+        )
+    return eps[name].load()
+
+
+@dataclass(frozen=True)
+class StationLimits:
+    """The bench's safety limits, SI units. The interlock enforces every one."""
+
+    source_voltage_max_v: float
+    source_current_max_a: float
+    dut_output_voltage_max_v: float
+    load_current_max_a: float
+    load_power_max_w: float
+
+    @property
+    def hazardous(self) -> bool:
+        return max(self.source_voltage_max_v, self.dut_output_voltage_max_v) > HAZARDOUS_DC_VOLTAGE_V
+
+
+@dataclass(frozen=True)
+class InstrumentConfig:
+    role: str
+    driver: str
+    resource: str
+    timeout_s: float = 2.0
+    options: Mapping[str, Any] = field(default_factory=dict)
+    commands: Mapping[str, str] = field(default_factory=dict)
+
+    def create(self) -> Any:
+        """A driver object for this instrument (not yet opened)."""
+        cls = load_driver_class(self.driver)
+        return cls(
+            self.resource,
+            name=self.role,
+            timeout_s=self.timeout_s,
+            commands=dict(self.commands),
+            options=dict(self.options),
+        )
+
+
+@dataclass(frozen=True)
+class Station:
+    name: str
+    limits: StationLimits
+    instruments: Mapping[str, InstrumentConfig]
+    description: str = ""
+    watch_period_s: float = 0.1
+    hazardous_voltage_acknowledged: bool = False
+    database: str | None = None
+    path: Path | None = None
+    text: str = ""
+
+    def require_roles(self, roles: list[str] | tuple[str, ...], *, needed_by: str = "") -> None:
+        missing = [r for r in roles if r not in self.instruments]
+        if missing:
+            who = f" needed by {needed_by}" if needed_by else ""
+            raise StationFileError(
+                f"station {self.name!r} ({self.path or 'in memory'}) has no instrument for role(s) "
+                f"{', '.join(missing)}{who}; add [instruments.<role>] tables for them"
+            )
+
+
+_LIMIT_KEYS = [f.name for f in fields(StationLimits)]
+_STATION_KEYS = {"name", "description", "watch_period_s", "hazardous_voltage_acknowledged", "database"}
+_INSTRUMENT_KEYS = {"driver", "resource", "timeout_s", "options", "commands"}
+
+
+def _positive_number(value: Any) -> bool:
+    return isinstance(value, (int, float)) and not isinstance(value, bool) and math.isfinite(value) and value > 0
+
+
+def _check_resource(resource: str) -> str | None:
+    """A reason the VISA resource string is malformed, or None (no connection is made)."""
+    from pyvisa import rname
+
+    try:
+        rname.parse_resource_name(resource)
+    except (rname.InvalidResourceName, ValueError) as exc:
+        return str(exc).splitlines()[0]
+    return None
+
+
+def parse_station(text: str, *, path: Path | None = None) -> Station:
+    """Validate station TOML text completely; raise StationFileError listing every problem."""
+    where = str(path) if path else "station text"
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise StationFileError(f"{where}: not valid TOML: {exc}") from exc
+
+    problems: list[str] = []
+    for key in sorted(set(data) - {"station", "limits", "instruments"}):
+        problems.append(f"[{key}]: unknown table; expected [station], [limits], [instruments.<role>]")
+
+    station = data.get("station")
+    if not isinstance(station, dict):
+        problems.append("[station]: missing table with at least name = \"...\"")
+        station = {}
+    for key in sorted(set(station) - _STATION_KEYS):
+        problems.append(f"station.{key}: unknown key; known keys: {', '.join(sorted(_STATION_KEYS))}")
+    name = station.get("name")
+    if not isinstance(name, str) or not name.strip():
+        problems.append("station.name: required, a non-empty string")
+    watch = station.get("watch_period_s", 0.1)
+    if not _positive_number(watch) or watch > 10:
+        problems.append(f"station.watch_period_s: {watch!r} must be a number of seconds in (0, 10]")
+    ack = station.get("hazardous_voltage_acknowledged", False)
+    if not isinstance(ack, bool):
+        problems.append(f"station.hazardous_voltage_acknowledged: {ack!r} must be true or false")
+    database = station.get("database")
+    if database is not None and (not isinstance(database, str) or not database.strip()):
+        problems.append("station.database: must be a database URL string when given")
+
+    limits_table = data.get("limits")
+    limit_values: dict[str, float] = {}
+    if not isinstance(limits_table, dict):
+        problems.append(f"[limits]: missing table; required keys: {', '.join(_LIMIT_KEYS)}")
+        limits_table = {}
+    for key in sorted(set(limits_table) - set(_LIMIT_KEYS)):
+        problems.append(f"limits.{key}: unknown key; known keys: {', '.join(_LIMIT_KEYS)}")
+    for key in _LIMIT_KEYS:
+        if key not in limits_table:
+            if isinstance(data.get("limits"), dict):
+                problems.append(f"limits.{key}: required (SI units: V, A, W)")
+            continue
+        value = limits_table[key]
+        if not _positive_number(value):
+            problems.append(f"limits.{key}: {value!r} must be a positive number")
+        else:
+            limit_values[key] = float(value)
+
+    limits = StationLimits(**limit_values) if len(limit_values) == len(_LIMIT_KEYS) else None
+    if limits is not None and limits.hazardous and ack is not True:
+        problems.append(
+            f"station.hazardous_voltage_acknowledged: the limits allow "
+            f"{max(limits.source_voltage_max_v, limits.dut_output_voltage_max_v):g} V, above "
+            f"{HAZARDOUS_DC_VOLTAGE_V:g} V DC (SELV/ES1 boundary, IEC 62368-1): read the README's "
+            "safety section, then set hazardous_voltage_acknowledged = true"
+        )
+
+    instruments: dict[str, InstrumentConfig] = {}
+    table = data.get("instruments", {})
+    if not isinstance(table, dict) or not table:
+        problems.append("[instruments]: at least one [instruments.<role>] table is required")
+        table = {}
+    for role, spec in table.items():
+        key = f"instruments.{role}"
+        if role not in ROLE_KINDS:
+            problems.append(f"{key}: unknown role; roles are {', '.join(ROLE_KINDS)}")
+            continue
+        if not isinstance(spec, dict):
+            problems.append(f"{key}: must be a table with driver and resource")
+            continue
+        for extra in sorted(set(spec) - _INSTRUMENT_KEYS):
+            problems.append(f"{key}.{extra}: unknown key; known keys: {', '.join(sorted(_INSTRUMENT_KEYS))}")
+        driver = spec.get("driver")
+        resource = spec.get("resource")
+        timeout = spec.get("timeout_s", 2.0)
+        options = spec.get("options", {})
+        commands = spec.get("commands", {})
+        ok = True
+        if not isinstance(driver, str) or not driver:
+            problems.append(f"{key}.driver: required, one of {', '.join(driver_names())}")
+            ok = False
+        elif driver not in _driver_entry_points():
+            problems.append(f"{key}.driver: unknown driver {driver!r}; installed: {', '.join(driver_names())}")
+            ok = False
+        else:
+            cls = load_driver_class(driver)
+            expected = ROLE_KINDS[role]
+            if getattr(cls, "kind", None) != expected:
+                problems.append(
+                    f"{key}.driver: {driver!r} drives a {getattr(cls, 'kind', '?')}, but role {role!r} needs a {expected}"
+                )
+                ok = False
+            elif isinstance(commands, dict):
+                try:
+                    cls.command_table(commands)
+                except StationFileError as exc:
+                    problems.append(f"{key}.commands: {exc}")
+                    ok = False
+        if not isinstance(resource, str) or not resource:
+            problems.append(f"{key}.resource: required, a VISA resource string such as TCPIP::127.0.0.1::5025::SOCKET")
+            ok = False
+        else:
+            reason = _check_resource(resource)
+            if reason:
+                problems.append(f"{key}.resource: {resource!r} is not a VISA resource string ({reason})")
+                ok = False
+        if not _positive_number(timeout) or timeout > 600:
+            problems.append(f"{key}.timeout_s: {timeout!r} must be a number of seconds in (0, 600]")
+            ok = False
+        if not isinstance(options, dict):
+            problems.append(f"{key}.options: must be a table")
+            ok = False
+        if not isinstance(commands, dict):
+            problems.append(f"{key}.commands: must be a table of command-name = \"SCPI template\"")
+            ok = False
+        if ok:
+            instruments[role] = InstrumentConfig(
+                role=role,
+                driver=driver,
+                resource=resource,
+                timeout_s=float(timeout),
+                options=dict(options),
+                commands=dict(commands),
+            )
+
+    if problems:
+        raise StationFileError(f"{where}: {len(problems)} problem(s) in the station file", problems)
+    assert limits is not None and isinstance(name, str)
+    return Station(
+        name=name.strip(),
+        description=str(station.get("description", "")),
+        limits=limits,
+        instruments=instruments,
+        watch_period_s=float(watch),
+        hazardous_voltage_acknowledged=bool(ack),
+        database=database,
+        path=path,
+        text=text,
+    )
+
+
+def load_station(path: str | Path) -> Station:
+    """Read and validate a station file."""
+    path = Path(path)
+    try:
+        text = path.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise StationFileError(f"station file {path} does not exist; `benchctl sim` writes one for the simulated bench") from None
+    except (OSError, UnicodeDecodeError) as exc:
+        raise StationFileError(f"station file {path} cannot be read: {exc}") from exc
+    return parse_station(text, path=path)
+
+
+def render_station(
+    *,
+    name: str,
+    description: str,
+    limits: StationLimits,
+    instruments: Mapping[str, tuple[str, str]],
+    watch_period_s: float = 0.1,
+    hazardous_voltage_acknowledged: bool = False,
+    timeout_s: float = 2.0,
+) -> str:
+    """Station TOML text for ``instruments`` given as role -> (driver, resource)."""
+    lines = [
+        "# benchctl station file",
+        "[station]",
+        f"name = {_toml_str(name)}",
+        f"description = {_toml_str(description)}",
+        f"watch_period_s = {watch_period_s!r}",
+        f"hazardous_voltage_acknowledged = {'true' if hazardous_voltage_acknowledged else 'false'}",
+        "",
+        "[limits]",
+    ]
+    for key in _LIMIT_KEYS:
+        lines.append(f"{key} = {float(getattr(limits, key))!r}")
+    for role, (driver, resource) in instruments.items():
+        lines += ["", f"[instruments.{role}]", f"driver = {_toml_str(driver)}",
+                  f"resource = {_toml_str(resource)}", f"timeout_s = {timeout_s!r}"]
+    return "\n".join(lines) + "\n"
+
+
+def _toml_str(text: str) -> str:
+    return '"' + text.replace("\\", "\\\\").replace('"', '\\"') + '"'
