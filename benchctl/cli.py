@@ -1,0 +1,138 @@
+"""The ``benchctl`` command: argument parsing and dispatch.
+
+This module imports nothing heavy (no pandas, numpy, scipy, matplotlib, pyvisa, rich)
+so that ``benchctl --help`` starts fast; each command's module is imported when run.
+Exit codes: 0 success; 1 a run that did not complete or a check that failed; 2 bad
+input (files, parameters, options) — nothing was enabled; 3 an instrument or database
+problem; 130 interrupted.
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import sys
+
+CAUTION = (
+    "CAUTION: a power bench can carry hazardous voltages (above 60 V DC) and stored energy in "
+    "capacitors that stays after the source is off. The interlock is a second line of defence, "
+    "not a substitute for hardware protection, guarding and licensed practice; follow your local "
+    "electrical-safety codes and your lab's rules."
+)
+
+EXIT_OK = 0
+EXIT_FAILED = 1
+EXIT_BAD_INPUT = 2
+EXIT_INSTRUMENT = 3
+EXIT_INTERRUPTED = 130
+
+DEFAULT_DB_ENV = "BENCHCTL_DB"
+
+
+def default_db() -> str:
+    return os.environ.get(DEFAULT_DB_ENV) or os.path.join("benchctl-data", "benchctl.db")
+
+
+def _add_db(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--db", default=None, metavar="URL",
+                   help=f"database: a SQLite file path or SQLAlchemy URL (default ${DEFAULT_DB_ENV} or ./benchctl-data/benchctl.db)")
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="benchctl",
+        description="Bench automation and measurement logging for switching power converters: "
+                    "run procedures on a station (real or simulated), log every point with provenance, "
+                    "analyse and report.",
+        epilog=CAUTION,
+    )
+    parser.add_argument("--version", action="store_true", help="print the version and exit")
+    parser.add_argument("-v", "--verbose", action="count", default=0, help="log more (-vv: every SCPI exchange)")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+
+    p = sub.add_parser("sim", help="serve a simulated bench (converter model + SCPI instruments) on 127.0.0.1")
+    p.add_argument("--model", default="flyback-48v-5v", help="converter model (see --list-models)")
+    p.add_argument("--list-models", action="store_true", help="list the converter models and exit")
+    p.add_argument("--station-out", metavar="FILE", default=None,
+                   help="where to write the station file (default ./benchctl-data/sim-<model>.toml)")
+    p.add_argument("--time-scale", type=float, default=1.0, help="model seconds per real second (default 1)")
+    p.add_argument("--seed", type=int, default=1, help="seed of the measurement noise")
+    p.add_argument("--base-port", type=int, default=0, help="first TCP port (default: free ports)")
+
+    p = sub.add_parser("instruments", help="connect to every instrument of a station and identify it")
+    p.add_argument("--station", required=True, metavar="FILE", help="station file (TOML)")
+    p.add_argument("--json", action="store_true", help="print JSON instead of a table")
+
+    p = sub.add_parser("run", help="run a procedure on a station")
+    p.add_argument("procedure", help="bundled procedure name (see `benchctl procedures`) or a .py path")
+    p.add_argument("--station", required=True, metavar="FILE", help="station file (TOML)")
+    _add_db(p)
+    p.add_argument("--set", dest="sets", action="append", default=[], metavar="NAME=VALUE",
+                   help="override a parameter (repeatable), e.g. --set vin_v=36,48,75")
+    p.add_argument("--params", metavar="FILE", help="TOML file of parameter values")
+    p.add_argument("--dut-part", default="", help="DUT part number")
+    p.add_argument("--dut-rev", default="", help="DUT revision")
+    p.add_argument("--dut-serial", default="", help="DUT serial number")
+    p.add_argument("--operator", default=None, help="operator name (default: the login name)")
+    p.add_argument("--no-settle", action="store_true", help="skip settling waits (dry runs, benchmarks)")
+    p.add_argument("--json", action="store_true", help="print the outcome as JSON")
+
+    p = sub.add_parser("demo", help="run the efficiency map on a simulated bench started in-process")
+    p.add_argument("--model", default="flyback-48v-5v", help="converter model")
+    _add_db(p)
+    p.add_argument("--time-scale", type=float, default=20.0, help="model seconds per real second (default 20)")
+    p.add_argument("--seed", type=int, default=1, help="seed of the measurement noise")
+
+    sub.add_parser("procedures", help="list the bundled procedures and their parameters")
+
+    p = sub.add_parser("runs", help="list stored runs")
+    _add_db(p)
+    p.add_argument("--status", default=None, help="only runs with this status")
+    p.add_argument("--procedure", default=None, help="only runs of this procedure")
+    p.add_argument("--station", dest="station_name", default=None, help="only runs on this station")
+    p.add_argument("--limit", type=int, default=50, help="at most this many (newest first)")
+    p.add_argument("--json", action="store_true")
+
+    p = sub.add_parser("show", help="show one run: provenance, events, results")
+    p.add_argument("run", help="run id or 'latest'")
+    _add_db(p)
+    p.add_argument("--json", action="store_true")
+
+    p = sub.add_parser("export", help="export a run's points")
+    p.add_argument("run", help="run id or 'latest'")
+    _add_db(p)
+    p.add_argument("--format", choices=("csv", "json"), default="csv")
+    p.add_argument("--out", metavar="FILE", default=None, help="write here instead of standard output")
+    return parser
+
+
+def _configure_logging(verbose: int) -> None:
+    import logging
+
+    level = logging.WARNING if verbose == 0 else logging.INFO if verbose == 1 else logging.DEBUG
+    logging.basicConfig(level=level, format="%(asctime)s %(levelname)s %(name)s: %(message)s")
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if args.version:
+        from benchctl import __version__
+
+        print(f"benchctl {__version__}")
+        return EXIT_OK
+    if not args.command:
+        parser.print_help()
+        return EXIT_OK
+    _configure_logging(args.verbose)
+    from benchctl import commands
+
+    try:
+        return commands.dispatch(args)
+    except KeyboardInterrupt:
+        print("interrupted", file=sys.stderr)
+        return EXIT_INTERRUPTED
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

@@ -1,0 +1,115 @@
+"""``benchctl runs``, ``benchctl show`` and ``benchctl export``: reading the store."""
+
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+from dataclasses import asdict
+from pathlib import Path
+
+from rich.markup import escape
+from rich.table import Table
+
+from benchctl.cli import EXIT_OK, default_db
+from benchctl.commands.console import console
+from benchctl.commands.summary import print_run_summary
+
+
+def _open(db: str | None):
+    from benchctl.store import Store
+    from benchctl.errors import StoreError
+
+    url = db or default_db()
+    if "://" not in url and not Path(url).exists():
+        raise StoreError(f"no database at {url}; run `benchctl demo` or `benchctl run` first, or give --db")
+    return Store.open(url)
+
+
+def _json_default(obj):
+    if hasattr(obj, "isoformat"):
+        return obj.isoformat()
+    if hasattr(obj, "item"):
+        return obj.item()
+    return str(obj)
+
+
+def cmd_runs(args: argparse.Namespace) -> int:
+    with _open(args.db) as store:
+        frame = store.runs(status=args.status, procedure=args.procedure, station=args.station_name, limit=args.limit)
+        if args.json:
+            print(frame.to_json(orient="records", date_format="iso"))
+            return EXIT_OK
+        table = Table(title=f"runs in {store.url}")
+        cols = [c for c in ("run_id", "procedure", "station_name", "dut_part", "dut_revision", "dut_serial",
+                            "status", "started_utc", "n_points") if c in frame.columns]
+        for c in cols:
+            table.add_column(c.replace("_", " "))
+        for _, r in frame.iterrows():
+            cells = []
+            for c in cols:
+                v = r[c]
+                if c == "started_utc" and hasattr(v, "strftime"):
+                    v = v.strftime("%Y-%m-%d %H:%M:%S")
+                if c == "status":
+                    colour = {"completed": "green", "running": "cyan", "interrupted": "yellow"}.get(str(v), "red")
+                    cells.append(f"[{colour}]{v}[/]")
+                else:
+                    cells.append(escape(str(v)))
+            table.add_row(*cells)
+        console().print(table)
+    return EXIT_OK
+
+
+def cmd_show(args: argparse.Namespace) -> int:
+    with _open(args.db) as store:
+        run_id = store.resolve_run(args.run)
+        info = store.run(run_id)
+        if args.json:
+            payload = asdict(info)
+            payload.pop("station_text", None)
+            payload["events"] = json.loads(store.events(run_id).to_json(orient="records", date_format="iso"))
+            payload["results"] = json.loads(store.results(run_id).to_json(orient="records", date_format="iso"))
+            print(json.dumps(payload, default=_json_default, indent=2))
+            return EXIT_OK
+        out = console()
+        table = Table(title=f"run {run_id}", show_header=False)
+        table.add_column("field", style="bold")
+        table.add_column("value", overflow="fold")
+        rows = [
+            ("procedure", f"{info.procedure}  (sha256 {info.procedure_sha256[:16]}…)"),
+            ("status", f"{info.status}  {info.message}"),
+            ("station", f"{info.station_name}  {info.station_description}"),
+            ("DUT", f"part {info.dut_part or '—'}  rev {info.dut_revision or '—'}  serial {info.dut_serial or '—'}"),
+            ("operator / host", f"{info.operator or '—'} @ {info.host} (pid {info.pid})"),
+            ("benchctl", info.benchctl_version),
+            ("started / ended (UTC)", f"{info.started_utc:%Y-%m-%d %H:%M:%S} / "
+                                      f"{info.ended_utc:%Y-%m-%d %H:%M:%S}" if info.ended_utc else f"{info.started_utc:%Y-%m-%d %H:%M:%S} / —"),
+            ("points", str(info.n_points)),
+            ("parameters", json.dumps(info.parameters, default=_json_default)),
+        ]
+        for inst in info.instruments:
+            rows.append((f"instrument {inst.role}", f"{inst.identity}  [{inst.driver} @ {inst.resource}]"))
+        for k, v in rows:
+            table.add_row(k, escape(v))
+        out.print(table)
+        print_run_summary(store, run_id)
+    return EXIT_OK
+
+
+def cmd_export(args: argparse.Namespace) -> int:
+    with _open(args.db) as store:
+        run_id = store.resolve_run(args.run)
+        frame = store.points(run_id)
+        units = store.quantity_units(run_id)
+        if args.format == "csv":
+            text = frame.to_csv(index=False)  # column names carry their units (vin_v, pout_w)
+        else:
+            text = json.dumps({"run_id": run_id, "units": units,
+                               "points": json.loads(frame.to_json(orient="records", date_format="iso"))}, indent=1)
+        if args.out:
+            Path(args.out).write_text(text, encoding="utf-8")
+            console().print(f"wrote {len(frame)} points of run {run_id} to {args.out}")
+        else:
+            sys.stdout.write(text)
+    return EXIT_OK

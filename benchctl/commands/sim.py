@@ -1,0 +1,62 @@
+"""``benchctl sim``: serve a simulated bench until interrupted."""
+
+from __future__ import annotations
+
+import argparse
+import threading
+from pathlib import Path
+
+from rich.table import Table
+
+from benchctl.cli import EXIT_BAD_INPUT, EXIT_OK
+from benchctl.commands.console import console, error_console, print_caution
+
+
+def default_station_path(model: str) -> Path:
+    return Path("benchctl-data") / f"sim-{model}.toml"
+
+
+def cmd_sim(args: argparse.Namespace) -> int:
+    from simulated_instruments.bench import SimulatedBench
+    from simulated_instruments.converter import DESIGNS
+
+    out = console()
+    if args.list_models:
+        table = Table(title="converter models")
+        for col in ("name", "description", "input (V)", "output", "fsw"):
+            table.add_column(col)
+        for name, d in sorted(DESIGNS.items()):
+            table.add_row(name, d.description, f"{d.vin_min_v:g}–{d.vin_max_v:g} (nom {d.vin_nom_v:g})",
+                          f"{d.vout_nom_v:g} V / {d.iout_rated_a:g} A", f"{d.fsw_hz / 1e3:g} kHz")
+        out.print(table)
+        return EXIT_OK
+    if args.model not in DESIGNS:
+        error_console().print(f"[bold red]error:[/] unknown model {args.model!r}; models: {', '.join(sorted(DESIGNS))}")
+        return EXIT_BAD_INPUT
+    if not args.time_scale > 0:
+        error_console().print("[bold red]error:[/] --time-scale must be positive")
+        return EXIT_BAD_INPUT
+    bench = SimulatedBench(args.model, time_scale=args.time_scale, seed=args.seed, base_port=args.base_port)
+    bench.start()
+    try:
+        path = bench.write_station(args.station_out or default_station_path(args.model))
+        table = Table(title=f"simulated bench: {bench.design.description}")
+        table.add_column("role")
+        table.add_column("VISA resource")
+        table.add_column("identity")
+        for role, inst in bench.instruments.items():
+            ident = inst.identity
+            table.add_row(role, bench.resources[role], f"{ident.maker},{ident.model},{ident.serial},{ident.firmware}")
+        out.print(table)
+        out.print("servers listen on 127.0.0.1 only (loopback); nothing is reachable from the network")
+        out.print(f"station file written to [bold]{path}[/]")
+        out.print(f"try:  benchctl instruments --station {path}")
+        if bench.hazardous:
+            print_caution("This simulated converter's input range goes above 60 V DC, as the real one would.")
+        out.print("serving until Ctrl-C ...")
+        threading.Event().wait()
+    except KeyboardInterrupt:
+        out.print("stopping the simulated bench")
+    finally:
+        bench.stop()
+    return EXIT_OK

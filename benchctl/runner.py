@@ -1,0 +1,222 @@
+"""Running a procedure on a station into a store, safely.
+
+The order of a run: parameters are validated and the station checked for the roles the
+procedure needs (nothing is opened before); the instruments are opened and identified;
+the run begins in the store with its provenance; the instruments' own protection is
+programmed from the station limits (source OVP, load OCP/OPP) and outputs are forced
+off; the interlock watch starts; the procedure body runs; whatever happens — completion,
+failure, an interlock trip, Ctrl-C — the outputs end off (source first, then load), the
+outcome is stored as the run's status with an event, and the instruments are closed.
+Derived results are computed from the stored points and stored with the run.
+"""
+
+from __future__ import annotations
+
+import logging
+import math
+import time
+from dataclasses import dataclass, field
+from typing import Any, Callable, Mapping
+
+from benchctl.bench import Bench
+from benchctl.errors import BenchctlError, InstrumentError, InterlockTrip, SetpointRefused
+from benchctl.guarded import guard
+from benchctl.interlock import Interlock
+from benchctl.procedure import Parameters, Procedure
+from benchctl.station import Station
+
+logger = logging.getLogger(__name__)
+
+
+@dataclass(frozen=True)
+class DutInfo:
+    part: str = ""
+    revision: str = ""
+    serial: str = ""
+
+
+@dataclass(frozen=True)
+class RunOutcome:
+    """What a run ended as. ``status`` is one of completed / failed / tripped / interrupted."""
+
+    run_id: int
+    status: str
+    message: str
+    points: int
+    duration_s: float
+    trip: Any = None
+    shutdown_steps: tuple[str, ...] = field(default=())
+
+    @property
+    def ok(self) -> bool:
+        return self.status == "completed"
+
+
+def _program_protection(drivers: Mapping[str, Any], station: Station) -> None:
+    """The instruments' own protection as a hardware second layer, and every output off."""
+    lim = station.limits
+    source = drivers.get("source")
+    load = drivers.get("load")
+    for driver in drivers.values():
+        driver.reset()
+    if source is not None:
+        source.set_output(False)
+        source.set_ovp(lim.source_voltage_max_v)
+        source.set_current_limit(min(lim.source_current_max_a, source.current_limit()))
+    if load is not None:
+        load.set_input(False)
+        load.set_current_protection(lim.load_current_max_a)
+        load.set_power_protection(lim.load_power_max_w)
+
+
+def execute(
+    procedure: Procedure,
+    params: Parameters,
+    station: Station,
+    store: Any,
+    *,
+    dut: DutInfo = DutInfo(),
+    operator: str | None = None,
+    settle_enabled: bool = True,
+    progress: Callable[[int, int, Mapping[str, float]], None] | None = None,
+    on_begin: Callable[[int], None] | None = None,
+    job_id: int | None = None,
+) -> RunOutcome:
+    """Run ``procedure`` on ``station`` into ``store`` and return how it ended."""
+    from benchctl.store import InstrumentInfo, RunStart
+
+    station.require_roles(procedure.roles, needed_by=f"procedure {procedure.name}")
+    started = time.monotonic()
+    drivers: dict[str, Any] = {}
+    try:
+        for role in procedure.roles:
+            drivers[role] = station.instruments[role].create().open()
+    except BaseException:
+        for d in drivers.values():
+            d.close()
+        raise
+
+    interlock = Interlock(station.limits, watch_period_s=station.watch_period_s)
+    interlock.attach_outputs(drivers.get("source"), drivers.get("load"))
+    start = RunStart(
+        procedure=procedure.name,
+        procedure_sha256=procedure.source_sha256,
+        station_name=station.name,
+        parameters=params.as_dict(),
+        station_description=station.description,
+        station_text=station.text,
+        instruments=tuple(
+            InstrumentInfo(role, station.instruments[role].driver, d.resource, str(d.identity))
+            for role, d in drivers.items()
+        ),
+        dut_part=dut.part, dut_revision=dut.revision, dut_serial=dut.serial,
+        job_id=job_id,
+        **({"operator": operator} if operator is not None else {}),
+    )
+    try:
+        run_id = store.begin_run(start)
+    except BaseException:
+        for d in drivers.values():
+            d.close()
+        raise
+    if on_begin is not None:
+        on_begin(run_id)
+
+    def record(values: dict, units: dict, *, tag: str | None, settled: bool | None, settle_time_s: float | None) -> int:
+        return store.record_point(run_id, values, units=units, tag=tag or "",
+                                  settled=True if settled is None else settled, settle_time_s=settle_time_s)
+
+    def record_array(name: str, columns: dict, units: dict, *, point_seq: int | None, meta: dict) -> None:
+        store.record_array(run_id, name, columns, units=units, point_seq=point_seq, meta=meta)
+
+    def record_event(kind: str, message: str, details: Mapping[str, Any]) -> None:
+        store.record_event(run_id, kind, message, dict(details))
+
+    bench = Bench(
+        instruments={role: guard(d, interlock) for role, d in drivers.items()},
+        interlock=interlock, recorder=record, array_recorder=record_array, event_recorder=record_event,
+        settle_enabled=settle_enabled, progress=progress,
+    )
+    for role in ("source", "input_meter"):
+        if role in bench._instruments:
+            g = bench.role(role)
+            interlock.watch(f"{role} voltage", g.measure_voltage)
+            interlock.watch(f"{role} current", g.measure_current)
+            break
+    for role in ("output_meter", "load"):
+        if role in bench._instruments:
+            interlock.watch(f"{role} voltage", bench.role(role).measure_voltage)
+            break
+
+    status, message = "completed", ""
+    try:
+        _program_protection(drivers, station)
+        interlock.start_watch()
+        procedure.run(bench, params)
+        interlock.raise_if_tripped()
+    except InterlockTrip as exc:
+        status, message = "tripped", str(exc)
+    except SetpointRefused as exc:
+        status, message = "failed", str(exc)
+        store.record_event(run_id, "interlock_refusal", str(exc),
+                           {"limit": exc.limit, "value": exc.value, "instrument": exc.instrument})
+    except KeyboardInterrupt:
+        status, message = "interrupted", "stopped by the operator (Ctrl-C)"
+    except InstrumentError as exc:
+        status, message = "failed", str(exc)
+        store.record_event(run_id, "error", str(exc), {"instrument": exc.instrument, "command": exc.command,
+                                                       "type": type(exc).__name__})
+    except BenchctlError as exc:
+        status, message = "failed", str(exc)
+        store.record_event(run_id, "error", str(exc), {"type": type(exc).__name__})
+    except Exception as exc:
+        status, message = "failed", f"procedure raised {type(exc).__name__}: {exc}"
+        logger.exception("procedure %s raised", procedure.name)
+        store.record_event(run_id, "error", message, {"type": type(exc).__name__})
+    finally:
+        interlock.stop_watch()
+        steps = interlock.shutdown()
+        trip = interlock.trip_record
+        if trip is not None:
+            store.record_event(run_id, "interlock_trip", trip.message, {
+                "limit": trip.limit, "limit_value": trip.limit_value, "value": trip.value,
+                "instrument": trip.instrument, "shutdown": list(trip.shutdown),
+            })
+        failed_off = [s for s in steps if "FAILED" in s]
+        if failed_off:
+            store.record_event(run_id, "error", "could not confirm every output off: " + "; ".join(failed_off),
+                               {"shutdown": steps})
+        for d in drivers.values():
+            d.close()
+
+    if status == "completed" and procedure.analyse is not None:
+        try:
+            store_results(store, run_id, procedure, params)
+        except Exception as exc:
+            logger.exception("analysis of run %s failed", run_id)
+            store.record_event(run_id, "error", f"analysis failed: {type(exc).__name__}: {exc}", {})
+    store.end_run(run_id, status, message)
+    return RunOutcome(run_id, status, message, bench.points_recorded, time.monotonic() - started,
+                      trip=interlock.trip_record, shutdown_steps=tuple(steps))
+
+
+def store_results(store: Any, run_id: int, procedure: Procedure, params: Parameters) -> int:
+    """Compute the procedure's derived results from the stored points and store them."""
+    points = store.points(run_id)
+    results = procedure.analyse(points, params) if procedure.analyse else []
+    for r in results:
+        value = None if r.value is None or (isinstance(r.value, float) and math.isnan(r.value)) else float(r.value)
+        store.record_result(run_id, r.name, value, unit=r.unit, details=_jsonable(dict(r.details)), scope=dict(r.scope))
+    return len(results)
+
+
+def _jsonable(obj: Any) -> Any:
+    if isinstance(obj, dict):
+        return {str(k): _jsonable(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [_jsonable(v) for v in obj]
+    if isinstance(obj, float) and not math.isfinite(obj):
+        return None
+    if hasattr(obj, "item"):
+        return obj.item()
+    return obj

@@ -1,0 +1,139 @@
+"""The whole simulated bench: one converter model and a SCPI server per instrument.
+
+``SimulatedBench("flyback-48v-5v").start()`` builds the model on a scaled clock, puts
+a DC source on its input, an electronic load and a power meter on its output and a
+second power meter on its input, serves each on its own 127.0.0.1 port, and can write a
+station file (TOML text) that reaches them with ``TCPIP::127.0.0.1::<port>::SOCKET``.
+The simulator knows nothing of benchctl: it is reached only through those sockets.
+"""
+
+from __future__ import annotations
+
+import logging
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+from .converter import DESIGNS, ConverterModel, ScaledClock
+from .instruments import SimulatedDcSource, SimulatedElectronicLoad, SimulatedPowerMeter
+from .scpi import ScpiServer
+
+logger = logging.getLogger(__name__)
+
+#: Driver name of each role, as the benchctl drivers register them.
+ROLE_DRIVERS = {
+    "source": "dc_source",
+    "load": "electronic_load",
+    "input_meter": "power_meter",
+    "output_meter": "power_meter",
+}
+
+
+@dataclass(frozen=True)
+class BenchLimits:
+    """Station limits suited to a design (a little above its ratings)."""
+
+    source_voltage_max_v: float
+    source_current_max_a: float
+    dut_output_voltage_max_v: float
+    load_current_max_a: float
+    load_power_max_w: float
+
+
+def limits_for(design: Any) -> BenchLimits:
+    pout_w = design.vout_nom_v * design.iout_rated_a
+    return BenchLimits(
+        source_voltage_max_v=round(design.vin_max_v * 1.07, 3),
+        source_current_max_a=round(max(1.0, 2.0 * pout_w / design.vin_min_v), 3),
+        dut_output_voltage_max_v=round(design.vout_nom_v * 1.2, 3),
+        load_current_max_a=round(design.iout_rated_a * 1.1, 3),
+        load_power_max_w=round(pout_w * 1.2 * 1.1, 3),
+    )
+
+
+class SimulatedBench:
+    """A converter model with a source, a load and two power meters served on loopback."""
+
+    def __init__(self, model_name: str = "flyback-48v-5v", *, time_scale: float = 1.0, seed: int = 1,
+                 base_port: int = 0) -> None:
+        if model_name not in DESIGNS:
+            raise ValueError(f"unknown converter model {model_name!r}; models: {', '.join(sorted(DESIGNS))}")
+        self.model_name = model_name
+        self.design = DESIGNS[model_name]
+        self.clock = ScaledClock(time_scale)
+        self.model = ConverterModel(self.design, clock=self.clock, seed=seed)
+        self.instruments = {
+            "source": SimulatedDcSource(self.model, serial=f"S{seed:04d}", seed=seed),
+            "load": SimulatedElectronicLoad(self.model, serial=f"L{seed:04d}", seed=seed),
+            "input_meter": SimulatedPowerMeter(self.model, "input", serial=f"MI{seed:04d}", seed=seed),
+            "output_meter": SimulatedPowerMeter(self.model, "output", serial=f"MO{seed:04d}", seed=seed),
+        }
+        self.servers = {
+            role: ScpiServer(inst, port=(base_port + k if base_port else 0))
+            for k, (role, inst) in enumerate(self.instruments.items())
+        }
+        self.limits = limits_for(self.design)
+
+    def start(self) -> "SimulatedBench":
+        try:
+            for server in self.servers.values():
+                server.start()
+        except BaseException:
+            self.stop()
+            raise
+        return self
+
+    def stop(self) -> None:
+        for server in self.servers.values():
+            server.stop()
+
+    def __enter__(self) -> "SimulatedBench":
+        return self.start()
+
+    def __exit__(self, *exc: object) -> None:
+        self.stop()
+
+    @property
+    def resources(self) -> dict[str, str]:
+        return {role: server.resource for role, server in self.servers.items()}
+
+    @property
+    def hazardous(self) -> bool:
+        return max(self.limits.source_voltage_max_v, self.limits.dut_output_voltage_max_v) > 60.0
+
+    def station_toml(self, *, name: str | None = None, watch_period_s: float = 0.05) -> str:
+        """Station file text for this bench (acknowledges > 60 V when the design needs it)."""
+        lim = self.limits
+        lines = [
+            "# Station file written by the simulated bench; instruments listen on 127.0.0.1 only.",
+            "[station]",
+            f'name = "{name or "sim-" + self.model_name}"',
+            f'description = "simulated bench: {self.design.description}"',
+            f"watch_period_s = {watch_period_s!r}",
+            f"hazardous_voltage_acknowledged = {'true' if self.hazardous else 'false'}",
+            "",
+            "[limits]",
+        ]
+        for key, value in lim.__dict__.items():
+            lines.append(f"{key} = {value!r}")
+        for role, resource in self.resources.items():
+            lines += ["", f"[instruments.{role}]", f'driver = "{ROLE_DRIVERS[role]}"', f'resource = "{resource}"',
+                      "timeout_s = 2.0"]
+        return "\n".join(lines) + "\n"
+
+    def write_station(self, path: str | Path, **kwargs: Any) -> Path:
+        path = Path(path)
+        path.parent.mkdir(parents=True, exist_ok=True)
+        path.write_text(self.station_toml(**kwargs), encoding="utf-8")
+        return path
+
+    def procedure_parameters(self) -> dict[str, Any]:
+        """Efficiency-map parameters that fit this design's envelope (line list, ratings)."""
+        d = self.design
+        lines = sorted({d.vin_min_v, d.vin_nom_v, d.vin_max_v})
+        return {
+            "vin_v": lines,
+            "iout_rated_a": d.iout_rated_a,
+            "vout_nom_v": d.vout_nom_v,
+            "source_current_limit_a": self.limits.source_current_max_a,
+        }

@@ -1,0 +1,7 @@
+"""Simulated instruments: SCPI front panels over one shared converter model."""
+
+from .dc_source import SimulatedDcSource
+from .electronic_load import SimulatedElectronicLoad
+from .power_meter import SimulatedPowerMeter
+
+__all__ = ["SimulatedDcSource", "SimulatedElectronicLoad", "SimulatedPowerMeter"]
