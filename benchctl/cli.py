@@ -4,7 +4,7 @@ This module imports nothing heavy (no pandas, numpy, scipy, matplotlib, pyvisa, 
 so that ``benchctl --help`` starts fast; each command's module is imported when run.
 Exit codes: 0 success; 1 a run that did not complete or a check that failed; 2 bad
 input (files, parameters, options) — nothing was enabled; 3 an instrument or database
-problem; 130 interrupted.
+problem; 4 a run that could not be checked against its limits; 130 interrupted.
 """
 
 from __future__ import annotations
@@ -24,6 +24,7 @@ EXIT_OK = 0
 EXIT_FAILED = 1
 EXIT_BAD_INPUT = 2
 EXIT_INSTRUMENT = 3
+EXIT_NOT_CHECKED = 4
 EXIT_INTERRUPTED = 130
 
 DEFAULT_DB_ENV = "BENCHCTL_DB"

@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import json
 import math
 
 from rich.table import Table
@@ -23,13 +22,20 @@ def efficiency_grid(points) -> Table | None:
     needed = {"vin_set_v", "iout_set_a", "pin_w", "pout_w"}
     if points.empty or not needed <= set(points.columns):
         return None
-    frame = points.assign(eff=points["pout_w"] / points["pin_w"].where(points["pin_w"] > 0))
+    # No efficiency at no load: Pout ≈ 0 there, and the input power is the figure of merit.
+    loaded = (points["iout_set_a"] > 0) & (points["pin_w"] > 0)
+    frame = points.assign(eff=(points["pout_w"] / points["pin_w"]).where(loaded))
     grid = frame.pivot_table(index="iout_set_a", columns="vin_set_v", values="eff", aggfunc="mean")
-    table = Table(title="efficiency (%) by load and line")
+    table = Table(title="efficiency (%) by load and line (no-load row: input power)")
     table.add_column("load (A)", justify="right")
     for vin in grid.columns:
         table.add_column(f"{vin:g} V", justify="right")
+    if (points["iout_set_a"] == 0).any():
+        noload = points[points["iout_set_a"] == 0].groupby("vin_set_v")["pin_w"].mean()
+        table.add_row("0 (Pin)", *[f"{noload.get(v, float('nan')):.3f} W" for v in grid.columns])
     for iout, row in grid.iterrows():
+        if row.isna().all():
+            continue
         cells = []
         best = row.max()
         for v in row:
@@ -39,38 +45,49 @@ def efficiency_grid(points) -> Table | None:
     return table
 
 
-def results_table(results, *, skip_per_point: bool = True) -> Table | None:
-    """Derived results that are not per-point values."""
+def _scope_text(scope) -> str:
+    return ", ".join(f"{k}={v:g}" if isinstance(v, (int, float)) else f"{k}={v}" for k, v in scope.items())
+
+
+def _note(details) -> str:
+    if not isinstance(details, dict):
+        return ""
+    if "limit_efficiency" in details:
+        if not details.get("found", True):
+            return str(details.get("reason", ""))
+        verdict = "meets" if details.get("meets_indicative_limit") else "below"
+        return f"{verdict} indicative limit {details['limit_efficiency']:.4f} ({details.get('supply_class')})"
+    if "indicative_limit_w" in details:
+        return f"indicative no-load limit {details['indicative_limit_w']:g} W"
+    return str(details.get("definition", ""))
+
+
+def results_table(results) -> Table | None:
+    """One line per derived result name (per-point results left out): the value, or for a
+    result found at several operating points the worst (largest magnitude) with where it was."""
     if results.empty:
         return None
-    table = Table(title="derived results")
-    for col in ("result", "where", "value", "note"):
+    table = Table(title="derived results (worst case where a result has several operating points)")
+    table.add_column("result", no_wrap=True)
+    for col in ("value", "where", "range", "note"):
         table.add_column(col, overflow="fold")
-    for _, r in results.iterrows():
-        scope = r.get("scope") or {}
-        if isinstance(scope, str):
-            scope = json.loads(scope) if scope else {}
-        if skip_per_point and "seq" in scope:
+    for name, group in results.groupby("name", sort=False):
+        scopes = [sc if isinstance(sc, dict) else {} for sc in group["scope"]]
+        if any("seq" in sc for sc in scopes) or str(name).startswith("limit:"):
             continue
-        details = r.get("details") or {}
-        if isinstance(details, str):
-            try:
-                details = json.loads(details)
-            except ValueError:
-                details = {"text": details}
-        where = ", ".join(f"{k}={v:g}" if isinstance(v, (int, float)) else f"{k}={v}" for k, v in scope.items())
-        note = ""
-        if isinstance(details, dict):
-            if "limit_efficiency" in details:
-                verdict = "meets" if details.get("meets_indicative_limit") else "below"
-                note = f"{verdict} indicative limit {details['limit_efficiency']:.4f} ({details.get('supply_class')})"
-                if not details.get("found", True):
-                    note = details.get("reason", "")
-            elif "indicative_limit_w" in details:
-                note = f"indicative no-load limit {details['indicative_limit_w']:g} W"
-            elif "definition" in details:
-                note = details["definition"]
-        table.add_row(str(r["name"]), where, _fmt(r["value"], r.get("unit") or ""), note)
+        values = group["value"].to_numpy(float)
+        unit = str(group["unit"].iloc[0] or "")
+        if len(group) == 1 or not (values == values).any():
+            k = 0
+            rng = ""
+        else:
+            if "efficiency" in str(name):  # the worst efficiency is the lowest
+                k = int(group["value"].fillna(float("inf")).to_numpy().argmin())
+            else:
+                k = int(abs(group["value"]).fillna(-1).to_numpy().argmax())
+            rng = f"{_fmt(float(min(values)), unit)} … {_fmt(float(max(values)), unit)}"
+        table.add_row(str(name), _fmt(float(values[k]), unit), _scope_text(scopes[k]), rng,
+                      _note(group["details"].iloc[k]))
     return table
 
 

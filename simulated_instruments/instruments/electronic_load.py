@@ -45,7 +45,7 @@ class SimulatedElectronicLoad(ScpiInstrument):
         self.add_command("MEASure[:SCALar]:POWer[:DC]", getter=self._measure_power)
 
     def _reset_state(self) -> None:
-        self.mode = "CURRENT"
+        self.mode = "CURR"
         self.current_a = 0.0
         self.resistance_ohm = self.RESISTANCE_RANGE_OHM[1]
         self.ocp_a = self.CURRENT_MAX_A * 1.1
@@ -61,7 +61,7 @@ class SimulatedElectronicLoad(ScpiInstrument):
             self.audit_state("input", False)
 
     def _apply(self) -> None:
-        if self.mode == "CURRENT":
+        if self.mode == "CURR":
             self.model.set_load("CC", self.current_a, self.input_on)
         else:
             self.model.set_load("CR", self.resistance_ohm, self.input_on)
@@ -78,7 +78,7 @@ class SimulatedElectronicLoad(ScpiInstrument):
             self.audit_state("protection_tripped", True)
 
     def _set_mode(self, mode: str) -> None:
-        self.mode = mode.upper()
+        self.mode = mode  # the core hands over the short form: CURR or RES
         self._apply()
 
     def _set_current(self, value: float) -> None:
