@@ -1,0 +1,585 @@
+"""Durable writes: every public method commits before it returns.
+
+One connection is kept for writing, guarded by a lock so a store may be shared by
+threads. A point is one transaction: an INSERT of the point row, an ``executemany``
+INSERT of its values, COMMIT. The next sequence number and the quantity ids of each
+open run are cached, so no SELECT is needed per point. On SQLite the point INSERTs are
+compiled once from the Core tables and run on the DB-API cursor (``_FastPointWriter``);
+a point that brings a new quantity, and every other engine, take the plain Core path.
+
+Sequence numbers are kept by the one writer of a run; two processes writing the same
+run is not supported (the second one's points are refused by the primary key).
+"""
+
+from __future__ import annotations
+
+import logging
+import re
+import threading
+from collections.abc import Callable, Iterator, Mapping
+from contextlib import contextmanager
+from dataclasses import dataclass, field
+from typing import Any
+
+from sqlalchemy import func, insert, select, update
+from sqlalchemy.engine import Connection, Engine
+from sqlalchemy.exc import IntegrityError, SQLAlchemyError
+
+from benchctl.errors import StoreError
+
+from . import schema as s
+from .codec import encode_column, to_float_or_none, to_json
+from .records import FINAL_STATUSES, RUNNING, RunStart, sha256_hex
+
+log = logging.getLogger(__name__)
+
+# Execution option marking a connection that writes (the SQLite branch begins its
+# transactions with BEGIN IMMEDIATE).
+WRITE_OPTION = "benchctl_write"
+WRITE_OPTIONS = {WRITE_OPTION: True}
+
+# Column order of the tuples handed to the point writers (that of the tables).
+POINT_KEYS = ("run_id", "seq", "t_utc_s", "tag", "settled", "settle_time_s")
+VALUE_KEYS = ("run_id", "seq", "quantity_id", "value")
+
+# Columns of the wide points table; a quantity may not take one of these names.
+RESERVED_NAMES = frozenset({"run_id", "seq", "t_utc", "tag", "settled", "settle_time_s"})
+
+_SHA256_RE = re.compile(r"^[0-9a-f]{64}$")
+
+# Unit implied by a quantity name's suffix (the project's naming convention: vin_v,
+# iout_a, pout_w, freq_hz, gain_db, phase_deg, t_s). Used only when no unit is given.
+_SUFFIX_UNITS = {
+    "v": "V",
+    "a": "A",
+    "w": "W",
+    "hz": "Hz",
+    "db": "dB",
+    "deg": "deg",
+    "s": "s",
+    "pct": "%",
+    "ohm": "ohm",
+}
+
+
+def unit_from_name(name: str) -> str:
+    """Unit implied by the suffix of ``name`` (``vin_v`` -> ``V``), ``""`` if none is implied."""
+    head, sep, suffix = name.rpartition("_")
+    if not sep or not head:
+        return ""
+    return _SUFFIX_UNITS.get(suffix.lower(), "")
+
+
+@dataclass
+class _OpenRun:
+    next_seq: int
+    quantities: dict[str, tuple[int, str]] = field(default_factory=dict)  # name -> (id, unit)
+
+
+class Writer:
+    """Writes runs, points, events, results and arrays; used through :class:`~benchctl.store.Store`."""
+
+    def __init__(self, engine: Engine, clock: Callable[[], float], where: str) -> None:
+        self._engine = engine
+        self._clock = clock
+        self._where = where  # masked URL, for messages
+        self._lock = threading.RLock()
+        self._conn: Connection | None = None
+        self._open_runs: dict[int, _OpenRun] = {}
+        self._known_runs: set[int] = set()
+        self._insert_point = insert(s.points)
+        self._insert_value = insert(s.point_values)
+        self._insert_quantity = insert(s.quantities)
+        self._fast = _FastPointWriter(engine, where) if engine.dialect.name == "sqlite" else None
+
+    def _connection(self) -> Connection:
+        if self._conn is None:
+            try:
+                self._conn = self._engine.connect().execution_options(**WRITE_OPTIONS)
+            except SQLAlchemyError as exc:
+                raise StoreError(f"cannot connect to store {self._where}: {exc}") from exc
+        return self._conn
+
+    # ---------------------------------------------------------------- plumbing
+    def close(self) -> None:
+        with self._lock:
+            if self._conn is not None:
+                try:
+                    self._conn.close()
+                finally:
+                    self._conn = None
+            self._open_runs.clear()
+            self._known_runs.clear()
+
+    @contextmanager
+    def _transaction(self, doing: str) -> Iterator[Connection]:
+        """Run the block in one transaction on the write connection; commit or roll back."""
+        with self._lock:
+            conn = self._connection()
+            try:
+                yield conn
+                conn.commit()
+            except StoreError:
+                _rollback(conn)
+                raise
+            except SQLAlchemyError as exc:
+                _rollback(conn)
+                if conn.invalidated:  # broken connection: open a fresh one next time
+                    self._conn = None
+                    conn.close()
+                raise StoreError(
+                    f"store {self._where}: {doing} failed and nothing of it was written: "
+                    f"{getattr(exc, 'orig', None) or exc}"
+                ) from exc
+            except BaseException:
+                _rollback(conn)
+                raise
+
+    def _require_run(self, conn: Connection, run_id: int) -> None:
+        if run_id in self._known_runs:
+            return
+        found = conn.execute(select(s.runs.c.id).where(s.runs.c.id == run_id)).first()
+        if found is None:
+            raise StoreError(f"store {self._where} has no run {run_id}; list runs with Store.runs()")
+        self._known_runs.add(run_id)
+
+    def _open_run(self, conn: Connection, run_id: int) -> _OpenRun:
+        cached = self._open_runs.get(run_id)
+        if cached is not None:
+            return cached
+        row = conn.execute(select(s.runs.c.status).where(s.runs.c.id == run_id)).first()
+        if row is None:
+            raise StoreError(f"store {self._where} has no run {run_id}; begin a run before recording points")
+        if row.status != RUNNING:
+            raise StoreError(
+                f"run {run_id} is {row.status}; points can only be added to a running run, begin a new run"
+            )
+        last = conn.execute(select(func.max(s.points.c.seq)).where(s.points.c.run_id == run_id)).scalar()
+        opened = _OpenRun(next_seq=(last or 0) + 1)
+        for q in conn.execute(
+            select(s.quantities.c.id, s.quantities.c.name, s.quantities.c.unit).where(
+                s.quantities.c.run_id == run_id
+            )
+        ):
+            opened.quantities[q.name] = (q.id, q.unit)
+        self._open_runs[run_id] = opened
+        self._known_runs.add(run_id)
+        return opened
+
+    # ---------------------------------------------------------------- runs
+    def begin_run(self, start: RunStart) -> int:
+        """Store a new run with status ``running``; returns its integer id."""
+        _check_start(start)
+        parameters_json = to_json(f"parameters of procedure {start.procedure!r}", dict(start.parameters))
+        station_sha = _station_sha(start)
+        now = self._clock()
+        for attempt in (1, 2):  # a concurrent writer may create the same station or DUT
+            try:
+                with self._transaction(f"beginning a run of {start.procedure!r}") as conn:
+                    station_id = _station_id(conn, start, station_sha)
+                    dut_id = _dut_id(conn, start) if start.dut_part else None
+                    run_id = conn.execute(
+                        insert(s.runs).values(
+                            procedure=start.procedure,
+                            procedure_sha256=start.procedure_sha256,
+                            parameters_json=parameters_json,
+                            station_id=station_id,
+                            dut_id=dut_id,
+                            operator=start.operator,
+                            host=start.host,
+                            pid=int(start.pid),
+                            benchctl_version=start.benchctl_version,
+                            job_id=start.job_id,
+                            status=RUNNING,
+                            message="",
+                            started_utc_s=now,
+                        )
+                    ).inserted_primary_key[0]
+                    if start.instruments:
+                        conn.execute(
+                            insert(s.instruments),
+                            [
+                                {
+                                    "run_id": run_id,
+                                    "station_id": station_id,
+                                    "role": i.role,
+                                    "driver": i.driver,
+                                    "resource": i.resource,
+                                    "identity": i.identity,
+                                }
+                                for i in start.instruments
+                            ],
+                        )
+            except StoreError as exc:
+                if attempt == 1 and isinstance(exc.__cause__, IntegrityError):
+                    continue
+                raise
+            break
+        run_id = int(run_id)
+        self._open_runs[run_id] = _OpenRun(next_seq=1)
+        self._known_runs.add(run_id)
+        log.info("run %d begun: %s on station %s", run_id, start.procedure, start.station_name)
+        return run_id
+
+    def end_run(self, run_id: int, status: str, message: str = "") -> None:
+        """Give a running run its final status and end time."""
+        if status not in FINAL_STATUSES:
+            raise StoreError(
+                f"cannot end run {run_id} with status {status!r}; use one of {', '.join(sorted(FINAL_STATUSES))}"
+            )
+        with self._transaction(f"ending run {run_id}") as conn:
+            done = conn.execute(
+                update(s.runs)
+                .where(s.runs.c.id == run_id, s.runs.c.status == RUNNING)
+                .values(status=status, message=message, ended_utc_s=self._clock())
+            ).rowcount
+            if done != 1:
+                row = conn.execute(select(s.runs.c.status).where(s.runs.c.id == run_id)).first()
+                if row is None:
+                    raise StoreError(f"store {self._where} has no run {run_id}; nothing to end")
+                raise StoreError(f"run {run_id} has already ended ({row.status}); it cannot be ended again")
+        self._open_runs.pop(run_id, None)
+        log.info("run %d ended: %s %s", run_id, status, message)
+
+    # ---------------------------------------------------------------- points
+    def record_point(
+        self,
+        run_id: int,
+        values: Mapping[str, Any],
+        *,
+        units: Mapping[str, str] | None = None,
+        tag: str = "",
+        settled: bool = True,
+        settle_time_s: float | None = None,
+        t_utc_s: float | None = None,
+    ) -> int:
+        """Store one point and its values in one transaction; committed on return. Returns its seq."""
+        if not values:
+            raise StoreError(f"run {run_id}: a point needs at least one value; got none")
+        units = units or {}
+        t = self._clock() if t_utc_s is None else float(t_utc_s)
+        settle = None if settle_time_s is None else float(settle_time_s)
+        with self._lock:
+            opened = self._open_runs.get(run_id)
+            if opened is None:
+                with self._transaction(f"reading run {run_id} before its first point") as conn:
+                    opened = self._open_run(conn, run_id)
+            seq = opened.next_seq
+            quantities = opened.quantities
+            numbers: list[tuple[str, float | None]] = []
+            value_rows: list[tuple[Any, ...]] = []  # (run_id, seq, quantity_id, value) while all are known
+            all_known = True
+            for name, value in values.items():
+                if type(value) is float:  # the common case, checked cheaply
+                    number: float | None = value if value == value else None
+                else:
+                    number = to_float_or_none(f"run {run_id}: value of {name!r}", value)
+                known = quantities.get(name)
+                if known is None:
+                    if not isinstance(name, str) or not name or name in RESERVED_NAMES:
+                        raise StoreError(
+                            f"run {run_id}: {name!r} cannot name a quantity; use a non-empty name other than "
+                            f"{', '.join(sorted(RESERVED_NAMES))}"
+                        )
+                    all_known = False
+                elif units and (given := units.get(name)) is not None and given != known[1]:
+                    raise StoreError(
+                        f"run {run_id}: quantity {name!r} was recorded in {known[1]!r}, now given in {given!r}; "
+                        "keep one unit per quantity (convert, or use another name)"
+                    )
+                elif all_known:
+                    value_rows.append((run_id, seq, known[0], number))
+                numbers.append((name, number))
+            point = (run_id, seq, t, tag, bool(settled), settle)
+            if self._fast is not None and all_known:
+                self._fast.write_point(self._connection(), point, value_rows, f"run {run_id}, point {seq}")
+            else:
+                self._write_point_core(opened, point, numbers, units)
+            opened.next_seq = seq + 1
+        return seq
+
+    def _write_point_core(
+        self,
+        opened: _OpenRun,
+        point: tuple[Any, ...],
+        numbers: list[tuple[str, float | None]],
+        units: Mapping[str, str],
+    ) -> None:
+        """The portable path: Core statements; also creates quantities seen for the first time."""
+        point_row = dict(zip(POINT_KEYS, point))
+        run_id, seq = point_row["run_id"], point_row["seq"]
+        new_quantities: dict[str, tuple[int, str]] = {}
+        with self._transaction(f"recording point {seq} of run {run_id}") as conn:
+            rows = []
+            for name, number in numbers:
+                known = opened.quantities.get(name) or new_quantities.get(name)
+                given = units.get(name)
+                if known is None:
+                    unit = given if given is not None else unit_from_name(name)
+                    qid = conn.execute(
+                        self._insert_quantity, {"run_id": run_id, "name": name, "unit": unit}
+                    ).inserted_primary_key[0]
+                    known = (int(qid), unit)
+                    new_quantities[name] = known
+                elif given is not None and given != known[1]:
+                    raise StoreError(
+                        f"run {run_id}: quantity {name!r} was recorded in {known[1]!r}, now given in {given!r}; "
+                        "keep one unit per quantity (convert, or use another name)"
+                    )
+                rows.append({"run_id": run_id, "seq": seq, "quantity_id": known[0], "value": number})
+            conn.execute(self._insert_point, point_row)
+            conn.execute(self._insert_value, rows)
+        opened.quantities.update(new_quantities)
+
+    # ---------------------------------------------------------------- the rest
+    def record_event(
+        self,
+        run_id: int,
+        kind: str,
+        message: str,
+        details: Mapping[str, Any] | None = None,
+        *,
+        point_seq: int | None = None,
+        t_utc_s: float | None = None,
+    ) -> int:
+        """Store an event of a run (any status); returns the event id."""
+        if not isinstance(kind, str) or not kind or len(kind) > 64:
+            raise StoreError(f"run {run_id}: event kind {kind!r} must be short non-empty text, e.g. 'warning'")
+        details_json = to_json(f"details of event {kind!r}", dict(details or {}))
+        t = self._clock() if t_utc_s is None else float(t_utc_s)
+        with self._transaction(f"recording event {kind!r} of run {run_id}") as conn:
+            self._require_run(conn, run_id)
+            event_id = conn.execute(
+                insert(s.events).values(
+                    run_id=run_id, t_utc_s=t, kind=kind, message=message,
+                    details_json=details_json, point_seq=point_seq,
+                )
+            ).inserted_primary_key[0]
+        return int(event_id)
+
+    def record_result(
+        self,
+        run_id: int,
+        name: str,
+        value: float | None,
+        *,
+        unit: str = "",
+        details: Any = None,
+        scope: Mapping[str, Any] | None = None,
+    ) -> int:
+        """Store a derived result (value may be ``None``, e.g. a margin not found); returns its id."""
+        if not isinstance(name, str) or not name:
+            raise StoreError(f"run {run_id}: a result needs a non-empty name, got {name!r}")
+        number = to_float_or_none(f"run {run_id}: result {name!r}", value)
+        details_json = to_json(f"details of result {name!r}", details)
+        scope_json = to_json(f"scope of result {name!r}", dict(scope or {}))
+        with self._transaction(f"recording result {name!r} of run {run_id}") as conn:
+            self._require_run(conn, run_id)
+            result_id = conn.execute(
+                insert(s.results).values(
+                    run_id=run_id, t_utc_s=self._clock(), name=name, value=number, unit=unit,
+                    details_json=details_json, scope_json=scope_json,
+                )
+            ).inserted_primary_key[0]
+        return int(result_id)
+
+    def record_array(
+        self,
+        run_id: int,
+        name: str,
+        columns: Mapping[str, Any],
+        *,
+        units: Mapping[str, str] | None = None,
+        point_seq: int | None = None,
+        meta: Mapping[str, Any] | None = None,
+    ) -> int:
+        """Store named array columns (a sweep, a waveform) of a run or of one of its points."""
+        if not isinstance(name, str) or not name:
+            raise StoreError(f"run {run_id}: an array needs a non-empty name, got {name!r}")
+        if not columns:
+            raise StoreError(f"run {run_id}: array {name!r} has no columns; give e.g. {{'freq_hz': ...}}")
+        units = units or {}
+        encoded = []
+        for position, (col, values) in enumerate(columns.items()):
+            if not isinstance(col, str) or not col:
+                raise StoreError(f"run {run_id}: array {name!r} column {position} needs a non-empty name")
+            dtype, shape, data = encode_column(f"{name}.{col}", values)
+            unit = units.get(col)
+            encoded.append(
+                {
+                    "position": position,
+                    "name": col,
+                    "unit": unit if unit is not None else unit_from_name(col),
+                    "dtype": dtype,
+                    "shape_json": to_json("array shape", list(shape)),
+                    "data": data,
+                }
+            )
+        unknown_units = set(units) - set(columns)
+        if unknown_units:
+            raise StoreError(
+                f"run {run_id}: array {name!r} has units for {sorted(unknown_units)} which are not among its "
+                f"columns {list(columns)}"
+            )
+        meta_json = to_json(f"meta of array {name!r}", dict(meta or {}))
+        with self._transaction(f"recording array {name!r} of run {run_id}") as conn:
+            self._require_run(conn, run_id)
+            if point_seq is not None:
+                exists = conn.execute(
+                    select(s.points.c.seq).where(s.points.c.run_id == run_id, s.points.c.seq == point_seq)
+                ).first()
+                if exists is None:
+                    raise StoreError(
+                        f"run {run_id} has no point {point_seq} to attach array {name!r} to; "
+                        "record the point first or leave point_seq None"
+                    )
+            seq_match = s.arrays.c.point_seq.is_(None) if point_seq is None else s.arrays.c.point_seq == point_seq
+            dup = conn.execute(
+                select(s.arrays.c.id).where(s.arrays.c.run_id == run_id, s.arrays.c.name == name, seq_match)
+            ).first()
+            if dup is not None:
+                where = "the run" if point_seq is None else f"point {point_seq}"
+                raise StoreError(
+                    f"run {run_id} already holds an array {name!r} for {where}; choose another name"
+                )
+            array_id = conn.execute(
+                insert(s.arrays).values(
+                    run_id=run_id, point_seq=point_seq, name=name, t_utc_s=self._clock(), meta_json=meta_json
+                )
+            ).inserted_primary_key[0]
+            conn.execute(insert(s.array_columns), [dict(row, array_id=array_id) for row in encoded])
+        return int(array_id)
+
+
+class _FastPointWriter:
+    """Per-point INSERTs executed on the DB-API cursor (SQLite branch only).
+
+    The SQL is compiled once from the Core tables for the engine's dialect (bound
+    parameters only, in the tables' column order), which skips SQLAlchemy's
+    per-execution work. Used only when all of a point's quantities already exist, and
+    only between transactions of the SQLAlchemy connection.
+    """
+
+    def __init__(self, engine: Engine, where: str) -> None:
+        dialect = engine.dialect
+        point_sql = insert(s.points).compile(dialect=dialect)
+        value_sql = insert(s.point_values).compile(dialect=dialect)
+        if (
+            not point_sql.positional
+            or not value_sql.positional
+            or tuple(point_sql.positiontup or ()) != POINT_KEYS
+            or tuple(value_sql.positiontup or ()) != VALUE_KEYS
+        ):
+            raise StoreError(
+                f"store {where}: the compiled point INSERTs do not have the expected positional "
+                f"parameters {POINT_KEYS} / {VALUE_KEYS}; the schema and the writer disagree"
+            )
+        self._point_sql = point_sql.string
+        self._value_sql = value_sql.string
+        self._error = dialect.loaded_dbapi.Error
+        self._where = where
+
+    def write_point(
+        self, conn: Connection, point: tuple[Any, ...], value_rows: list[tuple[Any, ...]], what: str
+    ) -> None:
+        if conn.in_transaction():  # never interleave with an open Core transaction
+            raise StoreError(f"store {self._where}: internal error, write connection busy while writing {what}")
+        dbapi = conn.connection.dbapi_connection
+        assert dbapi is not None
+        cur = dbapi.cursor()
+        try:
+            cur.execute("BEGIN IMMEDIATE")  # the connection is in autocommit mode; see store._make_engine
+            cur.execute(self._point_sql, point)
+            cur.executemany(self._value_sql, value_rows)
+            dbapi.commit()
+        except self._error as exc:
+            try:
+                if dbapi.in_transaction:
+                    dbapi.rollback()
+            except self._error:
+                log.warning("rollback failed on the store's write connection", exc_info=True)
+            raise StoreError(
+                f"store {self._where}: writing {what} failed and nothing of it was written: {exc}"
+            ) from exc
+        finally:
+            cur.close()
+
+
+def _rollback(conn: Connection) -> None:
+    try:
+        conn.rollback()
+    except SQLAlchemyError:  # the connection is broken; it is replaced on next use
+        log.warning("rollback failed on the store's write connection", exc_info=True)
+
+
+def _check_start(start: RunStart) -> None:
+    problems = []
+    if not start.procedure:
+        problems.append("procedure name is empty")
+    if not isinstance(start.procedure_sha256, str) or not _SHA256_RE.match(start.procedure_sha256):
+        problems.append(
+            f"procedure_sha256 {start.procedure_sha256!r} is not 64 lowercase hex digits; "
+            "use hashlib.sha256(source_bytes).hexdigest()"
+        )
+    if not start.station_name:
+        problems.append("station_name is empty")
+    if start.station_sha256 is not None and not _SHA256_RE.match(start.station_sha256):
+        problems.append(f"station_sha256 {start.station_sha256!r} is not 64 lowercase hex digits")
+    roles = [i.role for i in start.instruments]
+    if len(set(roles)) != len(roles):
+        problems.append(f"instrument roles repeat: {roles}")
+    if (start.dut_revision or start.dut_serial) and not start.dut_part:
+        problems.append("DUT revision or serial given without dut_part")
+    if problems:
+        raise StoreError("cannot begin run: " + "; ".join(problems))
+
+
+def _station_sha(start: RunStart) -> str:
+    if start.station_text is None:
+        return start.station_sha256 or ""
+    computed = sha256_hex(start.station_text)
+    if start.station_sha256 is not None and start.station_sha256 != computed:
+        raise StoreError(
+            f"cannot begin run: station_sha256 {start.station_sha256} does not match the sha256 of "
+            f"station_text ({computed}); give the text alone and the store computes it"
+        )
+    return computed
+
+
+def _station_id(conn: Connection, start: RunStart, sha: str) -> int:
+    t = s.stations
+    row = conn.execute(
+        select(t.c.id).where(
+            t.c.name == start.station_name,
+            t.c.station_sha256 == sha,
+            t.c.description == start.station_description,
+        )
+    ).first()
+    if row is not None:
+        return int(row.id)
+    return int(
+        conn.execute(
+            insert(t).values(
+                name=start.station_name,
+                description=start.station_description,
+                station_text=start.station_text,
+                station_sha256=sha,
+            )
+        ).inserted_primary_key[0]
+    )
+
+
+def _dut_id(conn: Connection, start: RunStart) -> int:
+    t = s.duts
+    row = conn.execute(
+        select(t.c.id).where(
+            t.c.part_number == start.dut_part, t.c.revision == start.dut_revision, t.c.serial == start.dut_serial
+        )
+    ).first()
+    if row is not None:
+        return int(row.id)
+    return int(
+        conn.execute(
+            insert(t).values(part_number=start.dut_part, revision=start.dut_revision, serial=start.dut_serial)
+        ).inserted_primary_key[0]
+    )
