@@ -65,6 +65,25 @@ class Identity:
         return f"{self.maker} {self.model} s/n {self.serial} fw {self.firmware}"
 
 
+def _disable_nagle(session: Any) -> None:
+    """Send each message at once on raw TCP sockets (TCP_NODELAY).
+
+    Without it a setting followed by ``SYST:ERR?`` waits for the instrument's delayed
+    acknowledgement of the first packet — about 40 ms on Linux (Nagle's algorithm,
+    RFC 896, meeting delayed ACKs, RFC 1122 §4.2.3.2). pyvisa-py does not expose the
+    VISA attribute for it on SOCKET resources, so the option is set on its socket.
+    """
+    import socket
+
+    try:
+        backend_session = session.visalib.sessions[session.session]
+        sock = getattr(backend_session, "interface", None)
+        if isinstance(sock, socket.socket) and sock.family in (socket.AF_INET, socket.AF_INET6):
+            sock.setsockopt(socket.IPPROTO_TCP, socket.TCP_NODELAY, 1)
+    except Exception as exc:  # other backends and interfaces (GPIB, USB, serial): nothing to do
+        logger.debug("TCP_NODELAY not set: %s", exc)
+
+
 def _on_off(state: bool) -> str:
     return "ON" if state else "OFF"
 
@@ -167,6 +186,7 @@ class ScpiDriver:
                     "string and that the instrument is reachable",
                     instrument=self.name,
                 ) from exc
+            _disable_nagle(session)
             self._session = session
         try:
             self.identity = self.identify()
