@@ -110,6 +110,7 @@ class Bench:
         rel_tol: float = 1e-3,
         abs_tol: float = 1e-3,
         window: int = 4,
+        window_s: float = 0.0,
         interval_s: float = 0.0,
         timeout_s: float = 10.0,
     ) -> SettleResult:
@@ -118,7 +119,7 @@ class Bench:
             value = read()
             return SettleResult(True, 0.0, 0.0, value, max(abs_tol, rel_tol * abs(value)), 1, "settling disabled")
         return settle_adaptive(
-            read, rel_tol=rel_tol, abs_tol=abs_tol, window=window, interval_s=interval_s,
+            read, rel_tol=rel_tol, abs_tol=abs_tol, window=window, window_s=window_s, interval_s=interval_s,
             timeout_s=timeout_s, clock=self.clock, sleep=self.interlock.wait,
         )
 

@@ -8,9 +8,12 @@ the 2 % settling time of control textbooks) — counted from the start of the se
 When the window never agrees before ``timeout_s`` it returns an *unsettled* result
 instead of hanging; the procedure records the point with ``settled=False``.
 
-The window is short compared with the DUT time constant on purpose: a window of about
-0.7 τ stops when the true deviation is near tol for an exponential response, so the
-routine finishes close to the true settling time rather than long after it.
+The window is ``window`` readings spanning at least ``window_s`` seconds. Its length
+decides when the routine stops: for a first-order response x∞ + A·e^(−t/τ) the spread
+over a window W is A·e^(−(t−W)/τ)·(1 − e^(−W/τ)), which reaches tol at the true
+settling time τ·ln(A/tol) when W ≈ 0.7 τ (W + τ·ln(1 − e^(−W/τ)) = 0). A much shorter
+window stops early (while the output still creeps), a much longer one late; give
+``window_s`` about 0.7 × the DUT's dominant time constant when it is known.
 """
 
 from __future__ import annotations
@@ -39,14 +42,17 @@ def settle_adaptive(
     rel_tol: float = 1e-3,
     abs_tol: float = 1e-3,
     window: int = 4,
+    window_s: float = 0.0,
     interval_s: float = 0.0,
     timeout_s: float = 10.0,
     clock: Callable[[], float] = time.monotonic,
     sleep: Callable[[float], None] = time.sleep,
 ) -> SettleResult:
-    """Read until ``window`` consecutive readings agree within the tolerance, or time out."""
+    """Read until the trailing window of readings agrees within the tolerance, or time out."""
     if window < 2:
         raise ValueError("window must be at least 2 readings")
+    if window_s < 0:
+        raise ValueError("window_s must not be negative")
     t0 = clock()
     times: list[float] = []
     values: list[float] = []
@@ -55,11 +61,14 @@ def settle_adaptive(
         now = clock()
         times.append(now - t0)
         values.append(value)
-        if len(values) >= window:
-            recent = values[-window:]
+        start = len(values) - window
+        while start > 0 and times[-1] - times[start] < window_s:
+            start -= 1
+        if start >= 0 and times[-1] - times[start] >= window_s:
+            recent = values[start:]
             tol = max(abs_tol, rel_tol * abs(recent[-1]))
             if max(recent) - min(recent) <= tol:
-                final = sum(recent) / window
+                final = sum(recent) / len(recent)
                 k = len(values) - 1
                 while k > 0 and abs(values[k - 1] - final) <= tol:
                     k -= 1

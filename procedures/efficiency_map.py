@@ -30,6 +30,7 @@ PARAMETERS = [
     Parameter("startup_delay_s", "s", 0.05, minimum=0.0, maximum=60.0, help="fixed wait after the source turns on"),
     Parameter("settle_rel_tol", "", 2e-4, minimum=0.0, maximum=0.1, help="settle: relative agreement of readings"),
     Parameter("settle_abs_tol_v", "V", 1e-3, minimum=0.0, maximum=1.0, help="settle: absolute agreement of readings"),
+    Parameter("settle_abs_tol_a", "A", 2e-4, minimum=0.0, maximum=10.0, help="settle: absolute agreement of input current readings"),
     Parameter("settle_timeout_s", "s", 5.0, minimum=0.0, maximum=600.0, help="settle: give up (point unsettled)"),
     Parameter("load_regulation_convention", "", "textbook", kind="str", choices=("textbook", "rated"),
               help="denominator of load regulation: V at full load (textbook) or the rated voltage"),
@@ -68,10 +69,17 @@ def run(bench, p: Parameters) -> None:
             source.set_voltage(point["vin_set_v"])
             vin_now = point["vin_set_v"]
         load.set_current(point["iout_set_a"])
+        # Settle the output voltage, then the input current (a load step moves the input
+        # current far more than the regulated output).
         settled = bench.settle(
             meter_out.measure_voltage, rel_tol=p.settle_rel_tol, abs_tol=p.settle_abs_tol_v,
             timeout_s=p.settle_timeout_s,
         )
+        if settled.settled:
+            settled = bench.settle(
+                meter_in.measure_current, rel_tol=p.settle_rel_tol, abs_tol=p.settle_abs_tol_a,
+                timeout_s=p.settle_timeout_s,
+            )
         vin = meter_in.measure_voltage()
         iin = meter_in.measure_current()
         pin = meter_in.measure_power()
