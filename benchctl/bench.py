@@ -64,6 +64,11 @@ class Bench:
         self._total = 0
         self._last_values: Mapping[str, float] = {}
 
+    @property
+    def limits(self) -> Any:
+        """The station limits (read-only) the interlock enforces."""
+        return self.interlock.limits
+
     # -- instruments ---------------------------------------------------------------
 
     def role(self, name: str) -> Any:

@@ -238,6 +238,12 @@ class ScpiDriver:
             return InstrumentConnectionError(
                 f"VISA I/O error: {exc.description}", instrument=self.name, command=command
             )
+        if isinstance(exc, ConnectionRefusedError):
+            return InstrumentConnectionError(
+                f"connection refused at {self.resource}: nothing listens there; check the resource "
+                "string, that the instrument is on (for the simulated bench: that `benchctl sim` is running)",
+                instrument=self.name, command=command,
+            )
         if isinstance(exc, UnicodeDecodeError):
             return InstrumentResponseError(
                 f"the answer is not text: {exc}", instrument=self.name, command=command

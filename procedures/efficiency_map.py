@@ -26,7 +26,8 @@ PARAMETERS = [
               help="explicit load currents; overrides load_pct when given"),
     Parameter("descending", "", False, kind="bool", help="also step the load back down (hysteresis)"),
     Parameter("vout_nom_v", "V", 5.0, minimum=0.0, maximum=1500.0, help="nominal output voltage"),
-    Parameter("source_current_limit_a", "A", 2.0, minimum=0.0, maximum=1000.0, help="source current limit"),
+    Parameter("source_current_limit_a", "A", None, minimum=0.0, maximum=1000.0, optional=True,
+              help="source current limit (default: the station's source_current_max_a)"),
     Parameter("startup_delay_s", "s", 0.05, minimum=0.0, maximum=60.0, help="fixed wait after the source turns on"),
     Parameter("settle_rel_tol", "", 2e-4, minimum=0.0, maximum=0.1, help="settle: relative agreement of readings"),
     Parameter("settle_abs_tol_v", "V", 1e-3, minimum=0.0, maximum=1.0, help="settle: absolute agreement of readings"),
@@ -56,7 +57,8 @@ def run(bench, p: Parameters) -> None:
     source, load = bench.source, bench.load
     meter_in, meter_out = bench.input_meter, bench.output_meter
     points = plan(p)
-    source.set_current_limit(p.source_current_limit_a)
+    limit_a = p.source_current_limit_a
+    source.set_current_limit(bench.limits.source_current_max_a if limit_a is None else limit_a)
     source.set_voltage(points[0]["vin_set_v"])
     load.set_mode("CC")
     load.set_current(points[0]["iout_set_a"])

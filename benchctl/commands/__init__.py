@@ -27,16 +27,22 @@ def dispatch(args: argparse.Namespace) -> int:
     from benchctl.commands.console import error_console
     from benchctl.errors import ConfigurationError, InstrumentError, ProcedureError, StoreError, BenchctlError
 
+    from rich.markup import escape
+
+    def report(exc: Exception) -> None:
+        # One logical line (soft wrap: the terminal folds it, no newlines are inserted).
+        error_console().print(f"[bold red]error:[/] {escape(str(exc))}", soft_wrap=True, highlight=False)
+
     module = importlib.import_module(_MODULES[args.command])
     handler = getattr(module, "cmd_" + args.command)
     try:
         return handler(args)
     except (ConfigurationError, ProcedureError) as exc:
-        error_console().print(f"[bold red]error:[/] {exc}", markup=True, highlight=False)
+        report(exc)
         return EXIT_BAD_INPUT
     except (InstrumentError, StoreError) as exc:
-        error_console().print(f"[bold red]error:[/] {exc}", markup=True, highlight=False)
+        report(exc)
         return EXIT_INSTRUMENT
     except BenchctlError as exc:
-        error_console().print(f"[bold red]error:[/] {exc}", markup=True, highlight=False)
+        report(exc)
         return EXIT_BAD_INPUT

@@ -1,0 +1,268 @@
+"""The run report as one self-contained HTML page (images embedded as base64 data URIs).
+
+Every stored string (DUT serial, messages, parameters, identities ...) passes through
+:func:`html.escape` before it reaches the page, so nothing stored can become markup.
+Images are embedded as ``data:image/png;base64,...`` (RFC 2397, base64 per RFC 4648).
+"""
+
+from __future__ import annotations
+
+import base64
+import html
+import json
+from collections.abc import Iterable, Sequence
+from dataclasses import dataclass
+from datetime import datetime
+from typing import Any
+
+import pandas as pd
+
+from . import style
+from .limit_marks import LimitMark
+from .result_summary import ResultLine, result_lines
+from .run_data import RunData
+
+ALERT_EVENT_KINDS = frozenset({"interlock_trip", "interlock_refusal", "error", "interrupted"})
+"""Event kinds shown highlighted in the events table."""
+
+
+@dataclass(frozen=True)
+class EmbeddedImage:
+    """A rendered figure: PNG bytes, the file name written next to the page, pixel size."""
+
+    file_name: str
+    title: str
+    caption: str
+    png: bytes
+    width_px: int
+    height_px: int
+
+
+def esc(value: Any) -> str:
+    """HTML-escape any value's text (quotes included)."""
+    return html.escape("" if value is None else str(value), quote=True)
+
+
+def _utc(t: datetime | None) -> str:
+    return "—" if t is None else t.strftime("%Y-%m-%d %H:%M:%S UTC")
+
+
+def _duration(start: datetime | None, end: datetime | None) -> str:
+    if start is None or end is None:
+        return "—"
+    seconds = (end - start).total_seconds()
+    minutes, secs = divmod(seconds, 60.0)
+    hours, minutes = divmod(minutes, 60.0)
+    if hours >= 1:
+        return f"{int(hours)} h {int(minutes)} min {secs:.0f} s"
+    if minutes >= 1:
+        return f"{int(minutes)} min {secs:.0f} s"
+    return f"{seconds:.1f} s"
+
+
+_CSS = f"""
+:root {{ --ink: {style.INK}; --muted: {style.MUTED_INK}; --rule: #e4e6ea; --accent: {style.LINE_COLOURS[0]};
+        --fail: {style.LIMIT_INK}; --pass: #1d6b46; --warn: #8a5a00; --band: #f6f7f9; }}
+* {{ box-sizing: border-box; }}
+body {{ margin: 0; background: #ffffff; color: var(--ink);
+       font: 15px/1.45 system-ui, -apple-system, "Segoe UI", "DejaVu Sans", Roboto, sans-serif; }}
+main {{ max-width: 1000px; margin: 0 auto; padding: 28px 28px 64px; }}
+header {{ border-left: 6px solid var(--accent); padding: 4px 0 4px 16px; margin-bottom: 22px; }}
+header h1 {{ font-size: 26px; margin: 0 0 4px; letter-spacing: -0.01em; }}
+header p {{ margin: 0; color: var(--muted); }}
+h2 {{ font-size: 18px; margin: 34px 0 10px; padding-bottom: 4px; border-bottom: 1px solid var(--rule); }}
+.facts {{ display: flex; flex-wrap: wrap; gap: 10px; margin: 0; padding: 0; list-style: none; }}
+.facts li {{ background: var(--band); border-radius: 6px; padding: 8px 12px; min-width: 130px; }}
+.facts b {{ display: block; font-size: 12px; font-weight: 600; color: var(--muted); text-transform: lowercase; }}
+.pill {{ display: inline-block; padding: 1px 9px; border-radius: 10px; font-size: 13px; font-weight: 600;
+        color: #fff; background: var(--muted); }}
+.pill.completed, .pill.pass {{ background: var(--pass); }}
+.pill.failed, .pill.tripped, .pill.fail {{ background: var(--fail); }}
+.pill.interrupted, .pill.running, .pill.undecided {{ background: var(--warn); }}
+table {{ border-collapse: collapse; width: 100%; font-size: 14px; }}
+th, td {{ text-align: left; vertical-align: top; padding: 5px 8px; border-bottom: 1px solid var(--rule); }}
+th {{ font-size: 12px; font-weight: 600; color: var(--muted); text-transform: lowercase; }}
+tr.alert td {{ background: #fbeff1; }}
+td.num {{ font-variant-numeric: tabular-nums; white-space: nowrap; }}
+table.kv th {{ width: 210px; text-transform: none; font-size: 14px; color: var(--muted); font-weight: 500; }}
+code, .mono {{ font-family: "DejaVu Sans Mono", Menlo, Consolas, monospace; font-size: 13px; word-break: break-all; }}
+figure {{ margin: 18px 0 28px; }}
+figure img {{ display: block; width: 100%; max-width: {int(style.FIG_WIDTH_IN * style.FIG_DPI)}px; height: auto;
+             border: 1px solid var(--rule); border-radius: 4px; }}
+figcaption {{ color: var(--muted); font-size: 13px; margin-top: 6px; }}
+.note {{ color: var(--muted); font-size: 13px; }}
+.empty {{ background: var(--band); border-radius: 6px; padding: 14px 16px; }}
+footer {{ margin-top: 40px; color: var(--muted); font-size: 12px; }}
+"""
+
+
+def data_uri(png: bytes) -> str:
+    """``data:image/png;base64,...`` for PNG bytes."""
+    return "data:image/png;base64," + base64.b64encode(png).decode("ascii")
+
+
+def _table(headers: Sequence[str], rows: Iterable[Sequence[str]], *, row_classes: Sequence[str] | None = None,
+           numeric: Sequence[int] = ()) -> str:
+    """Rows are already-escaped HTML cell contents."""
+    head = "".join(f"<th>{esc(h)}</th>" for h in headers)
+    body = []
+    for k, row in enumerate(rows):
+        cls = f' class="{row_classes[k]}"' if row_classes and row_classes[k] else ""
+        cells = "".join(f'<td class="num">{c}</td>' if j in numeric else f"<td>{c}</td>" for j, c in enumerate(row))
+        body.append(f"<tr{cls}>{cells}</tr>")
+    return f"<table><thead><tr>{head}</tr></thead><tbody>{''.join(body)}</tbody></table>"
+
+
+def _kv(rows: Sequence[tuple[str, str]]) -> str:
+    """Key/value table; values are already-escaped HTML."""
+    return '<table class="kv"><tbody>' + "".join(f"<tr><th>{esc(k)}</th><td>{v}</td></tr>" for k, v in rows) + "</tbody></table>"
+
+
+def _limit_section(limits: Sequence[LimitMark]) -> str:
+    if not limits:
+        return ""
+    rows, classes = [], []
+    for m in limits:
+        state = "undecided" if m.passed is None else ("pass" if m.passed else "fail")
+        label = {"pass": "pass", "fail": "FAIL", "undecided": "not decided"}[state]
+        worst = "—" if m.worst_value is None else f"{m.worst_value:.6g}"
+        rows.append([esc(m.name), esc(m.quantity), esc(m.bound_text), esc(m.where or "every point"), esc(worst),
+                     f'<span class="pill {state}">{esc(label)}</span>', esc(m.note)])
+        classes.append("alert" if state == "fail" else "")
+    n_fail = sum(1 for m in limits if m.passed is False)
+    n_pass = sum(1 for m in limits if m.passed is True)
+    summary = f'<p class="note">{n_pass} passed, {n_fail} failed, {len(limits) - n_pass - n_fail} not decided.</p>'
+    return ("<h2>Limit checks</h2>" + summary
+            + _table(["limit", "quantity", "bound", "where", "worst value", "outcome", "note"], rows,
+                     row_classes=classes, numeric=(4,)))
+
+
+def _figures_section(images: Sequence[EmbeddedImage], notes: Sequence[str], has_points: bool) -> str:
+    parts = ["<h2>Plots</h2>"]
+    if not has_points:
+        parts.append('<p class="empty">This run recorded no points, so there is nothing to plot.</p>')
+    elif not images:
+        parts.append('<p class="empty">No plot applies to the quantities this run recorded.</p>')
+    for img in images:
+        parts.append(
+            f'<figure id="{esc(img.file_name)}"><img src="{data_uri(img.png)}" alt="{esc(img.title)}" '
+            f'width="{img.width_px}" height="{img.height_px}">'
+            f'<figcaption><b>{esc(img.title)}.</b> {esc(img.caption)} '
+            f'(<a href="{esc(img.file_name)}">{esc(img.file_name)}</a>)</figcaption></figure>'
+        )
+    for note in notes:
+        parts.append(f'<p class="note">{esc(note)}</p>')
+    return "".join(parts)
+
+
+def _results_section(lines: Sequence[ResultLine]) -> str:
+    if not lines:
+        return '<h2>Results</h2><p class="empty">No derived results were stored for this run.</p>'
+    rows = [[esc(r.name), esc(r.value_text), esc(r.unit), esc(r.scope_text), esc(r.note)] for r in lines]
+    return "<h2>Results</h2>" + _table(["result", "value", "unit", "scope", "note"], rows, numeric=(1,))
+
+
+def _details_text(details: Any) -> str:
+    if details is None or (isinstance(details, dict) and not details):
+        return ""
+    try:
+        return json.dumps(details, sort_keys=True, default=str)
+    except (TypeError, ValueError):
+        return str(details)
+
+
+def _events_section(events: pd.DataFrame) -> str:
+    if events is None or events.empty:
+        return '<h2>Events</h2><p class="empty">No events were stored for this run.</p>'
+    rows, classes = [], []
+    for _, e in events.iterrows():
+        t = e["t_utc"]
+        when = t.strftime("%Y-%m-%d %H:%M:%S.%f")[:-3] if hasattr(t, "strftime") and not pd.isna(t) else "—"
+        seq = e.get("point_seq")
+        rows.append([esc(when), esc(e["kind"]), esc(e["message"]),
+                     esc("" if seq is None or pd.isna(seq) else int(seq)),
+                     f'<span class="mono">{esc(_details_text(e.get("details")))}</span>'])
+        classes.append("alert" if str(e["kind"]) in ALERT_EVENT_KINDS else "")
+    n_alert = sum(1 for c in classes if c)
+    note = f'<p class="note">{n_alert} of {len(rows)} events are interlock trips, refusals or errors (highlighted).</p>' if n_alert else ""
+    return "<h2>Events</h2>" + note + _table(["time", "kind", "message", "point", "details"], rows, row_classes=classes)
+
+
+def _provenance_section(run: RunData, store_url: str) -> str:
+    i = run.info
+    rows: list[tuple[str, str]] = [
+        ("procedure", esc(i.procedure)),
+        ("procedure sha256", f"<code>{esc(i.procedure_sha256)}</code>"),
+        ("parameters", f"<code>{esc(json.dumps(i.parameters, sort_keys=True, default=str))}</code>"),
+        ("station", esc(i.station_name) + (f" — {esc(i.station_description)}" if i.station_description else "")),
+        ("station file sha256", f"<code>{esc(i.station_sha256)}</code>"),
+        ("DUT part", esc(i.dut_part or "—")),
+        ("DUT revision", esc(i.dut_revision or "—")),
+        ("DUT serial", esc(i.dut_serial or "—")),
+        ("operator", esc(i.operator or "—")),
+        ("host / process", f"{esc(i.host)} / pid {esc(i.pid)}"),
+        ("benchctl version", esc(i.benchctl_version)),
+        ("started", esc(_utc(i.started_utc))),
+        ("ended", esc(_utc(i.ended_utc))),
+        ("status", f'<span class="pill {esc(i.status)}">{esc(i.status)}</span> {esc(i.message)}'),
+    ]
+    if i.job_id is not None:
+        rows.append(("job", esc(i.job_id)))
+    if store_url:
+        rows.append(("store", f"<code>{esc(store_url)}</code>"))
+    inst_rows = [[esc(x.role), esc(x.identity or "—"), esc(x.driver), f"<code>{esc(x.resource)}</code>"]
+                 for x in i.instruments]
+    instruments = (_table(["role", "identity (*IDN?)", "driver", "resource"], inst_rows) if inst_rows
+                   else '<p class="empty">No instruments were stored for this run.</p>')
+    return "<h2>Provenance</h2>" + _kv(rows) + "<h3>Instruments</h3>" + instruments
+
+
+def render_html(
+    run: RunData,
+    images: Sequence[EmbeddedImage],
+    *,
+    notes: Sequence[str] = (),
+    store_url: str = "",
+    generated_utc: datetime | None = None,
+) -> str:
+    """The whole report page as text (UTF-8). ``notes`` are plain-text remarks about plots
+    that were skipped or failed; ``store_url`` must already have its password masked."""
+    i = run.info
+    dut = " ".join(x for x in (i.dut_part, f"rev {i.dut_revision}" if i.dut_revision else "",
+                                f"serial {i.dut_serial}" if i.dut_serial else "") if x) or "DUT not named"
+    n_fail = sum(1 for m in run.limits if m.passed is False)
+    limit_fact = ("none stored" if not run.limits
+                  else f"{len(run.limits) - n_fail} of {len(run.limits)} passed" if n_fail
+                  else f"all {len(run.limits)} passed")
+    n_alert = 0 if run.events.empty else int(run.events["kind"].astype(str).isin(ALERT_EVENT_KINDS).sum())
+    facts = [
+        ("status", f'<span class="pill {esc(i.status)}">{esc(i.status)}</span>'),
+        ("points", esc(i.n_points)),
+        ("duration", esc(_duration(i.started_utc, i.ended_utc))),
+        ("limits", esc(limit_fact)),
+        ("trips / errors", esc(n_alert)),
+        ("started", esc(_utc(i.started_utc))),
+    ]
+    facts_html = '<ul class="facts">' + "".join(f"<li><b>{esc(k)}</b>{v}</li>" for k, v in facts) + "</ul>"
+    status_note = f'<p class="note">{esc(i.message)}</p>' if i.message else ""
+    generated = f"generated {_utc(generated_utc)} by benchctl" if generated_utc else "generated by benchctl"
+    body = "".join([
+        "<header>",
+        f"<h1>Run {run.run_id} · {esc(i.procedure)}</h1>",
+        f"<p>{esc(dut)} · station {esc(i.station_name)}</p>",
+        "</header>",
+        facts_html,
+        status_note,
+        _limit_section(run.limits),
+        _figures_section(images, notes, has_points=not run.points.empty),
+        _results_section(result_lines(run.results)),
+        _events_section(run.events),
+        _provenance_section(run, store_url),
+        f"<footer>{esc(generated)}</footer>",
+    ])
+    return (
+        "<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"
+        "<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">"
+        f"<title>Run {run.run_id} · {esc(i.procedure)} · benchctl report</title>"
+        f"<style>{_CSS}</style></head><body><main>{body}</main></body></html>\n"
+    )
