@@ -104,6 +104,19 @@ def build_parser() -> argparse.ArgumentParser:
     _add_db(p)
     p.add_argument("--format", choices=("csv", "json"), default="csv")
     p.add_argument("--out", metavar="FILE", default=None, help="write here instead of standard output")
+
+    p = sub.add_parser("report", help="write a run's HTML report with its PNG plots")
+    p.add_argument("run", help="run id or 'latest'")
+    p.add_argument("--out", metavar="DIR", default=None,
+                   help="directory for report.html and the PNG files (default ./benchctl-data/report-run<id>/)")
+    _add_db(p)
+
+    p = sub.add_parser("check", help="check a run against spec limits (pass/fail, JUnit XML)")
+    p.add_argument("run", help="run id or 'latest'")
+    p.add_argument("--limits", required=True, metavar="FILE", help="spec limits file (TOML)")
+    p.add_argument("--junit", default=None, metavar="FILE.xml", help="also write JUnit XML here")
+    _add_db(p)
+    p.add_argument("--json", action="store_true", help="print the report as JSON instead of a table")
     return parser
 
 

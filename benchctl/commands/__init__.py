@@ -20,6 +20,8 @@ _MODULES = {
     "runs": "benchctl.commands.data",
     "show": "benchctl.commands.data",
     "export": "benchctl.commands.data",
+    "report": "benchctl.commands.report",
+    "check": "benchctl.commands.check",
 }
 
 

@@ -17,6 +17,7 @@ Efficiency is Pout/Pin and loss Pin - Pout (common practice; see
 from __future__ import annotations
 
 from collections.abc import Callable, Mapping, Sequence
+import textwrap
 from functools import wraps
 from typing import Any, TypeVar
 
@@ -36,6 +37,7 @@ F = TypeVar("F", bound=Callable[..., Figure])
 
 ASCENDING = "ascending"
 DESCENDING = "descending"
+LEGEND_WRAP_CHARS = 34
 MAX_LINE_PLOT_LOADS = 5
 """At most this many load levels are drawn on the output-against-line plot."""
 
@@ -150,7 +152,7 @@ def _colours_for(vins: Sequence[float]) -> dict[float, str]:
 def draw_limits(ax: Axes, limits: Sequence[LimitMark], scale_of: Mapping[str, float], unit_text: str) -> int:
     """Draw the min/max of every limit whose quantity is in ``scale_of`` (quantity -> factor
     from the stored unit to the plotted one) as horizontal lines, the failing side lightly
-    shaded; one legend entry per limit. Returns the number of lines drawn (0 when no
+    shaded when the limit applies to every point; one legend entry per limit. Returns the number of lines drawn (0 when no
     limit applies)."""
     drawn = 0
     for mark in limits:
@@ -164,14 +166,19 @@ def draw_limits(ax: Axes, limits: Sequence[LimitMark], scale_of: Mapping[str, fl
             text = f"{bounds[0][0]:g} … {bounds[1][0]:g}{unit_text}"
         else:
             text = f"{'≥' if bounds[0][1] == 'min' else '≤'} {bounds[0][0]:g}{unit_text}"
-        label = f"limit {mark.name}: {text}" + (f"\n  where {mark.where}" if mark.where else "")
+        label = textwrap.fill(f"limit {mark.name}: {text}", LEGEND_WRAP_CHARS, subsequent_indent="  ")
+        if mark.where:
+            label += "\n" + textwrap.fill(f"where {mark.where}", LEGEND_WRAP_CHARS, initial_indent="  ",
+                                          subsequent_indent="  ")
         for k, (level, kind) in enumerate(bounds):
             y0, y1 = ax.get_ylim()
             span = max(y1 - y0, abs(level) * 1e-3, 1e-12)
             lo, hi = min(y0, level - 0.05 * span), max(y1, level + 0.05 * span)
             ax.axhline(level, color=style.LIMIT_INK, linewidth=1.3, linestyle=(0, (6, 2, 1, 2)),
                        label=label if k == 0 else "_nolegend_")
-            if kind == "min":
+            if mark.where:
+                pass  # applies to part of the data only: shading the whole side would mislead
+            elif kind == "min":
                 ax.axhspan(lo, level, color=style.LIMIT_INK, alpha=style.LIMIT_BAND_ALPHA, linewidth=0)
             else:
                 ax.axhspan(level, hi, color=style.LIMIT_INK, alpha=style.LIMIT_BAND_ALPHA, linewidth=0)
