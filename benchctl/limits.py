@@ -70,9 +70,9 @@ Exit code of a check (``benchctl check``), in this order:
 
 1. ``EXIT_FAILED`` (1) when a required limit failed - the measured data violate the
    spec, whatever else is missing;
-2. ``EXIT_NOT_CHECKED`` (4) when a required limit could not be checked, or the run's
+2. ``EXIT_NOT_CHECKED`` (4) when a required limit could not be checked, the run's
    status is not ``completed`` (running, interrupted, tripped, failed: its points are
-   not the whole envelope);
+   not the whole envelope), or no limit of the file applies to the run's procedure;
 3. ``EXIT_OK`` (0) otherwise.
 
 Advisory limits (``required = false``) and limits for other procedures never change it.
@@ -836,6 +836,8 @@ def evaluate_limit(spec: LimitSpec, data: RunData) -> LimitOutcome:
 
 def exit_code_for(outcomes: Sequence[LimitOutcome], run_status: str) -> int:
     """The check's exit code (module docstring, "Exit code of a check")."""
+    if not outcomes:
+        return EXIT_NOT_CHECKED
     required = [o for o in outcomes if o.limit.required]
     if any(o.passed is False for o in required):
         return EXIT_FAILED
@@ -858,6 +860,8 @@ def check_limits(limits: LimitsFile, data: RunData, *, checked_utc: datetime | N
                f" of {len(outcomes)} limit(s)")
     if skipped:
         summary += f"; {len(skipped)} limit(s) for other procedures"
+    if not outcomes:
+        summary += f"; no limit of the file applies to procedure {data.context.procedure!r}"
     if data.context.status != COMPLETED_STATUS:
         summary += f"; the run is {data.context.status}, not completed"
     log.info("limit check: %s", summary)

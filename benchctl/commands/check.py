@@ -18,7 +18,7 @@ import logging
 import math
 from datetime import datetime, timezone
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from rich.markup import escape
 from rich.table import Table
@@ -35,6 +35,9 @@ from benchctl.limits import (
     check_limits,
     load_limits,
 )
+
+if TYPE_CHECKING:
+    from benchctl.store import Store
 
 log = logging.getLogger(__name__)
 
@@ -53,7 +56,7 @@ def add_check_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--json", action="store_true", help="print the report as JSON instead of a table")
 
 
-def load_run_data(store: Any, run_id: int) -> RunData:
+def load_run_data(store: Store, run_id: int) -> RunData:
     """A run's provenance, points, results and units read from the store."""
     info = store.run(run_id)
     context = RunContext(
@@ -80,7 +83,7 @@ def _json_ready(value: Any) -> Any:
     return str(value)
 
 
-def record_check(store: Any, report: CheckReport) -> None:
+def record_check(store: Store, report: CheckReport) -> None:
     """Store the check with its run: one ``limit_check`` event, one ``limit:<name>`` result per limit."""
     details = _json_ready({k: v for k, v in report.to_dict().items() if k != "outcomes"})
     store.record_event(report.run_id, EVENT_LIMIT_CHECK, report.summary, details)
@@ -136,7 +139,7 @@ def print_report(report: CheckReport) -> None:
 
 
 def check_run(
-    store: Any,
+    store: Store,
     run_id: int | str,
     limits_path: str | Path,
     *,
@@ -170,7 +173,7 @@ def check_run(
     return report
 
 
-def _open_store(db: str | None) -> Any:
+def _open_store(db: str | None) -> Store:
     from benchctl.cli import default_db
     from benchctl.store import Store
 
