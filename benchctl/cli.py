@@ -65,8 +65,15 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--json", action="store_true", help="print JSON instead of a table")
 
     p = sub.add_parser("run", help="run a procedure on a station")
-    p.add_argument("procedure", help="bundled procedure name (see `benchctl procedures`) or a .py path")
+    p.add_argument("procedure", nargs="?", default=None,
+                   help="bundled procedure name (see `benchctl procedures`) or a .py path (not with --resume)")
     p.add_argument("--station", required=True, metavar="FILE", help="station file (TOML)")
+    p.add_argument("--resume", metavar="RUN", default=None,
+                   help="continue an interrupted or tripped run from its last committed point, into the same run")
+    p.add_argument("--list", action="store_true",
+                   help="list the planned operating points and the estimated duration; touch no instrument")
+    p.add_argument("--limits", metavar="FILE", default=None, help="check the run against these spec limits at the end")
+    p.add_argument("--junit", metavar="FILE.xml", default=None, help="with --limits: also write JUnit XML")
     _add_db(p)
     p.add_argument("--set", dest="sets", action="append", default=[], metavar="NAME=VALUE",
                    help="override a parameter (repeatable), e.g. --set vin_v=36,48,75")
@@ -77,6 +84,26 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--operator", default=None, help="operator name (default: the login name)")
     p.add_argument("--no-settle", action="store_true", help="skip settling waits (dry runs, benchmarks)")
     p.add_argument("--json", action="store_true", help="print the outcome as JSON")
+
+    p = sub.add_parser("job", help="run a job file: several procedures in order, one exit code (nightly)")
+    p.add_argument("job", help="job file (TOML)")
+    p.add_argument("--station", required=True, metavar="FILE", help="station file (TOML)")
+    _add_db(p)
+    p.add_argument("--junit-dir", metavar="DIR", default=None, help="write one JUnit XML per checked step here")
+    p.add_argument("--list", action="store_true", help="list every planned point and the estimated duration only")
+    p.add_argument("--no-settle", action="store_true", help="skip settling waits (dry runs)")
+    p.add_argument("--operator", default=None, help="operator name (default: the login name)")
+
+    p = sub.add_parser("compare", help="compare two runs of the same procedure point by point")
+    p.add_argument("run_a", help="run id (the reference) or 'latest'")
+    p.add_argument("run_b", help="run id (the new one) or 'latest'")
+    _add_db(p)
+    p.add_argument("--setpoint-rel-tol", type=float, default=0.01,
+                   help="setpoints match when within this relative difference (default 0.01)")
+    p.add_argument("--tolerance", action="append", default=[], metavar="QUANTITY=DELTA",
+                   help="flag a change beyond DELTA (in the quantity's unit), e.g. --tolerance efficiency=0.003")
+    p.add_argument("--report", metavar="DIR", default=None, help="also write a side-by-side report here")
+    p.add_argument("--json", action="store_true")
 
     p = sub.add_parser("demo", help="run the efficiency map on a simulated bench started in-process")
     p.add_argument("--model", default="flyback-48v-5v", help="converter model")

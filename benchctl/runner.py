@@ -81,8 +81,14 @@ def execute(
     progress: Callable[[int, int, Mapping[str, float]], None] | None = None,
     on_begin: Callable[[int], None] | None = None,
     job_id: int | None = None,
+    resume_run_id: int | None = None,
 ) -> RunOutcome:
-    """Run ``procedure`` on ``station`` into ``store`` and return how it ended."""
+    """Run ``procedure`` on ``station`` into ``store`` and return how it ended.
+
+    With ``resume_run_id`` the run continues an interrupted or tripped run: the planned
+    points already committed are skipped and new points go into the same run, after the
+    instruments are re-opened and the protection re-armed; the gap is stored as an event.
+    """
     from benchctl.store import InstrumentInfo, RunStart
 
     station.require_roles(procedure.roles, needed_by=f"procedure {procedure.name}")
@@ -113,8 +119,15 @@ def execute(
         job_id=job_id,
         **({"operator": operator} if operator is not None else {}),
     )
+    skip_points = 0
     try:
-        run_id = store.begin_run(start)
+        if resume_run_id is None:
+            run_id = store.begin_run(start)
+        else:
+            run_id = resume_run_id
+            skip_points = store.run(run_id).n_points
+            store.reopen_run(run_id, f"resumed after {skip_points} committed points; instruments re-identified: "
+                             + "; ".join(f"{i.role}={i.identity}" for i in start.instruments))
     except BaseException:
         for d in drivers.values():
             d.close()
@@ -135,7 +148,7 @@ def execute(
     bench = Bench(
         instruments={role: guard(d, interlock) for role, d in drivers.items()},
         interlock=interlock, recorder=record, array_recorder=record_array, event_recorder=record_event,
-        settle_enabled=settle_enabled, progress=progress,
+        settle_enabled=settle_enabled, progress=progress, skip_points=skip_points,
     )
     for role in ("source", "input_meter"):
         if role in bench._instruments:
@@ -196,7 +209,7 @@ def execute(
             logger.exception("analysis of run %s failed", run_id)
             store.record_event(run_id, "error", f"analysis failed: {type(exc).__name__}: {exc}", {})
     store.end_run(run_id, status, message)
-    return RunOutcome(run_id, status, message, bench.points_recorded, time.monotonic() - started,
+    return RunOutcome(run_id, status, message, skip_points + bench.points_recorded, time.monotonic() - started,
                       trip=interlock.trip_record, shutdown_steps=tuple(steps))
 
 
@@ -204,10 +217,12 @@ def store_results(store: Any, run_id: int, procedure: Procedure, params: Paramet
     """Compute the procedure's derived results from the stored points and store them."""
     points = store.points(run_id)
     results = procedure.analyse(points, params) if procedure.analyse else []
+    rows = []
     for r in results:
         value = None if r.value is None or (isinstance(r.value, float) and math.isnan(r.value)) else float(r.value)
-        store.record_result(run_id, r.name, value, unit=r.unit, details=_jsonable(dict(r.details)), scope=dict(r.scope))
-    return len(results)
+        rows.append({"name": r.name, "value": value, "unit": r.unit,
+                     "details": _jsonable(dict(r.details)), "scope": _jsonable(dict(r.scope))})
+    return store.record_results(run_id, rows)
 
 
 def _jsonable(obj: Any) -> Any:

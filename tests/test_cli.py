@@ -64,7 +64,7 @@ def test_instruments_command(simulated_bench, tmp_path, capsys):
     code, out, _ = run_cli(["instruments", "--station", station, "--json"], capsys)
     assert code == EXIT_OK
     rows = json.loads(out)["instruments"]
-    assert {r["role"] for r in rows} == {"source", "load", "input_meter", "output_meter"}
+    assert {"source", "load", "input_meter", "output_meter"} <= {r["role"] for r in rows}
     assert all(r["status"] == "ok" and "benchctl-sim" in r["identity"] for r in rows)
     # One instrument gone: non-zero exit, the row says what failed.
     bench.servers["load"].stop()

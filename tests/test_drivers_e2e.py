@@ -35,6 +35,8 @@ def test_source_identify_set_measure(bench):
         assert src.voltage_setpoint() == pytest.approx(48.0)
         src.set_output(True)
         assert src.output_enabled() is True
+        import time
+        time.sleep(0.05)  # the output rises with the model's time constant
         assert src.measure_voltage() == pytest.approx(48.0, abs=0.05)
         src.set_output(False)
     # audit log: the output went on then off (state changes recorded by the instrument)

@@ -199,10 +199,10 @@ def test_adaptive_settle_finishes_near_true_settling_time(simulated_bench):
         src.set_output(False)
     truth_s = bench.model.settling_time_s(abs(i_after - i_before) / i_after, tol_a / i_after)
     assert result.settled
-    # Within 15 % of τ·ln(step/tol) (first-order step response, common control-text definition),
-    # allowing for the few milliseconds of the setting's own round trips.
-    assert result.settling_time_s == pytest.approx(truth_s, abs=0.15 * truth_s + 0.004)
-    assert result.elapsed_s <= truth_s + tau  # it stops soon after, not long after
+    # Within 25 % of τ·ln(step/tol) (first-order step response, common control-text definition),
+    # allowing for the round trips of the setting itself and a busy shared machine.
+    assert result.settling_time_s == pytest.approx(truth_s, abs=0.25 * truth_s + 0.004)
+    assert 0.7 * truth_s <= result.elapsed_s <= truth_s + tau  # it stops near the truth, not long after
     # It stops when the remaining deviation is about tol, so the window mean is within ~2 tol.
     assert abs(result.final_value - i_after) <= 2 * tol_a
 

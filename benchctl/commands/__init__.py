@@ -22,6 +22,8 @@ _MODULES = {
     "export": "benchctl.commands.data",
     "report": "benchctl.commands.report",
     "check": "benchctl.commands.check",
+    "job": "benchctl.commands.job",
+    "compare": "benchctl.commands.compare",
 }
 
 

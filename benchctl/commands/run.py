@@ -58,26 +58,20 @@ class _ProgressView:
         self.live.__exit__(*exc)
 
 
-def run_procedure(*, procedure_ref: str, station, store, sets: list[str], params_file: str | None,
-                  dut, operator: str | None, settle: bool, quiet: bool = False, extra_values: Mapping[str, Any] | None = None):
-    """Resolve parameters, caution if needed, then execute with a progress view."""
-    from benchctl.procedure import load_parameter_file, load_procedure
+def run_procedure(procedure, params, station, store, *, dut, operator: str | None = None, settle: bool = True,
+                  quiet: bool = False, job_id: int | None = None, resume_run_id: int | None = None):
+    """Check roles, show the caution when the station is hazardous, then execute with a progress view."""
     from benchctl.runner import execute
 
-    procedure = load_procedure(procedure_ref)
-    file_values = load_parameter_file(params_file) if params_file else None
-    params = procedure.resolve_parameters(file_values=file_values, values=extra_values, cli_values=sets)
     station.require_roles(procedure.roles, needed_by=f"procedure {procedure.name}")
     if station.limits.hazardous:
-        print_caution(
-            f"Station {station.name!r} allows up to {station.limits.source_voltage_max_v:g} V; its file acknowledges "
-            "hazardous voltage."
-        )
+        print_caution(f"Station {station.name!r} allows up to {station.limits.source_voltage_max_v:g} V; "
+                      "its file acknowledges hazardous voltage.")
+    kwargs = dict(dut=dut, operator=operator, settle_enabled=settle, job_id=job_id, resume_run_id=resume_run_id)
     if quiet:
-        return execute(procedure, params, station, store, dut=dut, operator=operator, settle_enabled=settle)
+        return execute(procedure, params, station, store, **kwargs)
     with _ProgressView(f"{procedure.name} on {station.name}") as view:
-        return execute(procedure, params, station, store, dut=dut, operator=operator, settle_enabled=settle,
-                       progress=view.update)
+        return execute(procedure, params, station, store, progress=view.update, **kwargs)
 
 
 def _exit_code(outcome) -> int:
@@ -101,27 +95,93 @@ def _report_outcome(outcome, store, as_json: bool) -> None:
         console().print(escape(outcome.message))
 
 
+def print_plan(procedure, params, station_name: str, store) -> None:
+    """Every planned operating point and the estimated duration; no instrument is touched."""
+    from benchctl.job import estimate_duration
+
+    plan = procedure.plan(params)
+    table = Table(title=f"{procedure.name}: {len(plan)} planned points")
+    keys = sorted({k for point in plan for k in point})
+    table.add_column("#", justify="right")
+    for k in keys:
+        table.add_column(k, justify="right")
+    for n, point in enumerate(plan, 1):
+        table.add_row(str(n), *[f"{point.get(k, ''):g}" if isinstance(point.get(k), float) else str(point.get(k, ""))
+                                for k in keys])
+    console().print(table)
+    history = store.runs(procedure=procedure.name, station=station_name) if store is not None else None
+    est = estimate_duration(history, len(plan))
+    if est.seconds is None:
+        console().print("estimated duration: unknown (no completed run of this procedure on this station yet)")
+    else:
+        console().print(f"estimated duration: {est.seconds:.0f} s ({est.seconds_per_point:.2f} s per point, "
+                        f"median of {est.basis_runs} earlier run(s) on station {station_name})")
+
+
+def _resume_target(args, store):
+    from benchctl.errors import ConfigurationError
+    from benchctl.procedure import load_procedure
+
+    run_id = store.resolve_run(args.resume)
+    info = store.run(run_id)
+    if info.status not in ("interrupted", "tripped"):
+        raise ConfigurationError(f"run {run_id} is {info.status}; only interrupted or tripped runs can be resumed")
+    procedure = load_procedure(args.procedure or info.procedure)
+    if procedure.source_sha256 != info.procedure_sha256:
+        raise ConfigurationError(
+            f"procedure {procedure.path} changed since run {run_id} began (sha256 {procedure.source_sha256[:12]}… "
+            f"vs {info.procedure_sha256[:12]}…); resuming would mix two procedures — start a new run instead")
+    params = procedure.resolve_parameters(values=dict(info.parameters))
+    return run_id, info, procedure, params
+
+
 def cmd_run(args: argparse.Namespace) -> int:
+    from benchctl.errors import ConfigurationError
+    from benchctl.procedure import load_parameter_file, load_procedure
     from benchctl.runner import DutInfo
     from benchctl.station import load_station
 
     station = load_station(args.station)
+    if not args.resume and not args.procedure:
+        raise ConfigurationError("give a procedure to run, or --resume RUN to continue one")
     store = open_store(args.db or station.database)
     try:
-        outcome = run_procedure(
-            procedure_ref=args.procedure, station=station, store=store, sets=args.sets, params_file=args.params,
-            dut=DutInfo(args.dut_part, args.dut_rev, args.dut_serial), operator=args.operator,
-            settle=not args.no_settle, quiet=args.json,
-        )
+        if args.resume:
+            run_id, info, procedure, params = _resume_target(args, store)
+            if info.station_name != station.name:
+                raise ConfigurationError(f"run {run_id} ran on station {info.station_name!r}, not {station.name!r}; "
+                                         "resume it on the same station")
+            dut = DutInfo(info.dut_part, info.dut_revision, info.dut_serial)
+        else:
+            procedure = load_procedure(args.procedure)
+            file_values = load_parameter_file(args.params) if args.params else None
+            params = procedure.resolve_parameters(file_values=file_values, cli_values=args.sets)
+            run_id, dut = None, DutInfo(args.dut_part, args.dut_rev, args.dut_serial)
+        if args.list:
+            print_plan(procedure, params, station.name, store)
+            return EXIT_OK
+        if args.limits:  # a bad limits file is refused before anything is switched on
+            from benchctl.limits import load_limits
+
+            load_limits(args.limits)
+        outcome = run_procedure(procedure, params, station, store, dut=dut, operator=args.operator,
+                                settle=not args.no_settle, quiet=args.json, resume_run_id=run_id)
         _report_outcome(outcome, store, args.json)
         if not args.json:
             console().print(f"data: {store.url}")
-        return _exit_code(outcome)
+        code = _exit_code(outcome)
+        if args.limits and outcome.status == "completed":
+            from benchctl.commands.check import check_run
+
+            report = check_run(store, outcome.run_id, args.limits, junit_path=args.junit, print_table=not args.json)
+            code = report.exit_code
+        return code
     finally:
         store.close()
 
 
 def cmd_demo(args: argparse.Namespace) -> int:
+    from benchctl.procedure import load_procedure
     from benchctl.runner import DutInfo
     from benchctl.station import parse_station
     from simulated_instruments.bench import SimulatedBench
@@ -138,11 +198,9 @@ def cmd_demo(args: argparse.Namespace) -> int:
         store = open_store(args.db)
         try:
             part = {"flyback-48v-5v": "FB-48S05", "buck-12v-1v2": "POL-12S1V2"}.get(args.model, args.model)
-            outcome = run_procedure(
-                procedure_ref="efficiency_map", station=station, store=store, sets=[], params_file=None,
-                dut=DutInfo(part, "A", "SIM-0001"), operator=None, settle=True,
-                extra_values=bench.procedure_parameters(),
-            )
+            procedure = load_procedure("efficiency_map")
+            params = procedure.resolve_parameters(values=bench.procedure_parameters())
+            outcome = run_procedure(procedure, params, station, store, dut=DutInfo(part, "A", "SIM-0001"))
             _report_outcome(outcome, store, False)
             out.print(f"data: [bold]{store.url}[/] (run {outcome.run_id})")
             out.print(f"next: benchctl show {outcome.run_id}   |   benchctl export {outcome.run_id} --format csv")

@@ -15,6 +15,7 @@ plot), :mod:`.registry` (plots join the report by registering), :mod:`.standard_
 from __future__ import annotations
 
 from .build import ReportFiles, build_report, default_out_dir
+from .comparison import build_comparison_report
 from .registry import PlotEntry, ReportFigure, register_plot, registered_plots, unregister_plot
 from .run_data import RunData
 
@@ -23,6 +24,7 @@ __all__ = [
     "ReportFigure",
     "ReportFiles",
     "RunData",
+    "build_comparison_report",
     "build_report",
     "default_out_dir",
     "register_plot",

@@ -1,0 +1,196 @@
+"""``benchctl analyze transient|ripple|mode|ringing FILE.csv``: waveform analyses of scope exports.
+
+::
+
+    benchctl analyze transient step.csv [--vout-column C] [--iout-column C] [--step-time-s T]
+                                        (--band-v B | --band-pct P) [--json]
+    benchctl analyze ripple vout.csv [--column C] [--fsw-hz F] [--bandwidth-limit-hz F] [--json]
+    benchctl analyze mode isw.csv [--column C] [--gate-column C] [--fsw-hz F] [--threshold-ratio R] [--json]
+    benchctl analyze ringing drain.csv [--column C] [--start-time-s T] [--json]
+
+The files hold a time column in seconds and value columns (:mod:`benchctl.analysis.waveform_csv`);
+a bad file is reported with its row and column and exit code 2. Methods:
+:mod:`benchctl.analysis.transient`, :mod:`~benchctl.analysis.ripple`,
+:mod:`~benchctl.analysis.conduction_mode`, :mod:`~benchctl.analysis.ringing`.
+"""
+
+from __future__ import annotations
+
+import argparse
+import dataclasses
+import json
+import math
+from typing import Any
+
+from benchctl.cli import EXIT_OK
+
+_HANDLERS = "benchctl.commands.analyze_waveforms"
+
+
+def add_waveform_subcommands(analyze_sub: Any) -> None:
+    """Add the ``transient``, ``ripple``, ``mode`` and ``ringing`` sub-commands to ``benchctl analyze``."""
+    p = analyze_sub.add_parser("transient", help="load-step response: peak deviation, recovery, settling",
+                               description="CSV: time in s, the output voltage and optionally the load current.")
+    p.add_argument("file", help="waveform CSV (time column first)")
+    p.add_argument("--vout-column", default=None, help="output-voltage column (default: the first value column)")
+    p.add_argument("--iout-column", default=None,
+                   help="load-current column used to find the step edge (default: the second value column, if any)")
+    p.add_argument("--step-time-s", type=float, default=None, help="step edge time, s (instead of a current column)")
+    band = p.add_mutually_exclusive_group()
+    band.add_argument("--band-v", type=float, default=None, help="half-width of the recovery band, V")
+    band.add_argument("--band-pct", type=float, default=None,
+                      help="half-width of the band in %% of the final value (default 1 %%)")
+    p.add_argument("--load-step", choices=("increase", "decrease"), default=None,
+                   help="direction of the load step (default: from the current, else the largest deviation)")
+    p.add_argument("--json", action="store_true", help="print JSON instead of a table")
+    p.set_defaults(analyze_handler=f"{_HANDLERS}:run_transient")
+
+    p = analyze_sub.add_parser("ripple", help="output ripple pk-pk and RMS over whole switching periods",
+                               description="CSV: time in s (uniform sampling) and the output voltage.")
+    p.add_argument("file", help="waveform CSV (time column first)")
+    p.add_argument("--column", default=None, help="voltage column (default: the first value column)")
+    p.add_argument("--fsw-hz", type=float, default=None, help="switching frequency: use whole periods")
+    p.add_argument("--bandwidth-limit-hz", type=float, default=None,
+                   help="apply a first-order low-pass here (20e6 emulates a scope's 20 MHz limit)")
+    p.add_argument("--json", action="store_true", help="print JSON instead of a table")
+    p.set_defaults(analyze_handler=f"{_HANDLERS}:run_ripple")
+
+    p = analyze_sub.add_parser("mode", help="CCM/DCM from a switch-current waveform",
+                               description="CSV: time in s and the switch current (optionally the gate drive).")
+    p.add_argument("file", help="waveform CSV (time column first)")
+    p.add_argument("--column", default=None, help="switch-current column (default: the first value column)")
+    p.add_argument("--gate-column", default=None, help="gate-drive column marking the on-times")
+    p.add_argument("--fsw-hz", type=float, default=None, help="switching frequency (rejects spurious edges)")
+    p.add_argument("--threshold-ratio", type=float, default=0.1,
+                   help="start/peak current above which the mode is CCM (default 0.1)")
+    p.add_argument("--json", action="store_true", help="print JSON instead of a table")
+    p.set_defaults(analyze_handler=f"{_HANDLERS}:run_mode")
+
+    p = analyze_sub.add_parser("ringing", help="damped-sinusoid fit of a switch-node ring",
+                               description="CSV: time in s and the drain / switch-node voltage.")
+    p.add_argument("file", help="waveform CSV (time column first)")
+    p.add_argument("--column", default=None, help="voltage column (default: the first value column)")
+    p.add_argument("--start-time-s", type=float, default=None,
+                   help="where the ring starts (default: where it falls from its peak)")
+    p.add_argument("--json", action="store_true", help="print JSON instead of a table")
+    p.set_defaults(analyze_handler=f"{_HANDLERS}:run_ringing")
+
+
+# ---------------------------------------------------------------- output
+
+def _jsonable(value: Any) -> Any:
+    if dataclasses.is_dataclass(value) and not isinstance(value, type):
+        return _jsonable(dataclasses.asdict(value))
+    if isinstance(value, dict):
+        return {str(k): _jsonable(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_jsonable(v) for v in value]
+    if hasattr(value, "item") and not isinstance(value, (str, bytes)):
+        value = value.item()
+    if isinstance(value, float) and not math.isfinite(value):
+        return None
+    return value
+
+
+def _emit(args: argparse.Namespace, title: str, source: dict[str, Any], result: Any) -> int:
+    data = {"file": args.file, **source, "result": _jsonable(result)}
+    if args.json:
+        print(json.dumps(data, indent=2))
+        return EXIT_OK
+    from rich.markup import escape
+    from rich.table import Table
+
+    from benchctl.commands.console import console
+
+    table = Table(title=escape(f"{title}: {args.file}"))
+    table.add_column("quantity")
+    table.add_column("value", justify="right")
+    for key, value in source.items():
+        table.add_row(escape(key), escape(str(value)))
+    for key, value in data["result"].items():
+        text = f"{value:.6g}" if isinstance(value, float) else "—" if value is None else str(value)
+        table.add_row(escape(key), escape(text))
+    console().print(table)
+    return EXIT_OK
+
+
+def _load(args: argparse.Namespace, min_rows: int) -> Any:
+    from benchctl.analysis.waveform_csv import read_waveform_csv
+
+    return read_waveform_csv(args.file, min_rows=min_rows)
+
+
+# ---------------------------------------------------------------- handlers
+
+def run_transient(args: argparse.Namespace) -> int:
+    from benchctl.analysis.transient import load_step_metrics
+    from benchctl.errors import AnalysisInputError
+
+    table = _load(args, 10)
+    vname, vout = table.column(args.vout_column)
+    iname, iout = None, None
+    if args.step_time_s is None:
+        if args.iout_column is not None:
+            iname, iout = table.column(args.iout_column)
+        elif len(table.columns) >= 2:
+            iname, iout = table.column(position=1 if vname == list(table.columns)[0] else 0)
+        else:
+            raise AnalysisInputError(f"{args.file}: no load-current column to find the step in; "
+                                     "add one (--iout-column) or give --step-time-s")
+    band_v = args.band_v
+    band_rel = None if band_v is not None else (args.band_pct if args.band_pct is not None else 1.0) / 100.0
+    m = load_step_metrics(table.t_s, vout, step_time_s=args.step_time_s, iout_a=iout, band_v=band_v,
+                          band_rel=band_rel, load_step=args.load_step)
+    return _emit(args, "load transient", {"vout_column": vname, "iout_column": iname}, m)
+
+
+def run_ripple(args: argparse.Namespace) -> int:
+    from benchctl.analysis.ripple import output_ripple
+
+    table = _load(args, 8)
+    name, v = table.column(args.column)
+    r = output_ripple(table.t_s, v, fsw_hz=args.fsw_hz, bandwidth_limit_hz=args.bandwidth_limit_hz)
+    return _emit(args, "output ripple", {"column": name}, r)
+
+
+def run_mode(args: argparse.Namespace) -> int:
+    from benchctl.analysis.conduction_mode import classify_conduction_mode
+
+    table = _load(args, 16)
+    name, i = table.column(args.column)
+    gate = table.column(args.gate_column)[1] if args.gate_column else None
+    r = classify_conduction_mode(table.t_s, i, v_gate_v=gate, fsw_hz=args.fsw_hz, threshold_ratio=args.threshold_ratio)
+    return _emit(args, "conduction mode", {"column": name, "gate_column": args.gate_column}, r)
+
+
+def run_ringing(args: argparse.Namespace) -> int:
+    import numpy as np
+
+    from benchctl.analysis.ringing import fit_ringing
+    from benchctl.errors import AnalysisInputError
+
+    table = _load(args, 20)
+    name, v = table.column(args.column)
+    if args.start_time_s is not None:
+        t = table.t_s
+        if not (t[0] <= args.start_time_s <= t[-1]):
+            raise AnalysisInputError(f"{args.file}: --start-time-s {args.start_time_s!r} is outside the record "
+                                     f"[{t[0]!r}, {t[-1]!r}] s")
+        start = int(np.searchsorted(t, args.start_time_s))
+    else:
+        start = ring_start_index(v)
+    fit = fit_ringing(table.t_s, v, start_index=start)
+    return _emit(args, "ringing", {"column": name}, fit)
+
+
+def ring_start_index(v: Any, tail_fraction: float = 0.2, drop: float = 0.05) -> int:
+    """First sample after the peak (and any flat clamp plateau) that has fallen ``drop`` of the
+    way toward the settled value (median of the last ``tail_fraction`` of the record)."""
+    import numpy as np
+
+    v = np.asarray(v, dtype=float)
+    k = int(np.argmax(v))
+    settled = float(np.median(v[-max(4, int(tail_fraction * v.size)):]))
+    limit = v[k] - drop * (v[k] - settled)
+    after = np.flatnonzero(v[k:] < limit)
+    return k + int(after[0]) if after.size else k

@@ -1,0 +1,165 @@
+"""Jobs: several procedures run in order on one station, each a run of its own.
+
+A job file is TOML (data only; nothing in it is evaluated)::
+
+    [job]
+    name = "nightly FB-48S05 rev B"
+    dut_part = "FB-48S05"            # optional defaults for every step
+    dut_revision = "B"
+    dut_serial = "0007"
+
+    [[step]]
+    procedure = "efficiency_map"     # bundled name or a path (relative to the job file)
+    params = "flyback.toml"          # optional parameter file (relative to the job file)
+    limits = "limits.toml"           # optional spec limits checked after the run
+    [step.parameters]                # optional inline values (override the file's)
+    vin_v = [36.0, 48.0, 75.0]
+
+Every step becomes a run with the same ``job_id``; the job's exit code is 0 only when
+every run completed and every limit passed (otherwise the worst step's code).
+"""
+
+from __future__ import annotations
+
+import tomllib
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Mapping
+
+from benchctl.errors import ConfigurationError
+
+_JOB_KEYS = {"name", "description", "dut_part", "dut_revision", "dut_serial"}
+_STEP_KEYS = {"procedure", "params", "limits", "parameters", "name"}
+
+
+class JobFileError(ConfigurationError):
+    """The job file cannot be used."""
+
+
+@dataclass(frozen=True)
+class JobStep:
+    procedure: str
+    name: str = ""
+    params_file: Path | None = None
+    limits_file: Path | None = None
+    parameters: Mapping[str, Any] = field(default_factory=dict)
+
+
+@dataclass(frozen=True)
+class Job:
+    name: str
+    steps: tuple[JobStep, ...]
+    description: str = ""
+    dut_part: str = ""
+    dut_revision: str = ""
+    dut_serial: str = ""
+    path: Path | None = None
+
+
+def _resolve(base: Path | None, value: str) -> Path:
+    p = Path(value)
+    return p if p.is_absolute() or base is None else (base / p)
+
+
+def parse_job(text: str, *, path: Path | None = None) -> Job:
+    """Validate a job file completely; JobFileError lists every problem with its key."""
+    where = str(path) if path else "job text"
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise JobFileError(f"{where}: not valid TOML: {exc}") from exc
+    base = path.parent if path else None
+    problems: list[str] = []
+    for key in sorted(set(data) - {"job", "step"}):
+        problems.append(f"[{key}]: unknown table; expected [job] and [[step]]")
+    job = data.get("job", {})
+    if not isinstance(job, dict):
+        problems.append("[job]: must be a table")
+        job = {}
+    for key in sorted(set(job) - _JOB_KEYS):
+        problems.append(f"job.{key}: unknown key; known keys: {', '.join(sorted(_JOB_KEYS))}")
+    for key in _JOB_KEYS:
+        if key in job and not isinstance(job[key], str):
+            problems.append(f"job.{key}: must be text")
+    raw_steps = data.get("step", [])
+    if not isinstance(raw_steps, list) or not raw_steps:
+        problems.append("[[step]]: at least one step with procedure = \"...\" is required")
+        raw_steps = []
+    steps = []
+    for k, step in enumerate(raw_steps, 1):
+        key = f"step[{k}]"
+        if not isinstance(step, dict):
+            problems.append(f"{key}: must be a table")
+            continue
+        for extra in sorted(set(step) - _STEP_KEYS):
+            problems.append(f"{key}.{extra}: unknown key; known keys: {', '.join(sorted(_STEP_KEYS))}")
+        proc = step.get("procedure")
+        if not isinstance(proc, str) or not proc:
+            problems.append(f"{key}.procedure: required, a bundled procedure name or a path")
+            continue
+        if proc.endswith(".py"):
+            proc = str(_resolve(base, proc))
+        files = {}
+        for fkey in ("params", "limits"):
+            value = step.get(fkey)
+            if value is None:
+                files[fkey] = None
+            elif not isinstance(value, str) or not value:
+                problems.append(f"{key}.{fkey}: must be a file path")
+                files[fkey] = None
+            else:
+                p = _resolve(base, value)
+                if not p.is_file():
+                    problems.append(f"{key}.{fkey}: file {p} does not exist")
+                files[fkey] = p
+        params = step.get("parameters", {})
+        if not isinstance(params, dict):
+            problems.append(f"{key}.parameters: must be a table of name = value")
+            params = {}
+        steps.append(JobStep(proc, str(step.get("name", "")), files["params"], files["limits"], dict(params)))
+    if problems:
+        raise JobFileError(f"{where}: {len(problems)} problem(s) in the job file", problems)
+    return Job(
+        name=str(job.get("name", path.stem if path else "job")), steps=tuple(steps),
+        description=str(job.get("description", "")), dut_part=str(job.get("dut_part", "")),
+        dut_revision=str(job.get("dut_revision", "")), dut_serial=str(job.get("dut_serial", "")), path=path,
+    )
+
+
+def load_job(path: str | Path) -> Job:
+    path = Path(path)
+    try:
+        text = path.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise JobFileError(f"job file {path} does not exist") from None
+    except (OSError, UnicodeDecodeError) as exc:
+        raise JobFileError(f"job file {path} cannot be read: {exc}") from exc
+    return parse_job(text, path=path)
+
+
+@dataclass(frozen=True)
+class DurationEstimate:
+    """Expected run time from earlier runs of the same procedure on the same station.
+
+    ``seconds_per_point`` is the median over those runs of (end − start) / points;
+    ``basis_runs`` how many runs it rests on (0: no history, then ``seconds`` is None).
+    """
+
+    points: int
+    seconds_per_point: float | None
+    seconds: float | None
+    basis_runs: int
+
+
+def estimate_duration(runs: Any, points: int) -> DurationEstimate:
+    """Estimate from a ``Store.runs(...)`` frame of earlier runs (completed ones count)."""
+    import numpy as np
+
+    if runs is None or runs.empty:
+        return DurationEstimate(points, None, None, 0)
+    done = runs[(runs["status"] == "completed") & (runs["n_points"] > 0) & runs["ended_utc"].notna()]
+    if done.empty:
+        return DurationEstimate(points, None, None, 0)
+    per_point = [(e - s).total_seconds() / n for s, e, n in zip(done["started_utc"], done["ended_utc"], done["n_points"])]
+    spp = float(np.median(per_point))
+    return DurationEstimate(points, spp, spp * points, len(per_point))
