@@ -87,6 +87,34 @@ class GuardedLoad(Guarded):
         )
         self._driver.set_current(current_a)
 
+    def _refuse_current(self, current_a: float, what: str) -> None:
+        lim = self._interlock.limits
+        self._interlock.refuse_above("load_current_max_a", current_a, self.role, f"{what} (A)")
+        self._interlock.refuse_above(
+            "load_power_max_w", current_a * lim.dut_output_voltage_max_v, self.role,
+            f"power at {lim.dut_output_voltage_max_v:g} V for the {what} (W)",
+        )
+
+    def set_transient(self, level_a_a: float, level_b_a: float, *, slew_a_per_s: float,
+                      mode: str = "single", frequency_hz: float | None = None) -> None:
+        """Dynamic mode: both levels are checked like a current setpoint before anything is sent."""
+        self._refuse_current(level_a_a, "dynamic level A")
+        self._refuse_current(level_b_a, "dynamic level B")
+        self._driver.set_transient(level_a_a, level_b_a, slew_a_per_s=slew_a_per_s, mode=mode,
+                                   frequency_hz=frequency_hz)
+
+    def set_transient_enabled(self, on: bool) -> None:
+        self._before()
+        self._driver.set_transient_enabled(on)
+
+    def trigger_step(self) -> None:
+        self._before()
+        self._driver.trigger_step()
+
+    def set_trigger_out(self, on: bool) -> None:
+        self._before()
+        self._driver.set_trigger_out(on)
+
     def set_resistance(self, resistance_ohm: float) -> None:
         lim = self._interlock.limits
         if not resistance_ohm > 0:
@@ -156,10 +184,115 @@ class GuardedMeter(Guarded):
         self._driver.set_averaging(count)
 
 
+class GuardedAnalyzer(Guarded):
+    """Loop analyzer behind the interlock: the injection amplitude is capped, measurements pass through.
+
+    The injected sine appears almost whole at the DUT output where the loop gain is high,
+    so the cap is ``INJECTION_FRACTION`` of the station's ``dut_output_voltage_max_v``
+    unless the station gives ``options.injection_max_v`` for the analyzer (common practice:
+    an injection of a few per cent of the output is plenty).
+    """
+
+    INJECTION_FRACTION = 0.2
+
+    @property
+    def max_injection_v(self) -> float:
+        """Largest injection amplitude (V peak) this station allows."""
+        option = getattr(self._driver, "options", {}).get("injection_max_v")
+        if option is not None:
+            return float(option)
+        return self.INJECTION_FRACTION * self._interlock.limits.dut_output_voltage_max_v
+
+    def _refuse_injection(self, amplitude_v: float, what: str) -> None:
+        from benchctl.errors import SetpointRefused
+
+        self._before()
+        maximum = self.max_injection_v
+        if not (amplitude_v == amplitude_v) or amplitude_v <= 0 or amplitude_v > maximum:
+            raise SetpointRefused(
+                f"{self.role}: {what} {amplitude_v:g} V is outside (0, {maximum:g}] V "
+                f"({self.INJECTION_FRACTION:g} x limits.dut_output_voltage_max_v, or the analyzer's "
+                "options.injection_max_v); nothing was sent. Lower the injection parameter of the procedure",
+                limit="injection_max_v", value=float(amplitude_v), instrument=self.role,
+            )
+
+    def set_injection(self, amplitude_v: float) -> None:
+        self._refuse_injection(amplitude_v, "injection amplitude")
+        self._driver.set_injection(amplitude_v)
+
+    def set_injection_profile(self, profile: Any) -> None:
+        self._refuse_injection(profile.max_amplitude_v, "largest injection amplitude of the profile")
+        self._driver.set_injection_profile(profile)
+
+    def set_sweep(self, start_hz: float, stop_hz: float, points: int, spacing: str = "log") -> None:
+        self._before()
+        self._driver.set_sweep(start_hz, stop_hz, points, spacing)
+
+    def set_bandwidth(self, bandwidth_hz: float) -> None:
+        self._before()
+        self._driver.set_bandwidth(bandwidth_hz)
+
+    def set_averaging(self, count: int) -> None:
+        self._before()
+        self._driver.set_averaging(count)
+
+    def set_polarity(self, inverted: bool) -> None:
+        self._before()
+        self._driver.set_polarity(inverted)
+
+    def set_data_format(self, data_format: str = "real64", byte_order: str = "big") -> None:
+        self._before()
+        self._driver.set_data_format(data_format, byte_order)
+
+    def sweep_time_s(self) -> float:
+        self._before()
+        return self._driver.sweep_time_s()
+
+    def measure(self, *, method: str = "opc") -> Any:
+        """Start a sweep, wait for it and fetch it (a FrequencyResponse)."""
+        self._before()
+        result = self._driver.measure(method=method)
+        self._before()
+        return result
+
+    def fetch(self) -> Any:
+        self._before()
+        return self._driver.fetch()
+
+
+class GuardedScope(Guarded):
+    """Oscilloscope behind the interlock.
+
+    A scope drives nothing, so there is no setpoint to refuse; every call still stops
+    at a trip. Its readings are waveforms (ripple, drain ringing well above the DC
+    rails), not DC quantities, so they are not checked against the station's DC limits.
+    """
+
+    def __getattr__(self, name: str) -> Any:
+        allowed = {
+            "set_channel_enabled", "set_scale", "scale", "set_offset", "set_coupling", "set_bandwidth_limit",
+            "bandwidth_limit_hz", "set_timebase", "set_record", "sample_interval_s", "set_trigger", "arm",
+            "abort", "wait_acquired", "single", "set_data_format", "preamble", "fetch_waveform",
+            "set_fixture_capacitance",
+        }
+        if name not in allowed:
+            raise AttributeError(f"{type(self).__name__} has no method {name!r}")
+        method = getattr(self._driver, name)
+
+        def call(*args: Any, **kwargs: Any) -> Any:
+            self._before()
+            return method(*args, **kwargs)
+
+        call.__name__ = name
+        return call
+
+
 GUARDS: dict[str, type[Guarded]] = {
     "dc_source": GuardedSource,
     "electronic_load": GuardedLoad,
     "power_meter": GuardedMeter,
+    "loop_analyzer": GuardedAnalyzer,
+    "oscilloscope": GuardedScope,
 }
 
 

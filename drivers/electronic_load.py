@@ -3,15 +3,22 @@
 Mode selection [SOURce:]FUNCtion[:MODE] CURRent|RESistance, levels
 [SOURce:]CURRent[:LEVel][:IMMediate][:AMPLitude] and [SOURce:]RESistance..., input switch
 INPut[:STATe], readings MEASure[:SCALar]:VOLTage|CURRent|POWer[:DC]?.
+
+Dynamic mode (commands of our own under SCPI-1999 names): two current levels A and B,
+one slew rate for both edges, either a continuous square wave at a repetition rate or
+single steps, one per trigger (TRIGger[:IMMediate]), with a trigger output pulsed at
+each step for the scope.
 """
 
 from __future__ import annotations
 
+import math
 from typing import ClassVar, Literal
 
 from drivers.scpi_driver import ScpiDriver
 
 LoadMode = Literal["CC", "CR"]
+TransientMode = Literal["single", "continuous"]
 
 _MODE_WORDS = {"CC": "CURR", "CR": "RES"}
 _MODE_FROM_ANSWER = {"CURR": "CC", "CURRENT": "CC", "RES": "CR", "RESISTANCE": "CR"}
@@ -35,6 +42,16 @@ class ElectronicLoad(ScpiDriver):
         "measure_voltage": "MEAS:VOLT?",
         "measure_current": "MEAS:CURR?",
         "measure_power": "MEAS:POW?",
+        "set_transient_a": "CURR:TRAN:ALEV {value:.6g}",
+        "set_transient_b": "CURR:TRAN:BLEV {value:.6g}",
+        "set_transient_slew": "CURR:TRAN:SLEW {value:.6g}",
+        "set_transient_mode": "CURR:TRAN:MODE {mode}",
+        "set_transient_frequency": "CURR:TRAN:FREQ {value:.6g}",
+        "set_transient_state": "CURR:TRAN {state}",
+        "get_transient_state": "CURR:TRAN?",
+        "get_transient_level": "CURR:TRAN:LEV?",
+        "trigger_step": "TRIG",
+        "set_trigger_out": "OUTP:TRIG {state}",
     }
 
     def set_mode(self, mode: LoadMode) -> None:
@@ -87,6 +104,43 @@ class ElectronicLoad(ScpiDriver):
 
     def measure_power(self) -> float:
         return self.query_float("measure_power")
+
+    # -- dynamic mode ----------------------------------------------------------------
+
+    def set_transient(self, level_a_a: float, level_b_a: float, *, slew_a_per_s: float,
+                      mode: TransientMode = "single", frequency_hz: float | None = None) -> None:
+        """Program the dynamic mode: levels A (start) and B in A, edge slew in A/s,
+        ``single`` (one step per :meth:`trigger_step`) or ``continuous`` at ``frequency_hz``."""
+        if mode not in ("single", "continuous"):
+            raise ValueError(f"transient mode must be 'single' or 'continuous', not {mode!r}")
+        if not (math.isfinite(slew_a_per_s) and slew_a_per_s > 0):
+            raise ValueError(f"slew_a_per_s must be a positive number of A/s, got {slew_a_per_s!r}")
+        if mode == "continuous" and not (frequency_hz is not None and frequency_hz > 0):
+            raise ValueError("continuous mode needs a positive frequency_hz")
+        self.write("set_transient_a", value=level_a_a)
+        self.write("set_transient_b", value=level_b_a)
+        self.write("set_transient_slew", value=slew_a_per_s)
+        self.write("set_transient_mode", mode="SING" if mode == "single" else "CONT")
+        if frequency_hz is not None:
+            self.write("set_transient_frequency", value=frequency_hz)
+
+    def set_transient_enabled(self, on: bool) -> None:
+        """Dynamic mode on (draws level A, or the square wave) or off (back to the static setpoint)."""
+        self.write("set_transient_state", state=self.on_off(on))
+
+    def transient_enabled(self) -> bool:
+        return self.query_bool("get_transient_state")
+
+    def transient_level(self) -> float:
+        """The level drawn now in single mode (A), or the mean of the square wave."""
+        return self.query_float("get_transient_level")
+
+    def trigger_step(self) -> None:
+        """Single mode: step once to the other level (A→B, then B→A), pulsing the trigger output."""
+        self.write("trigger_step")
+
+    def set_trigger_out(self, on: bool) -> None:
+        self.write("set_trigger_out", state=self.on_off(on))
 
     def safe_state(self) -> None:
         self.set_input(False)

@@ -9,6 +9,23 @@ naming the instrument, the command and the SCPI error.
 
 A station file may override any entry of the command table for an instrument whose
 dialect differs; templates use ``str.format`` fields (``{value}``, ``{state}``).
+
+Robustness (station ``options``: ``retries``, default 2; ``retry_delay_s``, default 0.05):
+
+* Queries that only read (``query``, ``query_float``, ``query_bool``, ``identify``) are
+  retried up to ``retries`` times when the connection is lost or the answer times out,
+  with a fresh connection before each new attempt; every attempt is logged. The error
+  queue (``SYSTem:ERRor?``) is never re-asked blindly: reading it removes an entry.
+* A setting is never re-sent blindly. When it or its error check fails, the driver
+  reconnects if needed, reads the setting back with its getter (``get_x`` beside
+  ``set_x`` in the command table) and sends it again only if the read-back differs; a
+  setting without a getter is not re-sent and the error is raised.
+* An instrument that reset itself is caught: the error check after each setting asks
+  ``*ESR?`` in the same message as ``SYSTem:ERRor?`` (no extra round trip) and the
+  power-on bit PON (128, IEEE 488.2-1992 §11.5.1.1.8, from memory) raises
+  :class:`InstrumentStateError`; after every reconnect ``*IDN?`` must match the identity
+  read at open, PON must be clear and every setting made so far must read back as
+  programmed (an output believed on that reads off stops the run the same way).
 """
 
 from __future__ import annotations
@@ -16,6 +33,7 @@ from __future__ import annotations
 import logging
 import math
 import threading
+import time
 from dataclasses import dataclass
 from typing import Any, ClassVar, Mapping
 
@@ -23,6 +41,7 @@ from benchctl.errors import (
     InstrumentConnectionError,
     InstrumentError,
     InstrumentResponseError,
+    InstrumentStateError,
     InstrumentTimeout,
     ScpiError,
     StationFileError,
@@ -88,6 +107,62 @@ def _on_off(state: bool) -> str:
     return "ON" if state else "OFF"
 
 
+#: Power-on bit of the Standard Event Status Register (IEEE 488.2-1992 §11.5.1.1.8, from memory).
+ESR_POWER_ON = 128
+DEFAULT_RETRIES = 2
+DEFAULT_RETRY_DELAY_S = 0.05
+_RETRYABLE = (InstrumentTimeout, InstrumentConnectionError)
+
+
+def _option_number(options: Mapping[str, Any], key: str, default: float, low: float, high: float,
+                   whole: bool) -> float:
+    value = options.get(key, default)
+    ok = isinstance(value, (int, float)) and not isinstance(value, bool) and low <= value <= high
+    if ok and whole:
+        ok = float(value) == int(value)
+    if not ok:
+        kind = "a whole number" if whole else "a number"
+        raise StationFileError(f"options.{key} = {value!r} must be {kind} in [{low:g}, {high:g}]; "
+                               f"fix it in the station file (default {default:g})")
+    return value
+
+
+def _bare(exc: InstrumentError) -> str:
+    """The message of ``exc`` without the 'instrument X, command Y: ' prefix InstrumentError adds."""
+    text = str(exc)
+    where = []
+    if exc.instrument:
+        where.append(f"instrument {exc.instrument}")
+    if exc.command:
+        where.append(f"command {exc.command!r}")
+    head = ", ".join(where) + ": " if where else ""
+    return text[len(head):] if head and text.startswith(head) else text
+
+
+def _read_back_matches(fields: Mapping[str, Any], answer: str) -> bool | None:
+    """Whether a getter's ``answer`` shows the setting made with ``fields``; None when it cannot tell."""
+    if len(fields) != 1:
+        return None
+    (value,) = fields.values()
+    text = answer.strip().strip('"').upper()
+    if isinstance(value, bool):
+        value = _on_off(value)
+    if isinstance(value, (int, float)):
+        try:
+            got = float(text.split(",")[0])
+        except ValueError:
+            return None
+        # templates send 6 significant digits ({value:.6g}): compare at that resolution
+        return math.isclose(got, float(value), rel_tol=2e-6, abs_tol=1e-12)
+    if isinstance(value, str):
+        word = value.strip().upper()
+        if word in ("ON", "OFF"):
+            return text in (("1", "ON") if word == "ON" else ("0", "OFF"))
+        # SCPI answers the short form of a long word (CURRent -> CURR)
+        return bool(text) and (text == word or word.startswith(text) or text.startswith(word))
+    return None
+
+
 class ScpiDriver:
     """A SCPI instrument reached through pyvisa.
 
@@ -102,6 +177,7 @@ class ScpiDriver:
         "reset": "*RST",
         "clear_status": "*CLS",
         "operation_complete": "*OPC?",
+        "event_status": "*ESR?",
         "next_error": "SYST:ERR?",
     }
 
@@ -123,6 +199,13 @@ class ScpiDriver:
         self._lock = threading.RLock()
         self.identity: Identity | None = None
         self.last_command = ""
+        self.retries = int(_option_number(self.options, "retries", DEFAULT_RETRIES, 0, 10, True))
+        self.retry_delay_s = float(_option_number(self.options, "retry_delay_s", DEFAULT_RETRY_DELAY_S, 0, 10, False))
+        #: How many times the session was re-established after a failure.
+        self.reconnects = 0
+        self._wanted_open = False
+        # The last successful setting of each command key (fields), for read-back after a reconnect.
+        self._settings: dict[str, dict[str, Any]] = {}
 
     # -- command table -------------------------------------------------------------
 
@@ -160,44 +243,55 @@ class ScpiDriver:
     # -- session -------------------------------------------------------------------
 
     def open(self) -> "ScpiDriver":
-        """Open the VISA session and read the identity. Safe to call twice."""
+        """Open the VISA session and read the identity. Safe to call twice.
+
+        The power-on bit of ``*ESR?`` is read (and so cleared) here, so a later PON means
+        the instrument reset while this driver used it.
+        """
         with self._lock:
             if self._session is not None:
                 return self
-            import pyvisa
-
-            try:
-                session = resource_manager().open_resource(
-                    self.resource,
-                    read_termination="\n",
-                    write_termination="\n",
-                    timeout=int(self.timeout_s * 1000),
-                )
-            except pyvisa.errors.VisaIOError as exc:
-                raise InstrumentConnectionError(
-                    f"cannot open VISA resource {self.resource!r} ({exc.description}); "
-                    "check the resource string in the station file, that the instrument is on "
-                    "and reachable (for the simulated bench: that `benchctl sim` is running)",
-                    instrument=self.name,
-                ) from exc
-            except (OSError, ValueError) as exc:
-                raise InstrumentConnectionError(
-                    f"cannot open VISA resource {self.resource!r}: {exc}; check the resource "
-                    "string and that the instrument is reachable",
-                    instrument=self.name,
-                ) from exc
-            _disable_nagle(session)
-            self._session = session
+            self._open_session()
         try:
-            self.identity = self.identify()
+            self.identity = self._identify_once()
+            self._read_event_status()
         except Exception:
             self.close()
             raise
+        self._wanted_open = True
+        self._settings.clear()
         return self
+
+    def _open_session(self) -> None:
+        import pyvisa
+
+        try:
+            session = resource_manager().open_resource(
+                self.resource,
+                read_termination="\n",
+                write_termination="\n",
+                timeout=int(self.timeout_s * 1000),
+            )
+        except pyvisa.errors.VisaIOError as exc:
+            raise InstrumentConnectionError(
+                f"cannot open VISA resource {self.resource!r} ({exc.description}); "
+                "check the resource string in the station file, that the instrument is on "
+                "and reachable (for the simulated bench: that `benchctl sim` is running)",
+                instrument=self.name,
+            ) from exc
+        except (OSError, ValueError) as exc:
+            raise InstrumentConnectionError(
+                f"cannot open VISA resource {self.resource!r}: {exc}; check the resource "
+                "string and that the instrument is reachable",
+                instrument=self.name,
+            ) from exc
+        _disable_nagle(session)
+        self._session = session
 
     def close(self) -> None:
         """Close the session. Safe to call twice; never raises."""
         with self._lock:
+            self._wanted_open = False
             session, self._session = self._session, None
         if session is not None:
             try:
@@ -207,7 +301,91 @@ class ScpiDriver:
 
     @property
     def is_open(self) -> bool:
-        return self._session is not None
+        """True from a successful :meth:`open` until :meth:`close`, also while a lost
+        connection is being re-established (so a shutdown still tries to reach it)."""
+        return self._wanted_open
+
+    def _drop_session(self) -> None:
+        with self._lock:
+            session, self._session = self._session, None
+        if session is not None:
+            try:
+                session.close()
+            except Exception as exc:
+                logger.debug("%s: error while dropping the session: %s", self.name, exc)
+
+    def _reconnect(self, *, skip_key: str | None = None) -> None:
+        """A fresh session; then the same identity, no power-on since, and every setting as programmed."""
+        with self._lock:
+            if not self._wanted_open:
+                raise InstrumentConnectionError("the session is closed; call open() first", instrument=self.name)
+            self._drop_session()
+            self.reconnects += 1
+            logger.warning("%s: reconnecting to %s (reconnect %d)", self.name, self.resource, self.reconnects)
+            self._open_session()
+            identity = self._identify_once()
+            if self.identity is not None and identity != self.identity:
+                raise InstrumentStateError(
+                    f"after reconnecting, *IDN? answers '{identity}' but '{self.identity}' answered when the run "
+                    f"opened {self.resource}; another instrument is there now. Check the wiring and the "
+                    "resource string, then start the run again",
+                    instrument=self.name, command=self.commands["identify"],
+                )
+            esr = self._read_event_status()
+            if esr is not None and esr & ESR_POWER_ON:
+                raise InstrumentStateError(
+                    "after reconnecting, *ESR? shows the power-on bit: the instrument was reset or power-cycled "
+                    "and every setting made before is lost; the run stops so no point is taken on wrong "
+                    "settings. Check its mains and connection, then start the run again",
+                    instrument=self.name, command=self.commands["event_status"],
+                )
+            for key, fields in list(self._settings.items()):
+                if key == skip_key:
+                    continue
+                getter = self._getter_for(key)
+                if getter is None:
+                    continue
+                answer = self.ask(self.command(getter))
+                if _read_back_matches(fields, answer) is False:
+                    raise InstrumentStateError(
+                        f"after reconnecting, {self.command(getter)!r} reads {answer!r} but "
+                        f"{self.command(key, **fields)!r} was programmed: the instrument lost its settings "
+                        "(reset, power cycle or its own protection?); the run stops so no point is taken on "
+                        "wrong settings. Check the instrument, then start the run again",
+                        instrument=self.name, command=self.command(getter),
+                    )
+
+    def _getter_for(self, key: str) -> str | None:
+        """The command-table key that reads back setting ``key`` (``set_x`` -> ``get_x``), if any."""
+        if key.startswith("set_"):
+            getter = "get_" + key[4:]
+            if getter in self.commands:
+                return getter
+        return None
+
+    def _retrying(self, text: str, exchange: Any) -> Any:
+        """Run an idempotent ``exchange()``; on a lost connection or a timeout reconnect and try again."""
+        attempts = 1 + self.retries
+        with self._lock:
+            for attempt in range(1, attempts + 1):
+                try:
+                    if self._session is None and self._wanted_open:
+                        self._reconnect()
+                    return exchange()
+                except _RETRYABLE as exc:
+                    if attempt == attempts or not self._wanted_open:
+                        if attempt == 1:
+                            raise
+                        raise type(exc)(
+                            f"{_bare(exc)} (gave up after {attempts} attempts with a reconnect before each retry)",
+                            instrument=self.name, command=exc.command or text,
+                        ) from exc
+                    logger.warning("%s: %r failed (attempt %d of %d): %s; reconnecting and asking again",
+                                   self.name, text, attempt, attempts, exc)
+                    self._drop_session()
+                    if self.retry_delay_s:
+                        time.sleep(self.retry_delay_s)
+        raise AssertionError("unreachable")  # pragma: no cover
 
     def __enter__(self) -> "ScpiDriver":
         return self.open()
@@ -217,6 +395,10 @@ class ScpiDriver:
 
     def _require_session(self) -> Any:
         if self._session is None:
+            if self._wanted_open:
+                raise InstrumentConnectionError(
+                    f"the connection to {self.resource} was lost and could not be re-established; check the "
+                    "instrument is on and reachable", instrument=self.name)
             raise InstrumentConnectionError(
                 "the session is not open; call open() first", instrument=self.name
             )
@@ -281,34 +463,124 @@ class ScpiDriver:
     # -- SCPI helpers ---------------------------------------------------------------
 
     def write(self, key: str, **fields: Any) -> None:
-        """Send setting ``key`` and raise if the instrument queued an error for it."""
+        """Send setting ``key`` and raise if the instrument queued an error for it.
+
+        The check asks ``*ESR?`` and ``SYSTem:ERRor?`` in one message; a power-on bit
+        raises :class:`InstrumentStateError`. On a lost connection, a timeout or a
+        malformed check answer the setting is read back and re-sent only if it differs.
+        """
         text = self.command(key, **fields)
         with self._lock:
-            self.send(text)
-            self.raise_on_errors(text)
+            try:
+                self.send(text)
+                self._check_setting(text)
+            except (*_RETRYABLE, InstrumentResponseError) as exc:
+                self._recover_setting(key, fields, text, exc)
+            self._settings[key] = dict(fields)
+
+    def _status_query(self) -> str:
+        esr, err = self.commands["event_status"], self.commands["next_error"]
+        return f"{esr};{err if err.startswith((':', '*')) else ':' + err}"
+
+    def _check_setting(self, text: str) -> None:
+        check = self._status_query()
+        try:
+            answer = self.ask(check)
+        except InstrumentError as exc:
+            raise type(exc)(f"{_bare(exc)} (while checking {text!r})", instrument=self.name, command=text) from exc
+        esr_text, sep, error_text = answer.partition(";")
+        try:
+            esr = int(float(esr_text))
+            code = int(error_text.partition(",")[0]) if sep else None
+        except ValueError:
+            code = None
+        if code is None:
+            raise InstrumentResponseError(
+                f"the check {check!r} after the setting answered {answer!r}, not '<ESR>;<code>,\"<message>\"'",
+                instrument=self.name, command=text)
+        if esr & ESR_POWER_ON:
+            raise InstrumentStateError(
+                f"*ESR? shows the power-on bit after {text!r}: the instrument was reset or power-cycled and every "
+                "setting made before is lost; the run stops so no point is taken on wrong settings. Check its "
+                "mains and connection, then start the run again",
+                instrument=self.name, command=text)
+        if code != 0:
+            first = (code, error_text.partition(",")[2].strip().strip('"'))
+            self._raise_scpi([first] + self.read_errors(), text)
+
+    def _recover_setting(self, key: str, fields: Mapping[str, Any], text: str, first: InstrumentError) -> None:
+        """After ``text`` failed with ``first``: reconnect if needed, read back, re-send only if it differs."""
+        getter = self._getter_for(key)
+        if getter is None:
+            raise type(first)(
+                f"{_bare(first)}; the setting has no read-back command, so whether it took effect is unknown and "
+                "it is not sent again blindly. Check the instrument, then start the run again",
+                instrument=self.name, command=text) from first
+        attempts = max(1, self.retries)
+        exc: InstrumentError = first
+        for attempt in range(1, attempts + 1):
+            logger.warning("%s: setting %r failed (%s); verifying it by read-back (attempt %d of %d)",
+                           self.name, text, exc, attempt, attempts)
+            try:
+                if isinstance(exc, _RETRYABLE) or self._session is None:
+                    if attempt > 1 and self.retry_delay_s:
+                        time.sleep(self.retry_delay_s)
+                    self._reconnect(skip_key=key)
+                answer = self.ask(self.command(getter))
+            except (*_RETRYABLE, InstrumentResponseError) as again:
+                exc = again
+                continue
+            match = _read_back_matches(fields, answer)
+            if match is None:
+                raise InstrumentResponseError(
+                    f"read-back {self.command(getter)!r} answered {answer!r}, which cannot be compared with "
+                    f"{text!r}; the setting is not sent again blindly", instrument=self.name, command=text) from first
+            if match:
+                errors = self.read_errors()
+                if errors:
+                    self._raise_scpi(errors, text)
+                logger.warning("%s: read-back shows %r took effect; not sent again", self.name, text)
+                return
+            logger.warning("%s: read-back %r differs from %r; sending the setting again", self.name, answer, text)
+            try:
+                self.send(text)
+                self._check_setting(text)
+                return
+            except (*_RETRYABLE, InstrumentResponseError) as again:
+                exc = again
+        raise type(exc)(
+            f"{_bare(exc)} (setting not confirmed after {attempts} read-back attempt(s) with reconnects)",
+            instrument=self.name, command=text) from exc
 
     def query(self, key: str, **fields: Any) -> str:
-        return self.ask(self.command(key, **fields))
+        text = self.command(key, **fields)
+        if key == "next_error":  # reading the error queue removes an entry: never retried
+            return self.ask(text)
+        return self._retrying(text, lambda: self.ask(text))
 
     def query_float(self, key: str, **fields: Any) -> float:
         text = self.command(key, **fields)
-        answer = self.ask(text)
-        try:
-            value = float(answer.split(",")[0])
-        except ValueError:
-            self.raise_on_errors(text)
-            raise InstrumentResponseError(
-                f"expected a number, got {answer!r}", instrument=self.name, command=text
-            ) from None
-        if not math.isfinite(value):
-            raise InstrumentResponseError(
-                f"expected a finite number, got {answer!r}", instrument=self.name, command=text
-            )
-        return value
+
+        def exchange() -> float:
+            answer = self.ask(text)
+            try:
+                value = float(answer.split(",")[0])
+            except ValueError:
+                self.raise_on_errors(text)
+                raise InstrumentResponseError(
+                    f"expected a number, got {answer!r}", instrument=self.name, command=text
+                ) from None
+            if not math.isfinite(value):
+                raise InstrumentResponseError(
+                    f"expected a finite number, got {answer!r}", instrument=self.name, command=text
+                )
+            return value
+
+        return self._retrying(text, exchange)
 
     def query_bool(self, key: str, **fields: Any) -> bool:
         text = self.command(key, **fields)
-        answer = self.ask(text).upper()
+        answer = self._retrying(text, lambda: self.ask(text)).upper()
         if answer in ("1", "ON"):
             return True
         if answer in ("0", "OFF"):
@@ -339,28 +611,44 @@ class ScpiDriver:
     def raise_on_errors(self, command: str) -> None:
         errors = self.read_errors()
         if errors:
-            code, message = errors[0]
-            more = f" (and {len(errors) - 1} more: {errors[1:]})" if len(errors) > 1 else ""
-            raise ScpiError(
-                f"SCPI error {code} {message!r}{more}; check the value is within the instrument's "
-                "range and the command matches its dialect (override it in the station file if not)",
-                code=code,
-                instrument=self.name,
-                command=command,
-            )
+            self._raise_scpi(errors, command)
+
+    def _raise_scpi(self, errors: list[tuple[int, str]], command: str) -> None:
+        code, message = errors[0]
+        more = f" (and {len(errors) - 1} more: {errors[1:]})" if len(errors) > 1 else ""
+        raise ScpiError(
+            f"SCPI error {code} {message!r}{more}; check the value is within the instrument's "
+            "range and the command matches its dialect (override it in the station file if not)",
+            code=code,
+            instrument=self.name,
+            command=command,
+        )
 
     def identify(self) -> Identity:
-        answer = self.query("identify")
+        return self._retrying(self.commands["identify"], self._identify_once)
+
+    def _identify_once(self) -> Identity:
+        answer = self.ask(self.commands["identify"])
         try:
             return Identity.parse(answer)
         except ValueError as exc:
             raise InstrumentResponseError(str(exc), instrument=self.name, command="*IDN?") from exc
+
+    def _read_event_status(self) -> int | None:
+        """Read (and so clear) ``*ESR?``; None when the answer is not a number."""
+        answer = self.ask(self.commands["event_status"])
+        try:
+            return int(float(answer))
+        except ValueError:
+            logger.debug("%s: *ESR? answered %r, not a number", self.name, answer)
+            return None
 
     def reset(self) -> None:
         """Reset to the instrument's default state (*RST), clear status (*CLS) and check."""
         with self._lock:
             self.send(self.command("reset"))
             self.send(self.command("clear_status"))
+            self._settings.clear()  # *RST returned every setting to its default
             self.wait_complete()
             self.raise_on_errors(self.command("reset"))
 

@@ -16,6 +16,8 @@ from typing import Any
 
 from .converter import DESIGNS, ConverterModel, ScaledClock
 from .instruments import SimulatedDcSource, SimulatedElectronicLoad, SimulatedPowerMeter
+from .instruments.loop_analyzer import SimulatedLoopAnalyzer
+from .instruments.oscilloscope import SimulatedOscilloscope
 from .scpi import ScpiServer
 
 logger = logging.getLogger(__name__)
@@ -26,6 +28,8 @@ ROLE_DRIVERS = {
     "load": "electronic_load",
     "input_meter": "power_meter",
     "output_meter": "power_meter",
+    "analyzer": "loop_analyzer",
+    "scope": "oscilloscope",
 }
 
 
@@ -67,6 +71,8 @@ class SimulatedBench:
             "load": SimulatedElectronicLoad(self.model, serial=f"L{seed:04d}", seed=seed),
             "input_meter": SimulatedPowerMeter(self.model, "input", serial=f"MI{seed:04d}", seed=seed),
             "output_meter": SimulatedPowerMeter(self.model, "output", serial=f"MO{seed:04d}", seed=seed),
+            "analyzer": SimulatedLoopAnalyzer(self.model, serial=f"A{seed:04d}", seed=seed),
+            "scope": SimulatedOscilloscope(self.model, serial=f"O{seed:04d}", seed=seed),
         }
         self.servers = {
             role: ScpiServer(inst, port=(base_port + k if base_port else 0))

@@ -29,8 +29,8 @@ def pol_buck_start() -> RunStart:
 
 
 @pytest.fixture(scope="module")
-def store(tmp_path_factory):
-    with Store.open(tmp_path_factory.mktemp("arrays") / "arrays.db", recover=False) as s:
+def store(module_store_url):  # SQLite and PostgreSQL (tests/conftest.py)
+    with Store.open(module_store_url, recover=False) as s:
         yield s
 
 
@@ -136,8 +136,8 @@ def test_any_numeric_array_round_trips_bit_exact(store, run_id, data):
     assert got.tobytes() == data.astype(data.dtype.newbyteorder("<")).tobytes()
 
 
-def test_listing_and_lookup_errors(tmp_path):
-    with Store.open(tmp_path / "list.db") as store:
+def test_listing_and_lookup_errors(store_url):
+    with Store.open(store_url) as store:
         run_id = store.begin_run(pol_buck_start())
         store.record_point(run_id, {"vin_v": 12.0})
         store.record_array(run_id, "bode", {"freq_hz": np.array([1e3, 1e4]), "gain_db": np.array([20.0, 0.0])},

@@ -1,4 +1,7 @@
-"""Round trip through the store: provenance, points (wide and long), units, events, results."""
+"""Round trip through the store: provenance, points (wide and long), units, events, results.
+
+Every test taking ``store_url`` (tests/conftest.py) runs on SQLite and on PostgreSQL.
+"""
 
 from __future__ import annotations
 
@@ -63,8 +66,8 @@ def flyback_start(**overrides: object) -> RunStart:
 
 
 @pytest.fixture()
-def store(tmp_path):
-    with Store.open(tmp_path / "runs.db", clock=FakeClock(), recover=False) as s:
+def store(store_url):
+    with Store.open(store_url, clock=FakeClock(), recover=False) as s:
         yield s
 
 
@@ -73,9 +76,9 @@ def test_sha256_helper_matches_published_vector():
     assert sha256_hex("abc") == "ba7816bf8f01cfea414140de5dae2223b00361a396177a9cb410ff61f20015ad"
 
 
-def test_provenance_round_trip(tmp_path):
+def test_provenance_round_trip(store_url):
     clock = FakeClock(start_s=1_700_000_000.0, step_s=0.25)
-    store = Store.open(tmp_path / "runs.db", clock=clock, recover=False)
+    store = Store.open(store_url, clock=clock, recover=False)
     start = flyback_start()
     clock.t = 1_700_000_000.0  # the run's start is the next tick
     run_id = store.begin_run(start)
@@ -231,8 +234,8 @@ def test_sequence_numbers_of_two_runs_are_independent(store):
     assert store.points(buck)["iout_a"].tolist() == [0.0, 2.0, 3.0, 4.0, 6.0, 7.0, 8.0]
 
 
-def test_a_reopened_store_continues_the_sequence(tmp_path):
-    path = tmp_path / "resume.db"
+def test_a_reopened_store_continues_the_sequence(store_url):
+    path = store_url
     with Store.open(path, recover=False) as s:
         run_id = s.begin_run(flyback_start())
         s.record_point(run_id, {"vin_v": 36.0})
@@ -291,9 +294,9 @@ def test_events_and_results_round_trip(store):
     assert results["details"].iloc[2] == "DCM below 0.4 A"
 
 
-def test_runs_listing_filters_and_latest(tmp_path):
+def test_runs_listing_filters_and_latest(store_url):
     clock = FakeClock(step_s=60.0)
-    with Store.open(tmp_path / "runs.db", clock=clock, recover=False) as store:
+    with Store.open(store_url, clock=clock, recover=False) as store:
         with pytest.raises(StoreError, match="no runs"):
             store.resolve_run("latest")
         a = store.begin_run(flyback_start())
@@ -328,14 +331,14 @@ def test_runs_listing_filters_and_latest(tmp_path):
             store.resolve_run("newest")
 
 
-def test_close_twice_and_use_after_close(tmp_path):
-    store = Store.open(tmp_path / "c.db")
+def test_close_twice_and_use_after_close(store_url):
+    store = Store.open(store_url)
     store.close()
     store.close()  # safe twice
     assert store.closed
     with pytest.raises(StoreError, match="closed"):
         store.runs()
-    with Store.open(tmp_path / "c.db") as again:
+    with Store.open(store_url) as again:
         assert again.runs().empty
     assert again.closed
 
@@ -347,10 +350,10 @@ def test_in_memory_sqlite_url(tmp_path):
         assert store.points(run_id)["vout_v"].tolist() == [1.2]
 
 
-def test_second_writer_of_the_same_run_is_refused_whole(tmp_path):
+def test_second_writer_of_the_same_run_is_refused_whole(store_url):
     # Documented limit: one writer per run. The refused point must leave nothing behind
     # (a transaction is atomic: SQLite docs, "Atomic Commit In SQLite").
-    path = tmp_path / "two_writers.db"
+    path = store_url
     with Store.open(path, recover=False) as a, Store.open(path, recover=False) as b:
         run_id = a.begin_run(flyback_start())
         assert a.record_point(run_id, {"vin_v": 36.0, "iout_a": 1.0}) == 1

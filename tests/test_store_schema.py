@@ -16,14 +16,20 @@ def _start() -> RunStart:
                     station_name="sim-flyback")
 
 
-def test_new_store_has_meta_row_with_version_1(tmp_path):
+def test_new_store_has_meta_row_and_head_revision(tmp_path):
     path = tmp_path / "new.db"
     Store.open(path).close()
     # read with the stdlib sqlite3 module, independent of the store's code
     with sqlite3.connect(path) as raw:
         rows = raw.execute("SELECT id, schema_version FROM meta").fetchall()
-    assert SCHEMA_VERSION == 1
-    assert rows == [(1, 1)]
+        revisions = raw.execute("SELECT version_num FROM alembic_version").fetchall()
+    assert rows == [(1, SCHEMA_VERSION)]
+    # the revision Alembic itself reports as head of the shipped scripts (alembic.script.ScriptDirectory)
+    from alembic.script import ScriptDirectory
+
+    from benchctl.store.migrate import MIGRATIONS_DIR
+
+    assert revisions == [(ScriptDirectory(str(MIGRATIONS_DIR)).get_current_head(),)]
 
 
 def test_sqlite_pragmas_wal_full_foreign_keys(tmp_path):
@@ -52,7 +58,7 @@ def test_foreign_keys_are_enforced(tmp_path):
             dbapi.rollback()
 
 
-@pytest.mark.parametrize("other_version", [2, 0])
+@pytest.mark.parametrize("other_version", [SCHEMA_VERSION + 1, 1])
 def test_other_schema_version_is_refused_with_both_versions_named(tmp_path, other_version):
     path = tmp_path / "versioned.db"
     with Store.open(path) as store:
@@ -60,13 +66,17 @@ def test_other_schema_version_is_refused_with_both_versions_named(tmp_path, othe
         store.record_point(run_id, {"vin_v": 48.0})
     with sqlite3.connect(path) as raw:
         raw.execute("UPDATE meta SET schema_version = ?", (other_version,))
+        raw.execute("UPDATE alembic_version SET version_num = ?", (f"{other_version:04d}",))
     with pytest.raises(SchemaVersionError) as info:
         Store.open(path)
     text = str(info.value)
     assert f"schema version {other_version}" in text
     assert f"needs schema version {SCHEMA_VERSION}" in text
     assert str(path) in text
-    assert ("upgrade benchctl" in text) if other_version > SCHEMA_VERSION else ("migrate" in text)
+    if other_version > SCHEMA_VERSION:
+        assert "upgrade benchctl" in text and "newer" in text
+    else:
+        assert f"benchctl db upgrade --db sqlite:///{path}" in text
     # refusing must not have touched the file: the point is still there, version unchanged
     with sqlite3.connect(path) as raw:
         assert raw.execute("SELECT schema_version FROM meta").fetchone()[0] == other_version

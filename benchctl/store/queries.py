@@ -92,6 +92,7 @@ def run_info(conn: Connection, run_id: int) -> RunInfo:
     n_points = conn.execute(select(func.count()).select_from(s.points).where(s.points.c.run_id == run_id)).scalar()
     return RunInfo(
         run_id=int(row.id),
+        run_uuid=row.run_uuid,
         procedure=row.procedure,
         procedure_sha256=row.procedure_sha256,
         parameters=from_json(row.parameters_json),
@@ -129,7 +130,7 @@ def list_runs(
     """Runs matching every given filter, newest first.
 
     ``since`` is an aware datetime or UTC epoch seconds; runs started at or after it match.
-    Columns: run_id, procedure, status, station, dut_part, dut_revision, dut_serial,
+    Columns: run_id, run_uuid, procedure, status, station, dut_part, dut_revision, dut_serial,
     operator, host, pid, job_id, started_utc, ended_utc, n_points, message,
     benchctl_version, procedure_sha256.
     """
@@ -142,6 +143,7 @@ def list_runs(
     query = (
         select(
             r.c.id.label("run_id"),
+            r.c.run_uuid,
             r.c.procedure,
             r.c.status,
             st.c.name.label("station"),
@@ -182,6 +184,7 @@ def list_runs(
     frame = pd.DataFrame(
         {
             "run_id": pd.Series([row.run_id for row in rows], dtype="int64"),
+            "run_uuid": [row.run_uuid for row in rows],
             "procedure": [row.procedure for row in rows],
             "status": [row.status for row in rows],
             "station": [row.station for row in rows],

@@ -71,7 +71,9 @@ class RunStart:
 
     ``parameters`` must be JSON-serialisable (numpy scalars and arrays are converted).
     ``station_sha256`` is computed from ``station_text`` when the text is given; give
-    the hash alone when the text must not be stored. ``job_id`` groups runs of one
+    the hash alone when the text must not be stored. The text is stored with the
+    password of any URL in it masked (``station.database``); the hash is of the file
+    as given. ``job_id`` groups runs of one
     plan; it is free for the caller to assign.
     """
 
@@ -95,9 +97,14 @@ class RunStart:
 
 @dataclass(frozen=True)
 class RunInfo:
-    """A run as stored, with all its provenance. ``n_points`` counts recorded points."""
+    """A run as stored, with all its provenance. ``n_points`` counts recorded points.
+
+    ``run_id`` is the run's number in this database; ``run_uuid`` names the same run in
+    every database it is copied to (RFC 4122 version 4 text).
+    """
 
     run_id: int
+    run_uuid: str
     procedure: str
     procedure_sha256: str
     parameters: Mapping[str, Any]

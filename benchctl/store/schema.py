@@ -5,7 +5,7 @@ Layout (``→`` is a foreign key)::
     meta            one row: schema_version, created_utc_s, created_by
     stations        name, description, station file text and its sha256
     duts            part_number, revision, serial
-    runs            procedure, procedure_sha256, parameters_json, → stations, → duts,
+    runs            run_uuid, procedure, procedure_sha256, parameters_json, → stations, → duts,
                     operator, host, pid, benchctl_version, job_id, status, message,
                     started_utc_s, ended_utc_s
     instruments     → runs, → stations, role, driver, resource, identity (as found at run start)
@@ -21,7 +21,14 @@ Times are float seconds since the Unix epoch, UTC (portable across engines, 0.2 
 resolution today). Text columns use ``""`` rather than NULL where "unknown" needs
 no distinction, so unique constraints behave the same on every engine.
 
-Only :func:`create_schema` creates tables; a later migration tool replaces it.
+``runs.run_uuid`` (schema version 2) names a run the same way in every database it is
+copied to, so moving a run from a station's file to the shared database is idempotent.
+
+Versions: the layout below is :data:`SCHEMA_VERSION`; each version has one Alembic
+revision in :mod:`benchctl.store.migrations` whose id is the version number written
+with four digits (version 2 = revision ``"0002"``). Only :func:`create_schema` creates
+tables in an empty database (at the head revision); older stores are brought up to
+date by the migrations (``benchctl db upgrade``).
 """
 
 from __future__ import annotations
@@ -37,6 +44,7 @@ from sqlalchemy import (
     Integer,
     LargeBinary,
     MetaData,
+    PrimaryKeyConstraint,
     String,
     Table,
     Text,
@@ -44,8 +52,28 @@ from sqlalchemy import (
 )
 from sqlalchemy.engine import Connection
 
-SCHEMA_VERSION = 1
-"""Integer version of the table layout below; bump it with every layout change."""
+SCHEMA_VERSION = 2
+"""Integer version of the table layout below; bump it with every layout change and add
+the migration that makes it (``benchctl/store/migrations/versions/NNNN_*.py``)."""
+
+VERSION_TABLE = "alembic_version"
+"""Table where Alembic keeps the revision a database is at (Alembic's default name)."""
+
+
+def revision_of_version(version: int) -> str:
+    """Alembic revision id of a schema version: ``2`` -> ``"0002"``."""
+    return f"{int(version):04d}"
+
+
+def version_of_revision(revision: str) -> int | None:
+    """Schema version of an Alembic revision id, ``None`` for an id benchctl never wrote."""
+    text = revision.strip()
+    if len(text) != 4 or not text.isdigit():
+        return None
+    return int(text)
+
+
+HEAD_REVISION = revision_of_version(SCHEMA_VERSION)
 
 metadata = MetaData()
 
@@ -84,6 +112,9 @@ runs = Table(
     "runs",
     metadata,
     Column("id", Integer, primary_key=True),
+    # uuid4 text (RFC 4122); "" only as the column default so ADD COLUMN works on every
+    # engine - every run the store writes or copies has one (unique index below).
+    Column("run_uuid", String(36), nullable=False, server_default=""),
     Column("procedure", String(200), nullable=False),
     Column("procedure_sha256", String(64), nullable=False),
     Column("parameters_json", Text, nullable=False, server_default="{}"),
@@ -104,6 +135,7 @@ runs = Table(
     ),
     Index("runs_status_idx", "status"),
     Index("runs_job_idx", "job_id"),
+    Index("runs_uuid_idx", "run_uuid", unique=True),
 )
 
 instruments = Table(
@@ -203,11 +235,29 @@ array_columns = Table(
 TABLE_NAMES = tuple(metadata.tables)
 
 
+# Alembic's version table, as Alembic itself creates it (alembic.runtime.migration).
+_version_metadata = MetaData()
+alembic_version = Table(
+    VERSION_TABLE,
+    _version_metadata,
+    Column("version_num", String(32), nullable=False),
+    PrimaryKeyConstraint("version_num", name="alembic_version_pkc"),
+)
+
+
 def create_schema(conn: Connection, *, created_utc_s: float, created_by: str) -> None:
-    """Create every table and the meta row in an empty database (inside ``conn``'s transaction)."""
+    """Create every table and the meta row in an empty database (inside ``conn``'s
+    transaction), stamped with the head revision.
+
+    Method: create the current tables, then record the head revision - the way Alembic
+    documents for a new database (Alembic docs, "Cookbook: Building an Up to Date
+    Database from Scratch"); the test suite checks it equals running every migration.
+    """
     metadata.create_all(conn)
+    _version_metadata.create_all(conn)
+    conn.execute(alembic_version.insert().values(version_num=HEAD_REVISION))
     conn.execute(
         meta.insert().values(
-            id=1, schema_version=SCHEMA_VERSION, created_utc_s=created_utc_s, created_by=created_by
+            id=1, schema_version=SCHEMA_VERSION, created_utc_s=created_utc_s, created_by=created_by[:64]
         )
     )

@@ -1,20 +1,11 @@
 """The measurement store: open a database, check its schema version, recover runs.
 
-SQLite (the default) is opened with:
-
-* ``PRAGMA journal_mode=WAL`` - readers (a report, the CLI) never block the writer and
-  the writer never blocks them (SQLite docs, "Write-Ahead Logging", section 2.2).
-* ``PRAGMA synchronous=FULL`` - the WAL is synced to disk at every commit, so a
-  committed point survives a power loss or OS crash, not only the death of the
-  process. With ``NORMAL`` a WAL database stays consistent but may lose the last
-  commits on power loss (SQLite docs, "PRAGMA synchronous"). A bench can lose mains
-  (an interlock opening a breaker); one fsync per point is cheap next to the seconds
-  a setpoint takes to settle.
-* ``PRAGMA foreign_keys=ON`` - SQLite does not enforce foreign keys unless asked.
-* a busy timeout (sqlite3 ``timeout``), so two writers wait for each other instead of failing at once.
-
-Any other SQLAlchemy URL is used as given; all SQL outside the SQLite connect hook is
-built from the Core tables with bound parameters, so it is portable.
+Opening a store takes one transaction: an empty database gets the current schema
+(:func:`benchctl.store.schema.create_schema`, at the head Alembic revision); a store of
+another schema version is refused, with the command that upgrades it
+(``benchctl db upgrade --db URL``, :mod:`benchctl.store.migrate`); then runs whose
+process is gone are marked interrupted. Engine settings (SQLite pragmas, PostgreSQL
+isolation and locks) are in :mod:`benchctl.store.engine`.
 """
 
 from __future__ import annotations
@@ -23,26 +14,27 @@ import logging
 import os
 import socket
 import time
-from collections.abc import Callable, Mapping
+from collections.abc import Callable, Mapping, Sequence
 from datetime import datetime
 from types import TracebackType
 from typing import Any
 
 import pandas as pd
-from sqlalchemy import create_engine, event, inspect, select
 from sqlalchemy.engine import URL, Connection, Engine
 from sqlalchemy.exc import SQLAlchemyError
-from sqlalchemy.pool import StaticPool
 
 import benchctl
-from benchctl.errors import SchemaVersionError, StoreError
+from benchctl.errors import StoreError
 
-from . import queries
+from . import history, queries
 from . import schema as s
+from .engine import WRITE_OPTIONS, lock_schema, make_engine, read_options
+from .migrate import CURRENT, EMPTY, read_schema_state, refusal
 from .recovery import recover_interrupted
 from .records import ArrayData, RunInfo, RunStart
-from .url import is_sqlite, is_sqlite_memory, mask_url, normalize_url, scrub
-from .writer import WRITE_OPTION, WRITE_OPTIONS, Writer
+from .transfer import CopyReport, copy_runs
+from .url import is_sqlite_memory, mask_url, normalize_url, scrub
+from .writer import Writer
 
 log = logging.getLogger(__name__)
 
@@ -81,7 +73,7 @@ class Store:
         """
         url = normalize_url(url_or_path)
         where = mask_url(url)
-        engine = _make_engine(url, busy_timeout_s)
+        engine = make_engine(url, busy_timeout_s)
         store = cls(engine, url, clock)
         try:
             store._prepare(recover=recover, stale_after_s=stale_after_s)
@@ -116,40 +108,14 @@ class Store:
                 ) from exc
 
     def _check_or_create_schema(self, conn: Connection) -> None:
-        names = set(inspect(conn).get_table_names())
-        if not names:
+        lock_schema(conn)
+        state = read_schema_state(conn, self._url_masked)
+        if state.status == EMPTY:
             s.create_schema(conn, created_utc_s=self._clock(), created_by=f"benchctl {benchctl.__version__}")
             log.info("store %s: created schema version %d", self._url_masked, s.SCHEMA_VERSION)
             return
-        if s.meta.name not in names:
-            raise StoreError(
-                f"{self._url_masked} is a database but not a benchctl store (it has tables "
-                f"{', '.join(sorted(names)[:5])}{' ...' if len(names) > 5 else ''} and no 'meta' table); "
-                "give the path of a benchctl store or of a new file"
-            )
-        version = conn.execute(select(s.meta.c.schema_version).where(s.meta.c.id == 1)).scalar()
-        if version is None:
-            raise StoreError(
-                f"store {self._url_masked} has an empty 'meta' table, so its schema version is unknown; "
-                "it was not written completely by benchctl - restore it from a copy"
-            )
-        if int(version) != s.SCHEMA_VERSION:
-            newer = int(version) > s.SCHEMA_VERSION
-            raise SchemaVersionError(
-                f"store {self._url_masked} has schema version {int(version)}, but benchctl "
-                f"{benchctl.__version__} needs schema version {s.SCHEMA_VERSION}; "
-                + (
-                    "open it with the newer benchctl that wrote it, or upgrade benchctl"
-                    if newer
-                    else "migrate it to the current schema, or open it with the older benchctl that wrote it"
-                )
-            )
-        missing = set(s.TABLE_NAMES) - names
-        if missing:
-            raise StoreError(
-                f"store {self._url_masked} (schema version {version}) lacks tables {', '.join(sorted(missing))}; "
-                "it is damaged - restore it from a copy"
-            )
+        if state.status != CURRENT:
+            raise refusal(state)
 
     def close(self) -> None:
         """Close the store; safe to call more than once."""
@@ -187,7 +153,7 @@ class Store:
     def _read(self, fn: Callable[..., Any], *args: Any, **kwargs: Any) -> Any:
         engine = self._require_open()
         try:
-            with engine.connect() as conn:
+            with engine.connect().execution_options(**read_options(engine)) as conn:
                 return fn(conn, *args, **kwargs)
         except SQLAlchemyError as exc:
             raise StoreError(
@@ -250,6 +216,17 @@ class Store:
         """Store a derived result; ``None`` when it could not be found (say why in ``details``)."""
         self._require_open()
         return self._writer.record_result(run_id, name, value, unit=unit, details=details, scope=scope)
+
+    def reopen_run(self, run_id: int, message: str = "") -> None:
+        """Resume an interrupted or tripped run: status running again, the gap stored as an event."""
+        self._require_open()
+        self._writer.reopen_run(run_id, message)
+
+    def record_results(self, run_id: int, results: Any) -> int:
+        """Store many derived results in one transaction; items are mappings with name,
+        value and optionally unit, details, scope. Returns how many were stored."""
+        self._require_open()
+        return self._writer.record_results(run_id, results)
 
     def record_array(
         self,
@@ -329,49 +306,62 @@ class Store:
         """One array: a mapping column -> numpy array, with ``.units`` and ``.meta``."""
         return self._read(queries.array_data, run_id, name, point_seq)
 
+    # ------------------------------------------------------------ across stations
+    def runs_of_part(
+        self,
+        dut_part: str,
+        *,
+        revision: str | None = None,
+        procedure: str | None = None,
+        status: str | None = None,
+    ) -> pd.DataFrame:
+        """Every run of a DUT part number on any station, oldest first
+        (see :func:`benchctl.store.history.runs_of_part`)."""
+        return self._read(history.runs_of_part, dut_part, revision=revision, procedure=procedure, status=status)
 
-def _make_engine(url: URL, busy_timeout_s: float) -> Engine:
-    where = mask_url(url)
-    try:
-        if not is_sqlite(url):
-            return create_engine(url, pool_pre_ping=True)
-        # sqlite3's ``timeout`` is SQLite's busy timeout: a writer waits that long for a lock.
-        kwargs: dict[str, Any] = {
-            "connect_args": {"check_same_thread": False, "timeout": float(busy_timeout_s)}
-        }
-        memory = is_sqlite_memory(url)
-        if memory:
-            kwargs["poolclass"] = StaticPool  # one shared connection, else each sees its own empty DB
-        engine = create_engine(url, **kwargs)
-    except (SQLAlchemyError, ImportError) as exc:
-        raise StoreError(
-            f"cannot use store URL {where}: {exc}; check the dialect name and that its driver is installed"
-        ) from exc
+    def efficiency_at(
+        self,
+        dut_part: str,
+        *,
+        vin_v: float,
+        iout_a: float,
+        vin_tol_v: float = 1e-6,
+        iout_tol_a: float = 1e-6,
+        vin_name: str = "vin_set_v",
+        iout_name: str = "iout_set_a",
+        pin_name: str = "pin_w",
+        pout_name: str = "pout_w",
+        procedure: str | None = None,
+        status: str | None = "completed",
+    ) -> pd.DataFrame:
+        """Efficiency Pout/Pin of every point of a DUT part at the operating point
+        (``vin_v`` V, ``iout_a`` A), across stations and revisions
+        (see :func:`benchctl.store.history.efficiency_at`; per revision:
+        :func:`benchctl.store.history.summarize_by_revision`)."""
+        return self._read(
+            history.efficiency_at, dut_part, vin_v=vin_v, iout_a=iout_a, vin_tol_v=vin_tol_v,
+            iout_tol_a=iout_tol_a, vin_name=vin_name, iout_name=iout_name, pin_name=pin_name,
+            pout_name=pout_name, procedure=procedure, status=status,
+        )
 
-    @event.listens_for(engine, "connect")
-    def _sqlite_connect(dbapi_conn: Any, _record: Any) -> None:  # SQLite branch only
-        # sqlite3 would open transactions itself, and only before DML, so two SELECTs of one
-        # query would see different snapshots; let SQLAlchemy's "begin" below do it instead
-        # (SQLAlchemy docs, "SQLite - Serializable isolation / Savepoints / Transactional DDL").
-        dbapi_conn.isolation_level = None
-        cur = dbapi_conn.cursor()
-        try:
-            cur.execute("PRAGMA foreign_keys=ON")
-            if not memory:
-                mode = cur.execute("PRAGMA journal_mode=WAL").fetchone()[0]
-                if str(mode).lower() != "wal":
-                    log.warning("store %s: SQLite refused WAL mode (journal_mode=%s)", where, mode)
-            cur.execute("PRAGMA synchronous=FULL")
-        finally:
-            cur.close()
+    def copy_runs_from(
+        self,
+        source: Store,
+        run_refs: Sequence[int | str] | None = None,
+        *,
+        include_running: bool = False,
+    ) -> CopyReport:
+        """Copy runs of ``source`` into this store, idempotently (by ``run_uuid``).
 
-    @event.listens_for(engine, "begin")
-    def _sqlite_begin(conn: Connection) -> None:  # SQLite branch only
-        # Writers take the write lock up front (BEGIN IMMEDIATE): a deferred transaction that
-        # reads, then writes after another connection committed, fails at once with
-        # SQLITE_BUSY instead of waiting (SQLite docs, "BEGIN TRANSACTION", "Write-Ahead Logging" §2.2).
-        # Readers use a deferred BEGIN: one consistent snapshot for all statements of a query.
-        immediate = conn.get_execution_options().get(WRITE_OPTION, False)
-        conn.exec_driver_sql("BEGIN IMMEDIATE" if immediate else "BEGIN")
-
-    return engine
+        ``run_refs``: ids or ``"latest"``; ``None`` copies every run. See
+        :mod:`benchctl.store.transfer` for what is copied and how repeats are reported.
+        """
+        self._require_open()
+        same = source._url.render_as_string(hide_password=False) == self._url.render_as_string(hide_password=False)
+        if source is self or (same and not is_sqlite_memory(self._url)):
+            raise StoreError(f"source and target are the same store ({self._url_masked}); give two different stores")
+        ids = None if run_refs is None else [source.resolve_run(ref) for ref in run_refs]
+        return copy_runs(
+            source._read, self._writer.transaction, ids,
+            source_url=source.url, target_url=self.url, include_running=include_running, clock=self._clock,
+        )

@@ -117,6 +117,15 @@ def _mask_text(text: str) -> str:
     return _QUERY_SECRET_RE.sub(lambda m: m.group("key") + MASK, text)
 
 
+def mask_secrets(text: str) -> str:
+    """``text`` (a station file, a log line) with the password of every URL in it masked.
+
+    Hides ``scheme://user:password@`` user-info passwords and secret query parameters
+    wherever they appear; everything else is left as it was.
+    """
+    return _mask_text(text)
+
+
 def scrub(text: str, url: URL) -> str:
     """``text`` (an error message from a driver) with ``url``'s password, if any, masked."""
     password = url.password

@@ -16,8 +16,9 @@ from __future__ import annotations
 import logging
 import re
 import threading
-from collections.abc import Callable, Iterator, Mapping
-from contextlib import contextmanager
+import uuid
+from collections.abc import Callable, Iterable, Iterator, Mapping
+from contextlib import AbstractContextManager, contextmanager
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -28,15 +29,12 @@ from sqlalchemy.exc import IntegrityError, SQLAlchemyError
 from benchctl.errors import StoreError
 
 from . import schema as s
+from .engine import WRITE_OPTION, WRITE_OPTIONS
 from .codec import encode_column, to_float_or_none, to_json
+from .url import mask_secrets
 from .records import FINAL_STATUSES, RUNNING, RunStart, sha256_hex
 
 log = logging.getLogger(__name__)
-
-# Execution option marking a connection that writes (the SQLite branch begins its
-# transactions with BEGIN IMMEDIATE).
-WRITE_OPTION = "benchctl_write"
-WRITE_OPTIONS = {WRITE_OPTION: True}
 
 # Column order of the tuples handed to the point writers (that of the tables).
 POINT_KEYS = ("run_id", "seq", "t_utc_s", "tag", "settled", "settle_time_s")
@@ -111,6 +109,11 @@ class Writer:
             self._open_runs.clear()
             self._known_runs.clear()
 
+    def transaction(self, doing: str) -> AbstractContextManager[Connection]:
+        """One transaction on the write connection (commit on success, else roll back);
+        errors become :class:`StoreError` saying ``doing`` failed and nothing was written."""
+        return self._transaction(doing)
+
     @contextmanager
     def _transaction(self, doing: str) -> Iterator[Connection]:
         """Run the block in one transaction on the write connection; commit or roll back."""
@@ -180,6 +183,7 @@ class Writer:
                     dut_id = _dut_id(conn, start) if start.dut_part else None
                     run_id = conn.execute(
                         insert(s.runs).values(
+                            run_uuid=str(uuid.uuid4()),
                             procedure=start.procedure,
                             procedure_sha256=start.procedure_sha256,
                             parameters_json=parameters_json,
@@ -240,6 +244,34 @@ class Writer:
                 raise StoreError(f"run {run_id} has already ended ({row.status}); it cannot be ended again")
         self._open_runs.pop(run_id, None)
         log.info("run %d ended: %s %s", run_id, status, message)
+
+    def reopen_run(self, run_id: int, message: str = "") -> None:
+        """Set an interrupted or tripped run running again (resume), owned by this process.
+
+        The gap since its last activity is recorded as a ``gap`` event; points continue
+        from the next sequence number.
+        """
+        import os
+        import socket as _socket
+
+        with self._transaction(f"reopening run {run_id}") as conn:
+            row = conn.execute(select(s.runs.c.status, s.runs.c.ended_utc_s).where(s.runs.c.id == run_id)).first()
+            if row is None:
+                raise StoreError(f"store {self._where} has no run {run_id}; nothing to resume")
+            if row.status not in ("interrupted", "tripped"):
+                raise StoreError(f"run {run_id} is {row.status}; only interrupted or tripped runs can be resumed")
+            now = self._clock()
+            conn.execute(update(s.runs).where(s.runs.c.id == run_id).values(
+                status=RUNNING, ended_utc_s=None, pid=os.getpid(), host=_socket.gethostname()))
+            gap_s = None if row.ended_utc_s is None else now - row.ended_utc_s
+            conn.execute(insert(s.events).values(
+                run_id=run_id, t_utc_s=now, kind="gap",
+                message=(f"resumed after a gap of {gap_s:.1f} s" if gap_s is not None else "resumed")
+                + (f"; {message}" if message else ""),
+                details_json=to_json("gap details", {"gap_s": gap_s, "previous_status": row.status}),
+            ))
+        self._open_runs.pop(run_id, None)
+        log.info("run %d resumed (was %s)", run_id, row.status)
 
     # ---------------------------------------------------------------- points
     def record_point(
@@ -382,6 +414,31 @@ class Writer:
                 )
             ).inserted_primary_key[0]
         return int(result_id)
+
+    def record_results(self, run_id: int, results: Iterable[Mapping[str, Any]]) -> int:
+        """Store many derived results in one transaction (one commit); returns how many.
+
+        Each item has ``name`` and ``value`` and optionally ``unit``, ``details``, ``scope``.
+        """
+        rows = []
+        now = self._clock()
+        for item in results:
+            name = item.get("name")
+            if not isinstance(name, str) or not name:
+                raise StoreError(f"run {run_id}: a result needs a non-empty name, got {name!r}")
+            rows.append(dict(
+                run_id=run_id, t_utc_s=now, name=name,
+                value=to_float_or_none(f"run {run_id}: result {name!r}", item.get("value")),
+                unit=item.get("unit", "") or "",
+                details_json=to_json(f"details of result {name!r}", item.get("details")),
+                scope_json=to_json(f"scope of result {name!r}", dict(item.get("scope") or {})),
+            ))
+        if not rows:
+            return 0
+        with self._transaction(f"recording {len(rows)} results of run {run_id}") as conn:
+            self._require_run(conn, run_id)
+            conn.execute(insert(s.results), rows)
+        return len(rows)
 
     def record_array(
         self,
@@ -562,7 +619,8 @@ def _station_id(conn: Connection, start: RunStart, sha: str) -> int:
             insert(t).values(
                 name=start.station_name,
                 description=start.station_description,
-                station_text=start.station_text,
+                # provenance keeps the file but never a database password written in it
+                station_text=None if start.station_text is None else mask_secrets(start.station_text),
                 station_sha256=sha,
             )
         ).inserted_primary_key[0]

@@ -3,11 +3,30 @@
 Constant-current (CC) and constant-resistance (CR) modes, input switch, its own
 over-current and over-power protection (trip: input off until switched on again), and
 measured voltage, current and power at its terminals with noise.
+
+Dynamic (transient) mode of the CC function, commands of our own under SCPI-1999 names::
+
+    [SOURce:]CURRent:TRANsient[:STATe] ON|OFF     dynamic mode on (the static level is kept)
+    [SOURce:]CURRent:TRANsient:ALEVel <A>          level A (the level it starts on)
+    [SOURce:]CURRent:TRANsient:BLEVel <A>          level B
+    [SOURce:]CURRent:TRANsient:SLEW <A/s>          slew rate of every edge
+    [SOURce:]CURRent:TRANsient:MODE CONTinuous|SINGle
+    [SOURce:]CURRent:TRANsient:FREQuency <Hz>      repetition rate (CONTinuous, 50 % duty)
+    [SOURce:]CURRent:TRANsient:LEVel?              the level drawn now (SINGle) or the mean
+    TRIGger[:IMMediate]                            SINGle: step to the other level once
+    OUTPut:TRIGger[:STATe] ON|OFF                  pulse the trigger output at each step
+
+Each step is published, with the model's steady states before and after it, to the
+load activity the simulated scope reads (``simulated_instruments.waveforms.activity_for``),
+so the scope sees the very step the load makes; the trigger output is the scope's
+EXTernal trigger source.
 """
 
 from __future__ import annotations
 
 from ..scpi import Boolean, Choice, Identity, Numeric, ScpiInstrument
+from ..scpi.errors import ScpiExecutionError
+from ..waveforms import LoadStep, PulseTrain, activity_for
 from .noise import MeterNoise, NoiseSpec
 
 
@@ -17,12 +36,15 @@ class SimulatedElectronicLoad(ScpiInstrument):
     CURRENT_MAX_A = 30.0
     POWER_MAX_W = 300.0
     RESISTANCE_RANGE_OHM = (0.02, 10000.0)
+    SLEW_RANGE_A_PER_S = (1e2, 2.5e9)
+    TRANSIENT_FREQ_RANGE_HZ = (0.1, 50e3)
     VOLTAGE_NOISE = NoiseSpec(gain_ppm=50.0, offset=2e-4)
     CURRENT_NOISE = NoiseSpec(gain_ppm=200.0, offset=5e-4)
 
     def __init__(self, model, *, serial: str = "L2001", seed: int = 0) -> None:
         super().__init__(Identity(maker="benchctl-sim", model="ELD-150-30", serial=serial, firmware="1.0"))
         self.model = model
+        self.activity = activity_for(model)
         self._noise = MeterNoise([seed, 2])
         self._reset_state()
         self.add_command("[SOURce:]FUNCtion[:MODE]", setter=self._set_mode, getter=lambda: self.mode,
@@ -43,6 +65,26 @@ class SimulatedElectronicLoad(ScpiInstrument):
         self.add_command("MEASure[:SCALar]:VOLTage[:DC]", getter=self._measure_voltage)
         self.add_command("MEASure[:SCALar]:CURRent[:DC]", getter=self._measure_current)
         self.add_command("MEASure[:SCALar]:POWer[:DC]", getter=self._measure_power)
+        amps = Numeric(unit="A", minimum=0.0, maximum=self.CURRENT_MAX_A, default=0.0)
+        self.add_command("[SOURce:]CURRent:TRANsient[:STATe]", setter=self._set_transient_state,
+                         getter=lambda: self.transient_on, params=[Boolean()])
+        self.add_command("[SOURce:]CURRent:TRANsient:ALEVel", setter=self._transient_setter("level_a_a"),
+                         getter=lambda: self.level_a_a, params=[amps])
+        self.add_command("[SOURce:]CURRent:TRANsient:BLEVel", setter=self._transient_setter("level_b_a"),
+                         getter=lambda: self.level_b_a, params=[amps])
+        lo_s, hi_s = self.SLEW_RANGE_A_PER_S
+        self.add_command("[SOURce:]CURRent:TRANsient:SLEW", setter=self._transient_setter("slew_a_per_s"),
+                         getter=lambda: self.slew_a_per_s, params=[Numeric(minimum=lo_s, maximum=hi_s, default=hi_s)])
+        self.add_command("[SOURce:]CURRent:TRANsient:MODE", setter=self._transient_setter("transient_mode"),
+                         getter=lambda: self.transient_mode, params=[Choice("CONTinuous", "SINGle")])
+        lo_f, hi_f = self.TRANSIENT_FREQ_RANGE_HZ
+        self.add_command("[SOURce:]CURRent:TRANsient:FREQuency", setter=self._transient_setter("transient_freq_hz"),
+                         getter=lambda: self.transient_freq_hz,
+                         params=[Numeric(unit="HZ", minimum=lo_f, maximum=hi_f, default=100.0)])
+        self.add_command("[SOURce:]CURRent:TRANsient:LEVel", getter=self._present_level)
+        self.add_command("TRIGger[:IMMediate]", setter=self._trigger)
+        self.add_command("OUTPut:TRIGger[:STATe]", setter=self._set_trigger_out, getter=lambda: self.trigger_out,
+                         params=[Boolean()])
 
     def _reset_state(self) -> None:
         self.mode = "CURR"
@@ -52,6 +94,15 @@ class SimulatedElectronicLoad(ScpiInstrument):
         self.opp_w = self.POWER_MAX_W * 1.1
         self.input_on = False
         self.protection_tripped = False
+        self.transient_on = False
+        self.level_a_a = 0.0
+        self.level_b_a = 0.0
+        self.slew_a_per_s = self.SLEW_RANGE_A_PER_S[1]
+        self.transient_mode = "SING"
+        self.transient_freq_hz = 100.0
+        self.trigger_out = True
+        self._at_b = False
+        self.activity.set_train(None)
         self._apply()
 
     def on_reset(self) -> None:
@@ -60,9 +111,19 @@ class SimulatedElectronicLoad(ScpiInstrument):
         if was_on:
             self.audit_state("input", False)
 
+    def _dynamic(self) -> bool:
+        return self.transient_on and self.mode == "CURR"
+
+    def _present_level(self) -> float:
+        if not self._dynamic():
+            return self.current_a
+        if self.transient_mode == "CONT":
+            return 0.5 * (self.level_a_a + self.level_b_a)
+        return self.level_b_a if self._at_b else self.level_a_a
+
     def _apply(self) -> None:
         if self.mode == "CURR":
-            self.model.set_load("CC", self.current_a, self.input_on)
+            self.model.set_load("CC", self._present_level(), self.input_on)
         else:
             self.model.set_load("CR", self.resistance_ohm, self.input_on)
 
@@ -74,12 +135,60 @@ class SimulatedElectronicLoad(ScpiInstrument):
             self.input_on = False
             self.protection_tripped = True
             self._apply()
+            self._update_train()
             self.audit_state("input", False)
             self.audit_state("protection_tripped", True)
 
     def _set_mode(self, mode: str) -> None:
         self.mode = mode  # the core hands over the short form: CURR or RES
         self._apply()
+        self._update_train()
+
+    # ---- dynamic mode
+    def _transient_setter(self, attr: str):
+        def set_(value) -> None:
+            setattr(self, attr, value)
+            self._at_b = False
+            self._apply()
+            self._update_train()
+            self._check_protection()
+        return set_
+
+    def _set_transient_state(self, on: bool) -> None:
+        self.transient_on = bool(on)
+        self._at_b = False
+        self._apply()
+        self._update_train()
+        self._check_protection()
+
+    def _update_train(self) -> None:
+        """Publish (or withdraw) the continuous pulse train to the shared load activity."""
+        if self._dynamic() and self.transient_mode == "CONT" and self.input_on:
+            vin = self.model.operating_point().vin_v
+            op_lo = self.model.steady_state(vin, "CC", self.level_a_a, was_running=True)
+            op_hi = self.model.steady_state(vin, "CC", self.level_b_a, was_running=True)
+            self.activity.set_train(PulseTrain(self.model.clock.now_s(), self.level_a_a, self.level_b_a,
+                                               self.transient_freq_hz, self.slew_a_per_s, op_lo, op_hi))
+        else:
+            self.activity.set_train(None)
+
+    def _trigger(self) -> None:
+        if not (self._dynamic() and self.transient_mode == "SING"):
+            raise ScpiExecutionError(-221, "Settings conflict",
+                                     "TRIG needs CURR:TRAN ON in MODE SINGle with FUNC CURR")
+        if not self.input_on:
+            raise ScpiExecutionError(-221, "Settings conflict", "the input is off; send INP ON before TRIG")
+        before_a = self._present_level()
+        op_before = self.model.operating_point()
+        self._at_b = not self._at_b
+        self._apply()
+        op_after = self.model.operating_point()
+        self.activity.add_step(LoadStep(self.model.clock.now_s(), before_a, self._present_level(),
+                                        self.slew_a_per_s, op_before, op_after, self.trigger_out))
+        self._check_protection()
+
+    def _set_trigger_out(self, on: bool) -> None:
+        self.trigger_out = bool(on)
 
     def _set_current(self, value: float) -> None:
         self.current_a = value
@@ -103,6 +212,7 @@ class SimulatedElectronicLoad(ScpiInstrument):
         if on:
             self.protection_tripped = False
         self._apply()
+        self._update_train()
         if changed:
             self.audit_state("input", self.input_on)
 

@@ -1,0 +1,370 @@
+"""Digitizing oscilloscope over SCPI: channels, timebase, trigger, single acquisition and
+binary waveform transfer.
+
+Command forms of our own on SCPI-1999 subsystem names (INPut, SENSe, TRIGger, INITiate,
+ABORt, FORMat, TRACe), every one overridable per station in ``[instruments.scope.commands]``.
+Vertical: ``scale`` is units per division over 10 divisions (full-scale range = 10·scale).
+Horizontal: ``scale`` is seconds per division over 10 divisions; ``position_s`` is the
+time of the screen centre after the trigger.
+
+Waveform transfer: the preamble (``TRACe:PREamble?``: bits, points, x_increment,
+x_origin, x_reference, y_increment, y_origin, y_reference, msb_first, unit) and the
+samples as an IEEE 488.2 definite-length block (IEEE 488.2-1992 §8.7.9). The block is
+read as its header then exactly its byte count with read termination cleared for the
+duration of the read: a read that stops at every newline byte inside binary data would
+cost one VISA read per such byte. Scaling with the preamble formula of :func:`drivers.ieee488_block.scale_waveform`.
+"""
+
+from __future__ import annotations
+
+import logging
+from dataclasses import dataclass
+from typing import Any, ClassVar, Literal
+
+import numpy as np
+from numpy.typing import NDArray
+
+from benchctl.errors import BenchctlError, InstrumentResponseError
+from drivers.ieee488_block import block_length, decode_samples, header_length
+from drivers.scpi_driver import ScpiDriver
+
+logger = logging.getLogger(__name__)
+
+Coupling = Literal["AC", "DC"]
+Slope = Literal["rising", "falling", "either"]
+TriggerMode = Literal["normal", "auto"]
+DataFormat = Literal["int8", "int16", "float32"]
+
+_SLOPES = {"rising": "POS", "falling": "NEG", "either": "EITH"}
+_FORMATS = {"int8": "INT,8", "int16": "INT,16", "float32": "REAL,32"}
+_DTYPE_FOR_BITS = {(8, False): "int8", (16, False): "int16", (32, True): "float32"}
+DIVISIONS = 10
+
+
+@dataclass(frozen=True)
+class WaveformPreamble:
+    """Scaling of one transferred trace (seconds; volts or amperes per code)."""
+
+    bits: int
+    points: int
+    x_increment_s: float
+    x_origin_s: float
+    x_reference: float
+    y_increment: float
+    y_origin: float
+    y_reference: float
+    msb_first: bool
+    unit: str
+
+    @property
+    def dtype(self) -> str:
+        try:
+            return _DTYPE_FOR_BITS[(self.bits, self.bits == 32)]
+        except KeyError:
+            raise InstrumentResponseError(f"preamble names {self.bits}-bit samples, which this driver cannot decode") from None
+
+
+@dataclass(frozen=True, eq=False)
+class ScopeWaveform:
+    """One channel's record: times from the trigger (s) and values (``unit``: V or A).
+
+    ``clipped_samples`` counts samples at the ends of the ADC range (over-range);
+    non-zero means the vertical scale or offset cut the signal.
+    """
+
+    channel: int
+    t_s: NDArray[np.float64]
+    values: NDArray[np.float64]
+    unit: str
+    sample_interval_s: float
+    clipped_samples: int
+    preamble: WaveformPreamble
+
+
+def _large_socket_reads(session: Any, size: int = 1 << 20) -> None:
+    """Let the pyvisa-py raw-socket session receive up to ``size`` bytes per recv (it uses
+    4 KiB by default, i.e. a hundred system calls for a 400 kB waveform). Other backends and
+    interfaces are left as they are."""
+    try:
+        backend = session.visalib.sessions[session.session]
+        if hasattr(backend, "max_recv_size") and type(backend).__name__ == "TCPIPSocketSession":
+            backend.max_recv_size = max(int(backend.max_recv_size), size)
+    except Exception as exc:  # not pyvisa-py, or not a socket: nothing to tune
+        logger.debug("receive size not changed: %s", exc)
+
+
+def _scale(codes: NDArray[Any], pre: WaveformPreamble) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+    """t[i] = x_origin + (i − x_reference)·x_increment; v[i] = y_origin + (code[i] − y_reference)·y_increment
+    (the preamble formula of :func:`drivers.ieee488_block.scale_waveform`, in fewer array passes)."""
+    for name in ("x_increment_s", "x_origin_s", "x_reference", "y_increment", "y_origin", "y_reference"):
+        if not np.isfinite(getattr(pre, name)):
+            raise InstrumentResponseError(f"preamble value {name} is not finite; re-read the preamble")
+    if not pre.x_increment_s > 0:
+        raise InstrumentResponseError(f"preamble x_increment must be positive seconds, got {pre.x_increment_s!r}")
+    t = np.arange(codes.size, dtype=np.float64)
+    t *= pre.x_increment_s
+    t += pre.x_origin_s - pre.x_reference * pre.x_increment_s
+    v = codes.astype(np.float64)
+    if (pre.y_increment, pre.y_origin, pre.y_reference) != (1.0, 0.0, 0.0):
+        v -= pre.y_reference
+        v *= pre.y_increment
+        v += pre.y_origin
+    t.setflags(write=False)
+    v.setflags(write=False)
+    return t, v
+
+
+class Oscilloscope(ScpiDriver):
+    """A digitizing oscilloscope with ``channels`` inputs (4 by default; station option ``channels``)."""
+
+    kind: ClassVar[str] = "oscilloscope"
+    COMMANDS: ClassVar[dict[str, str]] = {
+        "set_channel_on": "INP{channel}:STAT {state}",
+        "set_coupling": "INP{channel}:COUP {coupling}",
+        "set_bw_limit": "INP{channel}:FILT {state}",
+        "set_bw_limit_freq": "INP{channel}:FILT:FREQ {value:.6g}",
+        "get_bw_limit": "INP{channel}:FILT?",
+        "get_bw_limit_freq": "INP{channel}:FILT:FREQ?",
+        "set_range": "SENS{channel}:VOLT:RANG {value:.6g}",
+        "get_range": "SENS{channel}:VOLT:RANG?",
+        "set_offset": "SENS{channel}:VOLT:OFFS {value:.6g}",
+        "set_record_time": "SENS:SWE:TIME {value:.9g}",
+        "set_points": "SENS:SWE:POIN {value:d}",
+        "set_time_offset": "SENS:SWE:OFFS:TIME {value:.9g}",
+        "get_sample_interval": "SENS:SWE:TINT?",
+        "set_trigger_source": "TRIG:SOUR {source}",
+        "set_trigger_level": "TRIG:LEV {value:.6g}",
+        "set_trigger_slope": "TRIG:SLOP {slope}",
+        "set_trigger_holdoff": "TRIG:HOLD {value:.6g}",
+        "set_trigger_mode": "TRIG:MODE {mode}",
+        "arm": "INIT",
+        "abort": "ABOR",
+        "set_format": "FORM {format}",
+        "set_byte_order": "FORM:BORD {order}",
+        "get_preamble": "TRAC:PRE? {channel}",
+        "get_data": "TRAC? {channel}",
+        "set_fixture_capacitance": "FIXT:CAP {value:.6g}",
+    }
+
+    def __init__(self, resource: str, **kwargs: Any) -> None:
+        super().__init__(resource, **kwargs)
+        self.channels = int(self.options.get("channels", 4))
+
+    def open(self) -> "Oscilloscope":
+        """Open the session (see :meth:`ScpiDriver.open`) and let block reads take large chunks."""
+        super().open()
+        _large_socket_reads(self._session)
+        return self
+
+    # -- helpers -------------------------------------------------------------------
+
+    def _channel(self, channel: int) -> int:
+        if not (isinstance(channel, int) and 1 <= channel <= self.channels):
+            raise ValueError(f"channel must be 1..{self.channels}, got {channel!r}")
+        return channel
+
+    # -- vertical ------------------------------------------------------------------
+
+    def set_channel_enabled(self, channel: int, on: bool) -> None:
+        self.write("set_channel_on", channel=self._channel(channel), state=self.on_off(on))
+
+    def set_scale(self, channel: int, per_div: float) -> None:
+        """Vertical scale in V/div (A/div on a current probe); full scale is 10 divisions."""
+        if not per_div > 0:
+            raise ValueError(f"vertical scale must be positive, got {per_div!r}")
+        self.write("set_range", channel=self._channel(channel), value=per_div * DIVISIONS)
+
+    def scale(self, channel: int) -> float:
+        return self.query_float("get_range", channel=self._channel(channel)) / DIVISIONS
+
+    def set_offset(self, channel: int, offset: float) -> None:
+        """Value at the centre of the screen (V or A)."""
+        self.write("set_offset", channel=self._channel(channel), value=offset)
+
+    def set_coupling(self, channel: int, coupling: Coupling) -> None:
+        if coupling not in ("AC", "DC"):
+            raise ValueError(f"coupling must be 'AC' or 'DC', not {coupling!r}")
+        self.write("set_coupling", channel=self._channel(channel), coupling=coupling)
+
+    def set_bandwidth_limit(self, channel: int, limit_hz: float | None) -> None:
+        """Bandwidth limit in Hz (20e6 is the usual ripple setting), or None for full bandwidth."""
+        ch = self._channel(channel)
+        if limit_hz is None:
+            self.write("set_bw_limit", channel=ch, state="OFF")
+            return
+        if not limit_hz > 0:
+            raise ValueError(f"bandwidth limit must be positive Hz or None, got {limit_hz!r}")
+        self.write("set_bw_limit_freq", channel=ch, value=limit_hz)
+        self.write("set_bw_limit", channel=ch, state="ON")
+
+    def bandwidth_limit_hz(self, channel: int) -> float | None:
+        """The bandwidth limit in force (Hz), None when the channel runs at full bandwidth."""
+        ch = self._channel(channel)
+        if not self.query_bool("get_bw_limit", channel=ch):
+            return None
+        return self.query_float("get_bw_limit_freq", channel=ch)
+
+    # -- horizontal ----------------------------------------------------------------
+
+    def set_timebase(self, scale_s_per_div: float, *, position_s: float = 0.0, points: int | None = None) -> None:
+        """Horizontal scale (s/div, 10 divisions), screen centre ``position_s`` after the trigger, record length."""
+        if not scale_s_per_div > 0:
+            raise ValueError(f"timebase scale must be positive seconds, got {scale_s_per_div!r}")
+        if points is not None:
+            self.write("set_points", value=int(points))
+        self.write("set_record_time", value=scale_s_per_div * DIVISIONS)
+        self.write("set_time_offset", value=position_s - scale_s_per_div * DIVISIONS / 2)
+
+    def set_record(self, duration_s: float, points: int, *, pre_trigger_s: float = 0.0) -> None:
+        """The same as :meth:`set_timebase`, given as a record: ``duration_s`` long,
+        ``points`` samples, starting ``pre_trigger_s`` before the trigger."""
+        self.set_timebase(duration_s / DIVISIONS, position_s=duration_s / 2 - pre_trigger_s, points=points)
+
+    def sample_interval_s(self) -> float:
+        return self.query_float("get_sample_interval")
+
+    # -- trigger and acquisition ----------------------------------------------------
+
+    def set_trigger(self, source: int | Literal["external", "immediate"], *, level: float = 0.0,
+                    slope: Slope = "rising", mode: TriggerMode = "normal", holdoff_s: float = 0.0) -> None:
+        """Edge trigger on a channel (level in its unit) or on the external input, or free-running."""
+        if source == "external":
+            word = "EXT"
+        elif source == "immediate":
+            word = "IMM"
+        else:
+            word = f"CH{self._channel(source)}"
+        if slope not in _SLOPES:
+            raise ValueError(f"slope must be one of {', '.join(_SLOPES)}, not {slope!r}")
+        if mode not in ("normal", "auto"):
+            raise ValueError(f"trigger mode must be 'normal' or 'auto', not {mode!r}")
+        self.write("set_trigger_source", source=word)
+        self.write("set_trigger_level", value=level)
+        self.write("set_trigger_slope", slope=_SLOPES[slope])
+        self.write("set_trigger_holdoff", value=holdoff_s)
+        self.write("set_trigger_mode", mode="AUTO" if mode == "auto" else "NORM")
+
+    def arm(self) -> None:
+        """Start one acquisition (it completes on the next trigger)."""
+        self.write("arm")
+
+    def abort(self) -> None:
+        self.write("abort")
+
+    def wait_acquired(self, timeout_s: float = 10.0) -> None:
+        """Block until the armed acquisition is complete (``*OPC?``)."""
+        self.wait_complete(timeout_s)
+
+    def single(self, timeout_s: float = 10.0) -> None:
+        """Arm one acquisition and wait for it (for a trigger that comes by itself)."""
+        with self._lock:
+            self.arm()
+            self.wait_acquired(timeout_s)
+
+    # -- transfer ------------------------------------------------------------------
+
+    def set_data_format(self, fmt: DataFormat = "int16") -> None:
+        """Sample format of transfers; samples are sent most significant byte first."""
+        if fmt not in _FORMATS:
+            raise ValueError(f"data format must be one of {', '.join(_FORMATS)}, not {fmt!r}")
+        self.write("set_format", format=_FORMATS[fmt])
+        self.write("set_byte_order", order="NORM")
+
+    def preamble(self, channel: int) -> WaveformPreamble:
+        text = self.query("get_preamble", channel=self._channel(channel))
+        fields = [f.strip() for f in text.split(",")]
+        try:
+            if len(fields) != 10:
+                raise ValueError(f"{len(fields)} fields")
+            return WaveformPreamble(
+                bits=int(fields[0]), points=int(fields[1]), x_increment_s=float(fields[2]),
+                x_origin_s=float(fields[3]), x_reference=float(fields[4]), y_increment=float(fields[5]),
+                y_origin=float(fields[6]), y_reference=float(fields[7]), msb_first=fields[8] == "1",
+                unit=fields[9].strip('"'),
+            )
+        except ValueError as exc:
+            self.raise_on_errors(self.command("get_preamble", channel=channel))
+            raise InstrumentResponseError(
+                f"preamble {text[:120]!r} is not bits,points,x_inc,x_origin,x_ref,y_inc,y_origin,y_ref,msb,unit ({exc})",
+                instrument=self.name, command=self.command("get_preamble", channel=channel),
+            ) from None
+
+    def read_block(self, text: str) -> bytes:
+        """Send query ``text`` and read its definite-length block answer (payload bytes)."""
+        with self._lock:
+            session = self._require_session()
+            self.last_command = text
+            logger.debug("%s <- %s", self.name, text)
+            previous = session.read_termination
+            payload = b""
+            try:
+                session.write(text)
+                session.read_termination = None
+                head = bytes(session.read_bytes(2))
+                if head[:1] != b"#":
+                    # not a block (an instrument error, most likely): read the rest of the line, report it
+                    session.read_termination = previous
+                    rest = head if head.endswith(b"\n") else head + bytes(session.read_raw())
+                    self.raise_on_errors(text)
+                    raise InstrumentResponseError(
+                        f"expected a definite-length block, got {rest[:40]!r}; check the query and the data format",
+                        instrument=self.name, command=text)
+                head += bytes(session.read_bytes(header_length(head) - 2))
+                count = block_length(head) - len(head)
+                if count:
+                    payload = bytes(session.read_bytes(count, chunk_size=count))
+                end = bytes(session.read_bytes(1))
+                if end != b"\n":
+                    raise InstrumentResponseError(
+                        f"block of {count} bytes is followed by {end!r}, not the newline terminator; "
+                        "the byte count and the data disagree", instrument=self.name, command=text)
+            except BenchctlError:
+                raise
+            except Exception as exc:
+                raise self._translate(exc, text) from exc
+            finally:
+                try:
+                    session.read_termination = previous
+                except Exception:  # a dead session: the original error is what matters
+                    pass
+            logger.debug("%s -> block of %d bytes", self.name, len(payload))
+            return payload
+
+    def fetch_waveform(self, channel: int) -> ScopeWaveform:
+        """The last acquisition of ``channel`` in seconds and volts (or amperes)."""
+        ch = self._channel(channel)
+        with self._lock:
+            pre = self.preamble(ch)
+            payload = self.read_block(self.command("get_data", channel=ch))
+        codes = decode_samples(payload, pre.dtype, byte_order="big" if pre.msb_first else "little")
+        if codes.size != pre.points:
+            raise InstrumentResponseError(
+                f"block holds {codes.size} samples but the preamble says {pre.points}",
+                instrument=self.name, command=self.command("get_data", channel=ch))
+        t_s, values = _scale(codes, pre)
+        if pre.dtype == "float32":
+            clipped = 0
+        else:
+            info = np.iinfo(pre.dtype)
+            clipped = int(np.count_nonzero((codes == info.min) | (codes == info.max)))
+        return ScopeWaveform(ch, t_s, values, pre.unit, pre.x_increment_s, clipped, pre)
+
+    # -- simulated fixture -------------------------------------------------------------
+
+    def set_fixture_capacitance(self, capacitance_f: float) -> None:
+        """Add a known capacitance at the switch node (two-capacitor method).
+
+        On the simulated bench this is a command of the simulated DUT fixture; a real
+        station with a relay-switched capacitor overrides ``set_fixture_capacitance``
+        with the command that switches it.
+        """
+        if not capacitance_f >= 0:
+            raise ValueError(f"capacitance must be >= 0 F, got {capacitance_f!r}")
+        self.write("set_fixture_capacitance", value=capacitance_f)
+
+    def safe_state(self) -> None:
+        """A scope drives nothing; abort a pending acquisition."""
+        try:
+            self.abort()
+        except Exception as exc:  # safe_state must not mask the reason it was called
+            logger.debug("%s: abort failed: %s", self.name, exc)
