@@ -132,6 +132,10 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--format", choices=("csv", "json"), default="csv")
     p.add_argument("--out", metavar="FILE", default=None, help="write here instead of standard output")
 
+    from benchctl.commands.analyze import add_analyze_arguments  # light: argparse only
+
+    add_analyze_arguments(sub)
+
     p = sub.add_parser("report", help="write a run's HTML report with its PNG plots")
     p.add_argument("run", help="run id or 'latest'")
     p.add_argument("--out", metavar="DIR", default=None,

@@ -52,7 +52,8 @@ PARAMETERS = [
     Parameter("point_iout_a", "A", None, minimum=0.0, maximum=1000.0, kind="float_list", optional=True,
               help="explicit operating points (load current), paired with point_vin_v"),
     Parameter("vout_nom_v", "V", 5.0, minimum=0.0, maximum=1500.0, help="nominal output voltage"),
-    Parameter("source_current_limit_a", "A", 2.0, minimum=0.0, maximum=1000.0, help="source current limit"),
+    Parameter("source_current_limit_a", "A", None, minimum=0.0, maximum=1000.0, optional=True,
+              help="source current limit (default: the station's source_current_max_a)"),
     Parameter("startup_delay_s", "s", 0.05, minimum=0.0, maximum=60.0, help="wait after the source turns on"),
     Parameter("settle_rel_tol", "", 1e-3, minimum=0.0, maximum=0.1, help="settle: relative agreement of Vout"),
     Parameter("settle_abs_tol_v", "V", 2e-3, minimum=0.0, maximum=1.0, help="settle: absolute agreement of Vout"),
@@ -372,7 +373,8 @@ def run(bench, p: Parameters) -> None:
     analyzer.set_bandwidth(p.bandwidth_hz)
     analyzer.set_averaging(p.averaging)
     analyzer.set_polarity(p.phase_convention == "inverted")
-    source.set_current_limit(p.source_current_limit_a)
+    limit_a = p.source_current_limit_a
+    source.set_current_limit(bench.limits.source_current_max_a if limit_a is None else limit_a)
     source.set_voltage(points[0]["vin_set_v"])
     load.set_mode("CC")
     load.set_current(points[0]["iout_set_a"])

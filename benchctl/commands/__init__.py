@@ -23,6 +23,7 @@ _MODULES = {
     "report": "benchctl.commands.report",
     "check": "benchctl.commands.check",
     "job": "benchctl.commands.job",
+    "analyze": "benchctl.commands.analyze",
     "compare": "benchctl.commands.compare",
 }
 

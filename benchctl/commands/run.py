@@ -42,12 +42,13 @@ class _ProgressView:
         self.live = Live(self._render(), console=console(), refresh_per_second=8, transient=False)
 
     def _render(self) -> Group:
-        return Group(self.progress, Text(self.last, style="dim"))
+        return Group(self.progress, Text(self.last, style="dim", no_wrap=True, overflow="ellipsis"))
 
     def update(self, done: int, total: int, values: Mapping[str, float]) -> None:
         self.progress.update(self.task, completed=done, total=total)
         if values:
-            self.last = "last point: " + "  ".join(f"{k}={v:.5g}" for k, v in values.items())
+            shown = [f"{k}={v:.5g}" for k, v in values.items() if isinstance(v, (int, float))][:10]
+            self.last = "last point: " + "  ".join(shown)
         self.live.update(self._render())
 
     def __enter__(self) -> "_ProgressView":

@@ -59,7 +59,7 @@ def _note(details) -> str:
         return f"{verdict} indicative limit {details['limit_efficiency']:.4f} ({details.get('supply_class')})"
     if "indicative_limit_w" in details:
         return f"indicative no-load limit {details['indicative_limit_w']:g} W"
-    return str(details.get("definition", ""))
+    return ""
 
 
 def results_table(results) -> Table | None:
@@ -68,8 +68,9 @@ def results_table(results) -> Table | None:
     if results.empty:
         return None
     table = Table(title="derived results (worst case where a result has several operating points)")
+    has_notes = any(_note(d) for d in results["details"])
     table.add_column("result", no_wrap=True)
-    for col in ("value", "where", "range", "note"):
+    for col in ("value", "where", "range") + (("note",) if has_notes else ()):
         table.add_column(col, overflow="fold")
     for name, group in results.groupby("name", sort=False):
         scopes = [sc if isinstance(sc, dict) else {} for sc in group["scope"]]
@@ -81,13 +82,15 @@ def results_table(results) -> Table | None:
             k = 0
             rng = ""
         else:
-            if "efficiency" in str(name):  # the worst efficiency is the lowest
+            if "efficiency" in str(name) or "margin" in str(name):  # worst = lowest
                 k = int(group["value"].fillna(float("inf")).to_numpy().argmin())
             else:
                 k = int(abs(group["value"]).fillna(-1).to_numpy().argmax())
             rng = f"{_fmt(float(min(values)), unit)} … {_fmt(float(max(values)), unit)}"
-        table.add_row(str(name), _fmt(float(values[k]), unit), _scope_text(scopes[k]), rng,
-                      _note(group["details"].iloc[k]))
+        cells = [str(name), _fmt(float(values[k]), unit), _scope_text(scopes[k]), rng]
+        if has_notes:
+            cells.append(_note(group["details"].iloc[k]))
+        table.add_row(*cells)
     return table
 
 
