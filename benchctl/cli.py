@@ -135,6 +135,9 @@ def build_parser() -> argparse.ArgumentParser:
     from benchctl.commands.analyze import add_analyze_arguments  # light: argparse only
 
     add_analyze_arguments(sub)
+    from benchctl.commands.db_arguments import add_db_arguments  # light: argparse only
+
+    add_db_arguments(sub)
 
     p = sub.add_parser("report", help="write a run's HTML report with its PNG plots")
     p.add_argument("run", help="run id or 'latest'")

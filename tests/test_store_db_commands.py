@@ -3,24 +3,19 @@ PostgreSQL (``store_url``), through their argparse parsers. Passwords never reac
 
 from __future__ import annotations
 
-import argparse
 import json
 
 import pytest
 from sqlalchemy.engine import make_url
 
+from benchctl.cli import main
 from benchctl.commands import db as db_commands
 from benchctl.errors import SchemaVersionError
 from benchctl.store import RunStart, Store, upgrade
 
 
 def _run(argv: list[str], capsys) -> tuple[int, str]:
-    parser = argparse.ArgumentParser(prog="benchctl")
-    sub = parser.add_subparsers(dest="command")
-    db_commands.add_db_arguments(sub)
-    args = parser.parse_args(argv)
-    handler = getattr(db_commands, "cmd_" + args.command)  # the lookup benchctl.commands.dispatch makes
-    code = handler(args)
+    code = main(argv)  # the real command line: parser, dispatch and error mapping
     return code, capsys.readouterr().out
 
 

@@ -24,6 +24,10 @@ _MODULES = {
     "check": "benchctl.commands.check",
     "job": "benchctl.commands.job",
     "analyze": "benchctl.commands.analyze",
+    "db": "benchctl.commands.db",
+    "query": "benchctl.commands.db",
+    "export-runs": "benchctl.commands.db",
+    "import-runs": "benchctl.commands.db",
     "compare": "benchctl.commands.compare",
 }
 
@@ -39,7 +43,7 @@ def dispatch(args: argparse.Namespace) -> int:
         error_console().print(f"[bold red]error:[/] {escape(str(exc))}", soft_wrap=True, highlight=False)
 
     module = importlib.import_module(_MODULES[args.command])
-    handler = getattr(module, "cmd_" + args.command)
+    handler = getattr(module, "cmd_" + args.command.replace("-", "_"))
     try:
         return handler(args)
     except (ConfigurationError, ProcedureError) as exc:

@@ -22,6 +22,7 @@ import time
 from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 from sqlalchemy import inspect, select
 from sqlalchemy.engine import Connection
@@ -33,6 +34,9 @@ from benchctl.errors import SchemaVersionError, StoreError
 from . import schema as s
 from .engine import WRITE_OPTIONS, lock_schema, make_engine
 from .url import mask_url, normalize_url, scrub
+
+if TYPE_CHECKING:
+    from alembic.config import Config
 
 log = logging.getLogger(__name__)
 
@@ -164,7 +168,7 @@ def refusal(state: SchemaState) -> StoreError:
     )
 
 
-def alembic_config(conn: Connection, *, created_utc_s: float | None = None, created_by: str = ""):  # -> Config
+def alembic_config(conn: Connection, *, created_utc_s: float | None = None, created_by: str = "") -> Config:
     """Alembic configuration running the store's revisions on ``conn`` (in its transaction)."""
     from alembic.config import Config
 

@@ -8,7 +8,11 @@ compiled once from the Core tables and run on the DB-API cursor (``_FastPointWri
 a point that brings a new quantity, and every other engine, take the plain Core path.
 
 Sequence numbers are kept by the one writer of a run; two processes writing the same
-run is not supported (the second one's points are refused by the primary key).
+run is not supported (the second one's points are refused by the primary key). Many
+stations writing one shared database at once is: each writes only its own runs, whose
+ids the database assigns, so their sequence numbers cannot collide, and a point's
+transaction touches no row another station writes (tests/test_pg_concurrency.py).
+Every run gets a random ``run_uuid`` (RFC 4122 version 4) when it begins.
 """
 
 from __future__ import annotations
