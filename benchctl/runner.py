@@ -160,6 +160,9 @@ def execute(
         if role in bench._instruments:
             interlock.watch(f"{role} voltage", bench.role(role).measure_voltage)
             break
+    for role, d in drivers.items():  # an instrument that resets itself mid-run (PON in *ESR?) stops the run
+        if callable(getattr(d, "check_power_on", None)):
+            interlock.watch(f"{role} power-on status", d.check_power_on)
 
     status, message = "completed", ""
     try:
@@ -167,6 +170,9 @@ def execute(
         interlock.start_watch()
         procedure.run(bench, params)
         interlock.raise_if_tripped()
+        for d in drivers.values():  # a run is complete only if no instrument reset itself during it
+            if callable(getattr(d, "check_power_on", None)):
+                d.check_power_on()
     except InterlockTrip as exc:
         status, message = "tripped", str(exc)
     except SetpointRefused as exc:

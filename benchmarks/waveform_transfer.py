@@ -5,7 +5,8 @@ process's interpreter lock, as a real instrument would not) on 127.0.0.1, acquir
 (best of ``--repeat``) three ways of reading channel 1 as float32 samples, a payload in
 which newline bytes are common:
 
-* raw: a plain socket sends ``TRAC? 1`` and reads the header then exactly the byte count;
+* raw: a plain socket, connected once like the driver's session, sends ``TRAC? 1`` and
+  reads the header then exactly the byte count;
 * driver: ``Oscilloscope.fetch_waveform(1)`` (preamble query, block read with the read
   termination cleared, decoding and scaling);
 * naive: pyvisa ``query_binary_values`` with the read termination left at ``\\n``.
@@ -23,9 +24,9 @@ import socket
 import time
 
 
-def _raw_read(port: int, command: bytes) -> bytes:
-    with socket.create_connection(("127.0.0.1", port)) as sock:
-        sock.setsockopt(socket.IPPROTO_TCP, socket.TCP_NODELAY, 1)
+def _raw_read(sock: socket.socket, command: bytes) -> bytes:
+    """Send ``command`` on an open socket and read its block: header, then exactly the count."""
+    if True:
         sock.sendall(command)
         buf = bytearray()
         while len(buf) < 2:
@@ -75,7 +76,9 @@ def main(argv: list[str] | None = None) -> int:
         scope.set_data_format("float32")
         scope.single(30.0)
         scope.fetch_waveform(1)  # the record is synthesised on the first read; time the transfers only
-        payload = _raw_read(port, b"TRAC? 1\n")
+        raw = socket.create_connection(("127.0.0.1", port))
+        raw.setsockopt(socket.IPPROTO_TCP, socket.TCP_NODELAY, 1)
+        payload = _raw_read(raw, b"TRAC? 1\n")
         newlines = payload.count(b"\n")
 
         def best(fn) -> float:
@@ -86,11 +89,12 @@ def main(argv: list[str] | None = None) -> int:
                 times.append(time.perf_counter() - t0)
             return min(times)
 
-        t_raw = best(lambda: _raw_read(port, b"TRAC? 1\n"))
+        t_raw = best(lambda: _raw_read(raw, b"TRAC? 1\n"))
         t_drv = best(lambda: scope.fetch_waveform(1))
         session = scope._session  # the naive path on the driver's own session, for comparison only
         t_naive = best(lambda: session.query_binary_values("TRAC? 1", datatype="f", is_big_endian=True))
         scope.close()
+        raw.close()
     finally:
         parent.send("stop")
         proc.join(10.0)

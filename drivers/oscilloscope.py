@@ -12,19 +12,23 @@ x_origin, x_reference, y_increment, y_origin, y_reference, msb_first, unit) and 
 samples as an IEEE 488.2 definite-length block (IEEE 488.2-1992 §8.7.9). The block is
 read as its header then exactly its byte count with read termination cleared for the
 duration of the read: a read that stops at every newline byte inside binary data would
-cost one VISA read per such byte. Scaling with the preamble formula of :func:`drivers.ieee488_block.scale_waveform`.
+cost one VISA read per such byte. On a pyvisa-py raw socket (``TCPIP::…::SOCKET``) the
+counted payload is received straight from the session's socket into one buffer (after
+what pyvisa-py had already buffered), which keeps a 100k-point transfer within 2x of a
+bare socket read (``benchmarks/waveform_transfer.py``); other backends use ``read_bytes``. Scaling with the preamble formula of :func:`drivers.ieee488_block.scale_waveform`.
 """
 
 from __future__ import annotations
 
 import logging
+import sys
 from dataclasses import dataclass
 from typing import Any, ClassVar, Literal
 
 import numpy as np
 from numpy.typing import NDArray
 
-from benchctl.errors import BenchctlError, InstrumentResponseError
+from benchctl.errors import BenchctlError, InstrumentResponseError, InstrumentStateError, InstrumentTimeout
 from drivers.ieee488_block import block_length, decode_samples, header_length
 from drivers.scpi_driver import ScpiDriver
 
@@ -93,6 +97,83 @@ def _large_socket_reads(session: Any, size: int = 1 << 20) -> None:
         logger.debug("receive size not changed: %s", exc)
 
 
+def _socket_of(session: Any) -> tuple[Any, Any] | None:
+    """(backend session, socket) of a pyvisa-py raw-socket session, or None for anything else."""
+    import socket
+
+    try:
+        backend = session.visalib.sessions[session.session]
+    except Exception:
+        return None
+    sock = getattr(backend, "interface", None)
+    if isinstance(sock, socket.socket) and isinstance(getattr(backend, "_pending_buffer", None), bytearray):
+        return backend, sock
+    return None
+
+
+def _recv_exactly(backend: Any, sock: Any, count: int, timeout_s: float, prefix: bytearray) -> bytearray:
+    """``count`` bytes: first what pyvisa-py has already buffered (``prefix``), then straight from the socket."""
+    import select
+    import time
+
+    out = bytearray(count)
+    have = min(len(prefix), count)
+    out[:have] = prefix[:have]
+    backend._pending_buffer = bytearray(prefix[have:])
+    view = memoryview(out)
+    deadline = time.monotonic() + timeout_s
+    while have < count:
+        left = deadline - time.monotonic()
+        if left <= 0:
+            raise TimeoutError(f"{count - have} of {count} block bytes did not arrive within {timeout_s:g} s")
+        ready, _, _ = select.select([sock], [], [], min(left, 1.0))
+        if not ready:
+            continue
+        n = sock.recv_into(view[have:], count - have)
+        if n == 0:
+            raise ConnectionError("the instrument closed the connection in the middle of a block")
+        have += n
+    return out
+
+
+def _recv_until(backend: Any, sock: Any, done: Any, timeout_s: float) -> bytearray:
+    """Bytes from pyvisa-py's buffer and then the socket until ``done(buffer)`` is true."""
+    import select
+    import time
+
+    buf = bytearray(backend._pending_buffer)
+    backend._pending_buffer = bytearray()
+    deadline = time.monotonic() + timeout_s
+    while not done(buf):
+        left = deadline - time.monotonic()
+        if left <= 0:
+            raise TimeoutError(f"the answer was incomplete after {timeout_s:g} s ({bytes(buf[:60])!r}...)")
+        ready, _, _ = select.select([sock], [], [], min(left, 1.0))
+        if ready:
+            chunk = sock.recv(65536)
+            if not chunk:
+                raise ConnectionError("the instrument closed the connection in the middle of an answer")
+            buf += chunk
+    return buf
+
+
+_TIME_CACHE: dict[tuple[int, float, float, float], NDArray[np.float64]] = {}
+
+
+def _time_axis(pre: WaveformPreamble, n: int) -> NDArray[np.float64]:
+    """Read-only sample times of a record; the channels of one acquisition share one array."""
+    key = (n, pre.x_increment_s, pre.x_origin_s, pre.x_reference)
+    t = _TIME_CACHE.get(key)
+    if t is None:
+        t = np.arange(n, dtype=np.float64)
+        t *= pre.x_increment_s
+        t += pre.x_origin_s - pre.x_reference * pre.x_increment_s
+        t.setflags(write=False)
+        _TIME_CACHE.clear()
+        _TIME_CACHE[key] = t
+    return t
+
+
 def _scale(codes: NDArray[Any], pre: WaveformPreamble) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
     """t[i] = x_origin + (i − x_reference)·x_increment; v[i] = y_origin + (code[i] − y_reference)·y_increment
     (the preamble formula of :func:`drivers.ieee488_block.scale_waveform`, in fewer array passes)."""
@@ -101,15 +182,12 @@ def _scale(codes: NDArray[Any], pre: WaveformPreamble) -> tuple[NDArray[np.float
             raise InstrumentResponseError(f"preamble value {name} is not finite; re-read the preamble")
     if not pre.x_increment_s > 0:
         raise InstrumentResponseError(f"preamble x_increment must be positive seconds, got {pre.x_increment_s!r}")
-    t = np.arange(codes.size, dtype=np.float64)
-    t *= pre.x_increment_s
-    t += pre.x_origin_s - pre.x_reference * pre.x_increment_s
+    t = _time_axis(pre, codes.size)
     v = codes.astype(np.float64)
     if (pre.y_increment, pre.y_origin, pre.y_reference) != (1.0, 0.0, 0.0):
         v -= pre.y_reference
         v *= pre.y_increment
         v += pre.y_origin
-    t.setflags(write=False)
     v.setflags(write=False)
     return t, v
 
@@ -149,6 +227,7 @@ class Oscilloscope(ScpiDriver):
     def __init__(self, resource: str, **kwargs: Any) -> None:
         super().__init__(resource, **kwargs)
         self.channels = int(self.options.get("channels", 4))
+        self._acquired = False
 
     def open(self) -> "Oscilloscope":
         """Open the session (see :meth:`ScpiDriver.open`) and let block reads take large chunks."""
@@ -246,6 +325,7 @@ class Oscilloscope(ScpiDriver):
 
     def arm(self) -> None:
         """Start one acquisition (it completes on the next trigger)."""
+        self._acquired = False
         self.write("arm")
 
     def abort(self) -> None:
@@ -254,6 +334,7 @@ class Oscilloscope(ScpiDriver):
     def wait_acquired(self, timeout_s: float = 10.0) -> None:
         """Block until the armed acquisition is complete (``*OPC?``)."""
         self.wait_complete(timeout_s)
+        self._acquired = True
 
     def single(self, timeout_s: float = 10.0) -> None:
         """Arm one acquisition and wait for it (for a trigger that comes by itself)."""
@@ -264,15 +345,19 @@ class Oscilloscope(ScpiDriver):
     # -- transfer ------------------------------------------------------------------
 
     def set_data_format(self, fmt: DataFormat = "int16") -> None:
-        """Sample format of transfers; samples are sent most significant byte first."""
+        """Sample format of transfers, in this computer's byte order (no byte swapping on decode)."""
         if fmt not in _FORMATS:
             raise ValueError(f"data format must be one of {', '.join(_FORMATS)}, not {fmt!r}")
         self.write("set_format", format=_FORMATS[fmt])
-        self.write("set_byte_order", order="NORM")
+        self.write("set_byte_order", order="NORM" if sys.byteorder == "big" else "SWAP")
 
     def preamble(self, channel: int) -> WaveformPreamble:
-        text = self.query("get_preamble", channel=self._channel(channel))
-        fields = [f.strip() for f in text.split(",")]
+        """Scaling of the last acquisition of ``channel``."""
+        ch = self._channel(channel)
+        return self._parse_preamble(self.query("get_preamble", channel=ch), self.command("get_preamble", channel=ch))
+
+    def _parse_preamble(self, text: str, command: str) -> WaveformPreamble:
+        fields = [f.strip() for f in text.strip().split(",")]
         try:
             if len(fields) != 10:
                 raise ValueError(f"{len(fields)} fields")
@@ -283,10 +368,10 @@ class Oscilloscope(ScpiDriver):
                 unit=fields[9].strip('"'),
             )
         except ValueError as exc:
-            self.raise_on_errors(self.command("get_preamble", channel=channel))
+            self.raise_on_errors(command)
             raise InstrumentResponseError(
                 f"preamble {text[:120]!r} is not bits,points,x_inc,x_origin,x_ref,y_inc,y_origin,y_ref,msb,unit ({exc})",
-                instrument=self.name, command=self.command("get_preamble", channel=channel),
+                instrument=self.name, command=command,
             ) from None
 
     def read_block(self, text: str) -> bytes:
@@ -297,6 +382,7 @@ class Oscilloscope(ScpiDriver):
             logger.debug("%s <- %s", self.name, text)
             previous = session.read_termination
             payload = b""
+            fast = _socket_of(session)
             try:
                 session.write(text)
                 session.read_termination = None
@@ -311,15 +397,22 @@ class Oscilloscope(ScpiDriver):
                         instrument=self.name, command=text)
                 head += bytes(session.read_bytes(header_length(head) - 2))
                 count = block_length(head) - len(head)
-                if count:
-                    payload = bytes(session.read_bytes(count, chunk_size=count))
-                end = bytes(session.read_bytes(1))
+                if fast is not None:
+                    backend, sock = fast
+                    data = _recv_exactly(backend, sock, count + 1, self.timeout_s, backend._pending_buffer)
+                    payload, end = bytes(data[:count]), bytes(data[count:])
+                else:
+                    payload = bytes(session.read_bytes(count, chunk_size=count)) if count else b""
+                    end = bytes(session.read_bytes(1))
                 if end != b"\n":
                     raise InstrumentResponseError(
                         f"block of {count} bytes is followed by {end!r}, not the newline terminator; "
                         "the byte count and the data disagree", instrument=self.name, command=text)
             except BenchctlError:
                 raise
+            except TimeoutError as exc:
+                raise InstrumentTimeout(f"{exc}; raise timeout_s in the station file", instrument=self.name,
+                                        command=text) from exc
             except Exception as exc:
                 raise self._translate(exc, text) from exc
             finally:
@@ -330,12 +423,64 @@ class Oscilloscope(ScpiDriver):
             logger.debug("%s -> block of %d bytes", self.name, len(payload))
             return payload
 
+    def _fetch_combined(self, ch: int) -> tuple[WaveformPreamble, bytes] | None:
+        """Preamble and block in one message (``<preamble query>;:<data query>``) on a pyvisa-py
+        raw socket: one round trip instead of two. None when the session is not such a socket."""
+        session = self._require_session()
+        fast = _socket_of(session)
+        if fast is None:
+            return None
+        backend, sock = fast
+        pre_q, data_q = self.command("get_preamble", channel=ch), self.command("get_data", channel=ch)
+        text = f"{pre_q};:{data_q.lstrip(':')}"
+        self.last_command = text
+        logger.debug("%s <- %s", self.name, text)
+
+        def header_done(buf: bytearray) -> bool:
+            k = buf.find(b";#")
+            if k < 0:
+                return b"\n" in buf  # an answer without a block: an error, report it below
+            return len(buf) >= k + 3 and len(buf) >= k + 3 + int(buf[k + 2:k + 3] or b"0")
+
+        try:
+            session.write(text)
+            buf = _recv_until(backend, sock, header_done, self.timeout_s)
+            k = buf.find(b";#")
+            if k < 0:
+                self.raise_on_errors(text)
+                raise InstrumentResponseError(f"expected '<preamble>;#<block>', got {bytes(buf[:60])!r}",
+                                              instrument=self.name, command=text)
+            pre = self._parse_preamble(bytes(buf[:k]).decode("latin-1"), pre_q)
+            head = bytes(buf[k + 1:k + 3])
+            head = bytes(buf[k + 1:k + 1 + header_length(head)])
+            count = block_length(head) - len(head)
+            data = _recv_exactly(backend, sock, count + 1, self.timeout_s, buf[k + 1 + len(head):])
+        except BenchctlError:
+            raise
+        except TimeoutError as exc:
+            raise InstrumentTimeout(f"{exc}; raise timeout_s in the station file", instrument=self.name,
+                                    command=text) from exc
+        except Exception as exc:
+            raise self._translate(exc, text) from exc
+        if data[count:] != b"\n":
+            raise InstrumentResponseError(f"block of {count} bytes is followed by {bytes(data[count:])!r}, not the "
+                                          "newline terminator", instrument=self.name, command=text)
+        return pre, bytes(data[:count])
+
     def fetch_waveform(self, channel: int) -> ScopeWaveform:
         """The last acquisition of ``channel`` in seconds and volts (or amperes)."""
         ch = self._channel(channel)
+        if not self._acquired:
+            raise InstrumentStateError(
+                "no completed acquisition to read; call single(), or arm() and wait_acquired(), first",
+                instrument=self.name, command=self.command("get_data", channel=ch))
         with self._lock:
-            pre = self.preamble(ch)
-            payload = self.read_block(self.command("get_data", channel=ch))
+            both = self._fetch_combined(ch)
+            if both is not None:
+                pre, payload = both
+            else:
+                pre = self.preamble(ch)
+                payload = self.read_block(self.command("get_data", channel=ch))
         codes = decode_samples(payload, pre.dtype, byte_order="big" if pre.msb_first else "little")
         if codes.size != pre.points:
             raise InstrumentResponseError(

@@ -376,9 +376,11 @@ class ScpiDriver:
                     if attempt == attempts or not self._wanted_open:
                         if attempt == 1:
                             raise
+                        during = f"; the last failure was {exc.command!r} while reconnecting" \
+                            if exc.command and exc.command != text else ""
                         raise type(exc)(
-                            f"{_bare(exc)} (gave up after {attempts} attempts with a reconnect before each retry)",
-                            instrument=self.name, command=exc.command or text,
+                            f"{_bare(exc)} (gave up after {attempts} attempts with a reconnect before each "
+                            f"retry{during})", instrument=self.name, command=text,
                         ) from exc
                     logger.warning("%s: %r failed (attempt %d of %d): %s; reconnecting and asking again",
                                    self.name, text, attempt, attempts, exc)
@@ -633,6 +635,21 @@ class ScpiDriver:
             return Identity.parse(answer)
         except ValueError as exc:
             raise InstrumentResponseError(str(exc), instrument=self.name, command="*IDN?") from exc
+
+    def check_power_on(self) -> None:
+        """Raise :class:`InstrumentStateError` when ``*ESR?`` shows the power-on bit (one query).
+
+        For a background watch: an instrument that reset itself while the run sends it
+        no setting is found within one watch period (IEEE 488.2-1992 §11.5.1.1.8, from memory).
+        """
+        command = self.commands["event_status"]
+        esr = self._retrying(command, self._read_event_status)
+        if esr is not None and esr & ESR_POWER_ON:
+            raise InstrumentStateError(
+                "*ESR? shows the power-on bit: the instrument was reset or power-cycled during the run and every "
+                "setting made before is lost; the run stops so no point is taken on wrong settings. Check its "
+                "mains and connection, then start the run again",
+                instrument=self.name, command=command)
 
     def _read_event_status(self) -> int | None:
         """Read (and so clear) ``*ESR?``; None when the answer is not a number."""

@@ -8,7 +8,8 @@ Kinds on an instrument (``@ROLE`` required):
 
 * ``unresponsive`` — the instrument's server stops answering (bytes wait unread);
 * ``drop`` — the server closes every connection and resets new ones;
-* ``garble`` — the next response is replaced by a malformed line (one-shot);
+* ``garble`` — the next response is replaced by a malformed line (one-shot; with
+  ``after=N`` that is the answer to the N-th message itself when it has one);
 * ``scpi_error`` — the next setting queues SCPI error ``code`` (default -200) instead
   of executing (one-shot);
 * ``reset`` — the instrument resets itself as after a power cycle: ``*RST`` and ``*CLS``
@@ -61,6 +62,7 @@ DUT_FAULTS = ("feedback_open", "output_short", "overheat", "input_sag")
 FAULT_KINDS = INSTRUMENT_FAULTS + DUT_FAULTS
 #: Kinds that end by themselves after one event.
 ONE_SHOT = ("garble", "scpi_error", "reset")
+_HISTORY_CAP = 100_000
 _KEYS = ("after", "on", "at", "random", "max", "for", "code", "message", "level", "manual")
 
 
@@ -221,6 +223,7 @@ class _Counter:
         self.instrument = instrument
         self.count = 0
         self.last = ""
+        self.history: list[str] = []  # every message seen, oldest first (capped)
         self.waiting: list[FaultSpec] = []
         self._lock = threading.Lock()
         original = instrument.process_message
@@ -237,6 +240,8 @@ class _Counter:
         with self._lock:
             self.count += 1
             self.last = text
+            if len(self.history) < _HISTORY_CAP:
+                self.history.append(text)
             due = [s for s in self.waiting
                    if (s.after_messages is not None and self.count >= s.after_messages)
                    or (s.on_prefix is not None and text.upper().startswith(s.on_prefix.upper()))]
@@ -311,6 +316,11 @@ class FaultPlan:
         """Program messages ROLE's instrument received since it was first named in this plan."""
         counter = self._counters.get(role)
         return 0 if counter is None else counter.count
+
+    def messages(self, role: str) -> list[str]:
+        """The program messages ROLE's instrument received since it was first named in this plan, oldest first."""
+        counter = self._counters.get(role)
+        return [] if counter is None else list(counter.history)
 
     # -- firing ------------------------------------------------------------------------
     def fire(self, spec: FaultSpec | str) -> FiredFault:
@@ -402,7 +412,7 @@ class FaultPlan:
         with self._lock:
             self._cleared = True
             timers, self._timers = self._timers, []
-            counters, self._counters = list(self._counters.values()), {}
+            counters = list(self._counters.values())
         for timer in timers:
             timer.cancel()
         for counter in counters:

@@ -9,7 +9,6 @@ import pytest
 from sqlalchemy.engine import make_url
 
 from benchctl.cli import main
-from benchctl.commands import db as db_commands
 from benchctl.errors import SchemaVersionError
 from benchctl.store import RunStart, Store, upgrade
 
