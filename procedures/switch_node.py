@@ -55,7 +55,7 @@ def plan(p: Parameters) -> list[dict]:
 
 def run(bench, p: Parameters) -> None:
     from benchctl.analysis.ringing import fit_ringing, parasitics_from_two_frequencies, rc_snubber
-    from benchctl.commands.analyze_waveforms import ring_start_index
+    from benchctl.analysis.ringing import ring_start_index
 
     source, load, scope = bench.source, bench.load, bench.role("scope")
     ch = p.drain_channel

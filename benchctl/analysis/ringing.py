@@ -321,3 +321,14 @@ def rc_snubber(
         v_switch_v=float(v_switch_v),
         fsw_hz=float(fsw_hz),
     )
+
+
+def ring_start_index(v: ArrayLike, tail_fraction: float = 0.2, drop: float = 0.05) -> int:
+    """First sample after the peak (and any flat clamp plateau) that has fallen ``drop`` of the
+    way toward the settled value (median of the last ``tail_fraction`` of the record)."""
+    v = np.asarray(v, dtype=float)
+    k = int(np.argmax(v))
+    settled = float(np.median(v[-max(4, int(tail_fraction * v.size)):]))
+    limit = v[k] - drop * (v[k] - settled)
+    after = np.flatnonzero(v[k:] < limit)
+    return k + int(after[0]) if after.size else k

@@ -178,19 +178,9 @@ def run_ringing(args: argparse.Namespace) -> int:
                                      f"[{t[0]!r}, {t[-1]!r}] s")
         start = int(np.searchsorted(t, args.start_time_s))
     else:
+        from benchctl.analysis.ringing import ring_start_index
+
         start = ring_start_index(v)
     fit = fit_ringing(table.t_s, v, start_index=start)
     return _emit(args, "ringing", {"column": name}, fit)
 
-
-def ring_start_index(v: Any, tail_fraction: float = 0.2, drop: float = 0.05) -> int:
-    """First sample after the peak (and any flat clamp plateau) that has fallen ``drop`` of the
-    way toward the settled value (median of the last ``tail_fraction`` of the record)."""
-    import numpy as np
-
-    v = np.asarray(v, dtype=float)
-    k = int(np.argmax(v))
-    settled = float(np.median(v[-max(4, int(tail_fraction * v.size)):]))
-    limit = v[k] - drop * (v[k] - settled)
-    after = np.flatnonzero(v[k:] < limit)
-    return k + int(after[0]) if after.size else k

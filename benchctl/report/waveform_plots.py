@@ -31,6 +31,11 @@ def _time_axis(t_s: np.ndarray) -> tuple[float, str]:
     return 1.0, "s"
 
 
+def _fmt_time(t_s: float) -> str:
+    factor, unit = _time_axis(np.array([t_s * 1.0001]))
+    return f"{t_s * factor:.3g} {unit}"
+
+
 def transient_figure(t_s: ArrayLike, vout_v: ArrayLike, metrics: Any, *, iout_a: ArrayLike | None = None,
                      title: str = "Load transient") -> Figure:
     """Output voltage (and load current) against time with the pre-step level, the band,
@@ -50,10 +55,10 @@ def transient_figure(t_s: ArrayLike, vout_v: ArrayLike, metrics: Any, *, iout_a:
             label=f"peak {metrics.peak_deviation_v * 1e3:+.3g} mV")
     if metrics.recovered and metrics.recovery_after_step_s is not None:
         ax.axvline((metrics.step_time_s + metrics.recovery_after_step_s) * k, color=style.line_colour(2),
-                   linestyle=":", label=f"recovered {metrics.recovery_after_step_s * 1e6:.3g} µs")
+                   linestyle=":", label=f"recovered {_fmt_time(metrics.recovery_after_step_s)}")
     if metrics.settled and metrics.settling_after_step_s is not None:
         ax.axvline((metrics.step_time_s + metrics.settling_after_step_s) * k, color=style.line_colour(3),
-                   linestyle="-.", label=f"settled {metrics.settling_after_step_s * 1e6:.3g} µs")
+                   linestyle="-.", label=f"settled {_fmt_time(metrics.settling_after_step_s)}")
     ax.set_ylabel("output deviation (mV)")
     style.set_title(ax, title, f"{metrics.load_step} step")
     style.legend_outside(ax)
@@ -197,7 +202,7 @@ def _mode_map(run: RunData) -> list[ReportFigure]:
 @register_plot("switch-node-ringing", title="Switch-node ringing", order=63, applies=_has("switch_node"))
 def _ringing(run: RunData) -> list[ReportFigure]:
     from benchctl.analysis.ringing import fit_ringing
-    from benchctl.commands.analyze_waveforms import ring_start_index
+    from benchctl.analysis.ringing import ring_start_index
 
     figs = []
     for seq, meta in _records(run, "switch_node"):

@@ -47,6 +47,8 @@ def normalize_url(url_or_path: str | os.PathLike[str]) -> URL:
     text = text.strip()
     if not text:
         raise StoreError("store location is empty; pass a file path such as 'runs.db' or a database URL")
+    if text == ":memory:":  # SQLite's own name for an in-memory database, not a file name
+        return URL.create("sqlite")
     if "://" not in text:
         path = Path(text).expanduser().absolute()
         if not path.parent.is_dir():
