@@ -54,12 +54,21 @@ _resource_manager: Any = None
 
 
 def resource_manager() -> Any:
-    """The process-wide pyvisa ResourceManager on the pure-Python backend (``@py``)."""
-    global _resource_manager
-    with _resource_manager_lock:
-        if _resource_manager is None:
-            import pyvisa
+    """The process-wide pyvisa ResourceManager on the pure-Python backend (``@py``).
 
+    pyvisa shares one manager per backend in a process, so other code closing "its own"
+    manager closes ours too; a closed one is replaced.
+    """
+    global _resource_manager
+    import pyvisa
+
+    with _resource_manager_lock:
+        if _resource_manager is not None:
+            try:
+                _resource_manager.session  # raises InvalidSession once closed
+            except pyvisa.errors.InvalidSession:
+                _resource_manager = None
+        if _resource_manager is None:
             _resource_manager = pyvisa.ResourceManager("@py")
         return _resource_manager
 
@@ -114,7 +123,7 @@ DEFAULT_RETRY_DELAY_S = 0.05
 _RETRYABLE = (InstrumentTimeout, InstrumentConnectionError)
 
 
-def _option_number(options: Mapping[str, Any], key: str, default: float, low: float, high: float,
+def _option_number(name: str, options: Mapping[str, Any], key: str, default: float, low: float, high: float,
                    whole: bool) -> float:
     value = options.get(key, default)
     ok = isinstance(value, (int, float)) and not isinstance(value, bool) and low <= value <= high
@@ -122,9 +131,28 @@ def _option_number(options: Mapping[str, Any], key: str, default: float, low: fl
         ok = float(value) == int(value)
     if not ok:
         kind = "a whole number" if whole else "a number"
-        raise StationFileError(f"options.{key} = {value!r} must be {kind} in [{low:g}, {high:g}]; "
+        raise StationFileError(f"instruments.{name}.options.{key} = {value!r} must be {kind} in [{low:g}, {high:g}]; "
                                f"fix it in the station file (default {default:g})")
     return value
+
+
+def _check_template(key: str, template: str) -> None:
+    """Refuse a command template whose fields do more than name a value (station files are data).
+
+    ``str.format`` would follow ``{value.__class__}`` or ``{value[0]}`` into Python objects;
+    only plain ``{name}`` / ``{name:spec}`` fields are allowed.
+    """
+    import string
+
+    try:
+        fields = [f for _, f, spec, conv in string.Formatter().parse(template) if f is not None]
+    except ValueError as exc:
+        raise StationFileError(f"command override {key!r} = {template!r} is not a valid template: {exc}") from None
+    for name in fields:
+        if not name.isidentifier():
+            raise StationFileError(
+                f"command override {key!r} = {template!r}: field {{{name}}} must be a plain name such as "
+                "{value} or {state} (no attribute, index or positional fields); fix it in the station file")
 
 
 def _bare(exc: InstrumentError) -> str:
@@ -199,8 +227,8 @@ class ScpiDriver:
         self._lock = threading.RLock()
         self.identity: Identity | None = None
         self.last_command = ""
-        self.retries = int(_option_number(self.options, "retries", DEFAULT_RETRIES, 0, 10, True))
-        self.retry_delay_s = float(_option_number(self.options, "retry_delay_s", DEFAULT_RETRY_DELAY_S, 0, 10, False))
+        self.retries = int(_option_number(self.name, self.options, "retries", DEFAULT_RETRIES, 0, 10, True))
+        self.retry_delay_s = float(_option_number(self.name, self.options, "retry_delay_s", DEFAULT_RETRY_DELAY_S, 0, 10, False))
         #: How many times the session was re-established after a failure.
         self.reconnects = 0
         self._wanted_open = False
@@ -225,6 +253,7 @@ class ScpiDriver:
             for key, template in overrides.items():
                 if not isinstance(template, str) or not template.strip():
                     raise StationFileError(f"command override {key!r} must be a non-empty string")
+                _check_template(key, template)
             table.update(overrides)
         return table
 
@@ -279,7 +308,7 @@ class ScpiDriver:
                 "and reachable (for the simulated bench: that `benchctl sim` is running)",
                 instrument=self.name,
             ) from exc
-        except (OSError, ValueError) as exc:
+        except Exception as exc:  # pyvisa-py raises bare exceptions too (a port that is not a number ...)
             raise InstrumentConnectionError(
                 f"cannot open VISA resource {self.resource!r}: {exc}; check the resource "
                 "string and that the instrument is reachable",
