@@ -45,8 +45,16 @@ def efficiency_grid(points) -> Table | None:
     return table
 
 
+_SCOPE_LABELS = {"vin_set_v": ("Vin", "V"), "iout_set_a": ("Iout", "A")}
+
+
 def _scope_text(scope) -> str:
-    return ", ".join(f"{k}={v:g}" if isinstance(v, (int, float)) else f"{k}={v}" for k, v in scope.items())
+    """``{"vin_set_v": 48, "iout_set_a": 2.5}`` -> ``Vin 48 V, Iout 2.5 A``."""
+    parts = []
+    for k, v in scope.items():
+        label, unit = _SCOPE_LABELS.get(k, (k, ""))
+        parts.append(f"{label} {v:g} {unit}".rstrip() if isinstance(v, (int, float)) else f"{label} {v}")
+    return ", ".join(parts)
 
 
 def _note(details) -> str:
@@ -56,9 +64,9 @@ def _note(details) -> str:
         if not details.get("found", True):
             return str(details.get("reason", ""))
         verdict = "meets" if details.get("meets_indicative_limit") else "below"
-        return f"{verdict} indicative limit {details['limit_efficiency']:.4f} ({details.get('supply_class')})"
+        return f"{verdict} {details['limit_efficiency']:.4f} (indicative)"
     if "indicative_limit_w" in details:
-        return f"indicative no-load limit {details['indicative_limit_w']:g} W"
+        return f"limit {details['indicative_limit_w']:g} W (indicative)"
     return ""
 
 
@@ -109,5 +117,7 @@ def print_run_summary(store, run_id: int) -> None:
         for col in ("time (UTC)", "kind", "message"):
             ev.add_column(col, overflow="fold")
         for _, e in events.iterrows():
-            ev.add_row(str(e.get("t_utc", "")), str(e["kind"]), str(e["message"]))
+            t = e.get("t_utc")
+            ev.add_row(t.strftime("%Y-%m-%d %H:%M:%S") if hasattr(t, "strftime") else str(t or ""),
+                       str(e["kind"]), str(e["message"]))
         out.print(ev)
