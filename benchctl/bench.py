@@ -99,6 +99,33 @@ class Bench:
     def output_meter(self) -> Any:
         return self.role("output_meter")
 
+    # -- operating points -------------------------------------------------------
+
+    def power_up(self, vin_v: float, iout_a: float, *, source_current_limit_a: float | None = None,
+                 startup_delay_s: float = 0.05) -> None:
+        """Bring the DUT up in the usual order: source limit and voltage, load CC level, source
+        on, a fixed wait for the start-up, then the load on. ``source_current_limit_a`` None
+        uses the station's ``source_current_max_a``."""
+        source, load = self.source, self.load
+        limit = self.limits.source_current_max_a if source_current_limit_a is None else source_current_limit_a
+        source.set_current_limit(limit)
+        source.set_voltage(vin_v)
+        load.set_mode("CC")
+        load.set_current(iout_a)
+        source.set_output(True)
+        self.wait(startup_delay_s)
+        load.set_input(True)
+        self._vin_set_v, self._iout_set_a = vin_v, iout_a
+
+    def set_operating_point(self, vin_v: float, iout_a: float) -> None:
+        """Move to (line, load), sending only the setpoint that changed."""
+        if vin_v != getattr(self, "_vin_set_v", None):
+            self.source.set_voltage(vin_v)
+            self._vin_set_v = vin_v
+        if iout_a != getattr(self, "_iout_set_a", None):
+            self.load.set_current(iout_a)
+            self._iout_set_a = iout_a
+
     # -- waiting -------------------------------------------------------------------
 
     def wait(self, seconds: float) -> None:

@@ -299,6 +299,16 @@ def load_procedure(name_or_path: str) -> Procedure:
     )
 
 
+def power_parameters(*, startup_delay_s: float = 0.05) -> list[Parameter]:
+    """The parameters of :meth:`benchctl.bench.Bench.power_up` that most procedures share."""
+    return [
+        Parameter("source_current_limit_a", "A", None, minimum=0.0, maximum=1000.0, optional=True,
+                  help="source current limit (default: the station's source_current_max_a)"),
+        Parameter("startup_delay_s", "s", startup_delay_s, minimum=0.0, maximum=60.0,
+                  help="fixed wait after the source turns on, before the load is switched on"),
+    ]
+
+
 def frange(start: float, stop: float, step: float) -> list[float]:
     """Values from start to stop inclusive in steps of ``step`` (rounded to avoid float drift)."""
     if step <= 0:

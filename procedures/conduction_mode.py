@@ -17,7 +17,7 @@ from __future__ import annotations
 
 import math
 
-from benchctl.procedure import Parameter, Parameters, Result
+from benchctl.procedure import Parameter, Parameters, Result, power_parameters
 
 NAME = "conduction_mode"
 DESCRIPTION = "CCM/DCM map from the switch current, and the boundary load by bisection"
@@ -40,8 +40,7 @@ PARAMETERS = [
     Parameter("gate_channel", "", 0, minimum=0, maximum=8, kind="int", help="scope channel on the gate drive (0 = none)"),
     Parameter("switch_current_scale_a_per_div", "A", 0.5, minimum=1e-5, maximum=1000.0,
               help="switch-current channel A/div (the screen spans -1 ... +9 divisions)"),
-    Parameter("source_current_limit_a", "A", 1.2, minimum=0.0, maximum=1000.0, help="source current limit"),
-    Parameter("startup_delay_s", "s", 0.1, minimum=0.0, maximum=60.0, help="wait after the source turns on"),
+    *power_parameters(startup_delay_s=0.1),
     Parameter("settle_s", "s", 0.02, minimum=0.0, maximum=60.0, help="wait after each load change"),
     Parameter("acquire_timeout_s", "s", 10.0, minimum=0.1, maximum=600.0, help="longest wait for one capture"),
 ]
@@ -68,13 +67,8 @@ def run(bench, p: Parameters) -> None:
     scope.set_bandwidth_limit(ch, None)
     scope.set_trigger("immediate")
     points = plan(p)
-    source.set_current_limit(p.source_current_limit_a)
-    source.set_voltage(points[0]["vin_set_v"])
-    load.set_mode("CC")
-    load.set_current(points[0]["iout_set_a"])
-    source.set_output(True)
-    bench.wait(p.startup_delay_s)
-    load.set_input(True)
+    bench.power_up(points[0]["vin_set_v"], points[0]["iout_set_a"],
+                   source_current_limit_a=p.source_current_limit_a, startup_delay_s=p.startup_delay_s)
 
     def measure(vin: float, iout: float, tag: str) -> str:
         load.set_current(iout)

@@ -10,7 +10,7 @@ limit, and the no-load input power.
 
 from __future__ import annotations
 
-from benchctl.procedure import Parameter, Parameters, Result, ascending_descending
+from benchctl.procedure import Parameter, Parameters, Result, ascending_descending, power_parameters
 
 NAME = "efficiency_map"
 DESCRIPTION = "efficiency, line and load regulation over line x load"
@@ -26,9 +26,7 @@ PARAMETERS = [
               help="explicit load currents; overrides load_pct when given"),
     Parameter("descending", "", False, kind="bool", help="also step the load back down (hysteresis)"),
     Parameter("vout_nom_v", "V", 5.0, minimum=0.0, maximum=1500.0, help="nominal output voltage"),
-    Parameter("source_current_limit_a", "A", None, minimum=0.0, maximum=1000.0, optional=True,
-              help="source current limit (default: the station's source_current_max_a)"),
-    Parameter("startup_delay_s", "s", 0.05, minimum=0.0, maximum=60.0, help="fixed wait after the source turns on"),
+    *power_parameters(startup_delay_s=0.05),
     Parameter("settle_rel_tol", "", 2e-4, minimum=0.0, maximum=0.1, help="settle: relative agreement of readings"),
     Parameter("settle_abs_tol_v", "V", 1e-3, minimum=0.0, maximum=1.0, help="settle: absolute agreement of readings"),
     Parameter("settle_abs_tol_a", "A", 2e-4, minimum=0.0, maximum=10.0, help="settle: absolute agreement of input current readings"),
@@ -57,14 +55,8 @@ def run(bench, p: Parameters) -> None:
     source, load = bench.source, bench.load
     meter_in, meter_out = bench.input_meter, bench.output_meter
     points = plan(p)
-    limit_a = p.source_current_limit_a
-    source.set_current_limit(bench.limits.source_current_max_a if limit_a is None else limit_a)
-    source.set_voltage(points[0]["vin_set_v"])
-    load.set_mode("CC")
-    load.set_current(points[0]["iout_set_a"])
-    source.set_output(True)
-    bench.wait(p.startup_delay_s)
-    load.set_input(True)
+    bench.power_up(points[0]["vin_set_v"], points[0]["iout_set_a"],
+                   source_current_limit_a=p.source_current_limit_a, startup_delay_s=p.startup_delay_s)
     vin_now = points[0]["vin_set_v"]
     for point in bench.sweep(points):
         if point["vin_set_v"] != vin_now:

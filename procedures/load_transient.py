@@ -13,7 +13,7 @@ from __future__ import annotations
 
 import math
 
-from benchctl.procedure import Parameter, Parameters, Result
+from benchctl.procedure import Parameter, Parameters, Result, power_parameters
 
 NAME = "load_transient"
 DESCRIPTION = "load-step response: peak deviation, recovery and settling over line x step x slew"
@@ -38,8 +38,7 @@ PARAMETERS = [
     Parameter("vout_scale_v_per_div", "V", 0.05, minimum=1e-5, maximum=100.0, help="output channel V/div (AC coupled)"),
     Parameter("bandwidth_limit_hz", "Hz", 20e6, minimum=0.0, maximum=1e10,
               help="bandwidth limit of the output channel (0 = full bandwidth)"),
-    Parameter("source_current_limit_a", "A", 1.2, minimum=0.0, maximum=1000.0, help="source current limit"),
-    Parameter("startup_delay_s", "s", 0.1, minimum=0.0, maximum=60.0, help="wait after the source turns on"),
+    *power_parameters(startup_delay_s=0.1),
     Parameter("settle_s", "s", 0.05, minimum=0.0, maximum=60.0, help="wait before each step"),
     Parameter("acquire_timeout_s", "s", 10.0, minimum=0.1, maximum=600.0, help="longest wait for one capture"),
 ]
@@ -89,13 +88,8 @@ def run(bench, p: Parameters) -> None:
     points = plan(p)
     _setup_scope(scope, p)
     bw = scope.bandwidth_limit_hz(p.vout_channel)
-    source.set_current_limit(p.source_current_limit_a)
-    source.set_voltage(points[0]["vin_set_v"])
-    load.set_mode("CC")
-    load.set_current(points[0]["iout_from_a"])
-    source.set_output(True)
-    bench.wait(p.startup_delay_s)
-    load.set_input(True)
+    bench.power_up(points[0]["vin_set_v"], points[0]["iout_from_a"],
+                   source_current_limit_a=p.source_current_limit_a, startup_delay_s=p.startup_delay_s)
     load.set_trigger_out(True)
     vin_now = None
     for point in bench.sweep(points):

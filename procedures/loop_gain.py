@@ -29,7 +29,7 @@ from typing import Any, Mapping
 
 import numpy as np
 
-from benchctl.procedure import Parameter, Parameters, Result
+from benchctl.procedure import Parameter, Parameters, Result, power_parameters
 
 NAME = "loop_gain"
 DESCRIPTION = "loop gain, crossover, phase and gain margin over the line x load corners"
@@ -52,9 +52,7 @@ PARAMETERS = [
     Parameter("point_iout_a", "A", None, minimum=0.0, maximum=1000.0, kind="float_list", optional=True,
               help="explicit operating points (load current), paired with point_vin_v"),
     Parameter("vout_nom_v", "V", 5.0, minimum=0.0, maximum=1500.0, help="nominal output voltage"),
-    Parameter("source_current_limit_a", "A", None, minimum=0.0, maximum=1000.0, optional=True,
-              help="source current limit (default: the station's source_current_max_a)"),
-    Parameter("startup_delay_s", "s", 0.05, minimum=0.0, maximum=60.0, help="wait after the source turns on"),
+    *power_parameters(startup_delay_s=0.05),
     Parameter("settle_rel_tol", "", 1e-3, minimum=0.0, maximum=0.1, help="settle: relative agreement of Vout"),
     Parameter("settle_abs_tol_v", "V", 2e-3, minimum=0.0, maximum=1.0, help="settle: absolute agreement of Vout"),
     Parameter("settle_timeout_s", "s", 5.0, minimum=0.0, maximum=600.0, help="settle: give up after"),
@@ -373,14 +371,8 @@ def run(bench, p: Parameters) -> None:
     analyzer.set_bandwidth(p.bandwidth_hz)
     analyzer.set_averaging(p.averaging)
     analyzer.set_polarity(p.phase_convention == "inverted")
-    limit_a = p.source_current_limit_a
-    source.set_current_limit(bench.limits.source_current_max_a if limit_a is None else limit_a)
-    source.set_voltage(points[0]["vin_set_v"])
-    load.set_mode("CC")
-    load.set_current(points[0]["iout_set_a"])
-    source.set_output(True)
-    bench.wait(p.startup_delay_s)
-    load.set_input(True)
+    bench.power_up(points[0]["vin_set_v"], points[0]["iout_set_a"],
+                   source_current_limit_a=p.source_current_limit_a, startup_delay_s=p.startup_delay_s)
     check_at = points[p.injection_check_index] if p.injection_check and points else None
     for point in bench.sweep(points):
         source.set_voltage(point["vin_set_v"])

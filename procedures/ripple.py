@@ -9,7 +9,7 @@ read back from the scope and stored with every point.
 
 from __future__ import annotations
 
-from benchctl.procedure import Parameter, Parameters, Result
+from benchctl.procedure import Parameter, Parameters, Result, power_parameters
 
 NAME = "ripple"
 DESCRIPTION = "output ripple pk-pk and RMS over line x load (scope bandwidth limit recorded)"
@@ -26,8 +26,7 @@ PARAMETERS = [
     Parameter("vout_scale_v_per_div", "V", 0.02, minimum=1e-5, maximum=100.0, help="output channel V/div (AC coupled)"),
     Parameter("bandwidth_limit_hz", "Hz", 20e6, minimum=0.0, maximum=1e10,
               help="scope bandwidth limit (0 = full bandwidth); 20 MHz is common practice"),
-    Parameter("source_current_limit_a", "A", 1.2, minimum=0.0, maximum=1000.0, help="source current limit"),
-    Parameter("startup_delay_s", "s", 0.1, minimum=0.0, maximum=60.0, help="wait after the source turns on"),
+    *power_parameters(startup_delay_s=0.1),
     Parameter("settle_s", "s", 0.05, minimum=0.0, maximum=60.0, help="wait after each load change"),
     Parameter("acquire_timeout_s", "s", 10.0, minimum=0.1, maximum=600.0, help="longest wait for one capture"),
 ]
@@ -52,13 +51,8 @@ def run(bench, p: Parameters) -> None:
     scope.set_bandwidth_limit(ch, p.bandwidth_limit_hz or None)
     scope.set_trigger("immediate")
     bw = scope.bandwidth_limit_hz(ch)
-    source.set_current_limit(p.source_current_limit_a)
-    source.set_voltage(points[0]["vin_set_v"])
-    load.set_mode("CC")
-    load.set_current(points[0]["iout_set_a"])
-    source.set_output(True)
-    bench.wait(p.startup_delay_s)
-    load.set_input(True)
+    bench.power_up(points[0]["vin_set_v"], points[0]["iout_set_a"],
+                   source_current_limit_a=p.source_current_limit_a, startup_delay_s=p.startup_delay_s)
     vin_now = points[0]["vin_set_v"]
     for point in bench.sweep(points):
         if point["vin_set_v"] != vin_now:

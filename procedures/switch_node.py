@@ -19,7 +19,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from benchctl.procedure import Parameter, Parameters, Result
+from benchctl.procedure import Parameter, Parameters, Result, power_parameters
 
 NAME = "switch_node"
 DESCRIPTION = "drain peak, ringing frequency and damping; two-capacitor parasitics and an RC snubber"
@@ -42,8 +42,7 @@ PARAMETERS = [
     Parameter("c_add_f", "F", 0.0, minimum=0.0, maximum=1e-6,
               help="known capacitance added for the two-capacitor method (0 = skip it)"),
     Parameter("snubber_c_multiple", "", 3.0, minimum=1.0, maximum=100.0, help="snubber C as a multiple of C_par"),
-    Parameter("source_current_limit_a", "A", 1.2, minimum=0.0, maximum=1000.0, help="source current limit"),
-    Parameter("startup_delay_s", "s", 0.1, minimum=0.0, maximum=60.0, help="wait after the source turns on"),
+    *power_parameters(startup_delay_s=0.1),
     Parameter("settle_s", "s", 0.02, minimum=0.0, maximum=60.0, help="wait after each change"),
     Parameter("acquire_timeout_s", "s", 10.0, minimum=0.1, maximum=600.0, help="longest wait for one capture"),
 ]
@@ -68,13 +67,8 @@ def run(bench, p: Parameters) -> None:
     scope.set_bandwidth_limit(ch, None)
     scope.set_fixture_capacitance(0.0)
     points = plan(p)
-    source.set_current_limit(p.source_current_limit_a)
-    source.set_voltage(points[0]["vin_set_v"])
-    load.set_mode("CC")
-    load.set_current(points[0]["iout_set_a"])
-    source.set_output(True)
-    bench.wait(p.startup_delay_s)
-    load.set_input(True)
+    bench.power_up(points[0]["vin_set_v"], points[0]["iout_set_a"],
+                   source_current_limit_a=p.source_current_limit_a, startup_delay_s=p.startup_delay_s)
 
     def capture(vin: float):
         scope.set_trigger(ch, level=p.trigger_level_fraction * vin, slope="rising", holdoff_s=p.trigger_holdoff_s)
