@@ -182,7 +182,7 @@ def test_input_errors():
         classify_conduction_mode(t, np.zeros_like(t))
     with pytest.raises(AnalysisInputError, match="does not switch"):
         classify_conduction_mode(t, i_sw, v_gate_v=np.ones_like(t))
-    with pytest.raises(AnalysisInputError, match="equal length"):
+    with pytest.raises(AnalysisInputError, match="pass arrays from the same capture"):
         classify_conduction_mode(t, i_sw[:-1])
     with pytest.raises(AnalysisInputError, match="no complete on-time"):
         classify_conduction_mode(t, i_sw, v_gate_v=gate, blanking_s=TS)

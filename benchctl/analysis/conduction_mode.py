@@ -23,6 +23,7 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
+from benchctl.analysis.series import as_series
 from benchctl.errors import AnalysisInputError
 
 logger = logging.getLogger(__name__)
@@ -73,25 +74,6 @@ class BoundarySearch:
     hi_mode: str
     evaluations: tuple[tuple[float, str], ...]
     reason: str
-
-
-def _as_series(t_s: ArrayLike, y: ArrayLike, name: str) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
-    t = np.asarray(t_s, dtype=float)
-    v = np.asarray(y, dtype=float)
-    if t.ndim != 1 or v.ndim != 1 or t.size != v.size:
-        raise AnalysisInputError(
-            f"t_s and {name} must be 1-D arrays of equal length; got shapes {t.shape} and {v.shape}"
-        )
-    if t.size < 16:
-        raise AnalysisInputError(f"{name} has {t.size} samples; at least 16 are needed")
-    for arr, label in ((t, "t_s"), (v, name)):
-        bad = np.flatnonzero(~np.isfinite(arr))
-        if bad.size:
-            raise AnalysisInputError(f"{label} holds NaN or infinite values (first at index {bad[0]}); clean the record")
-    if np.any(np.diff(t) <= 0):
-        i = int(np.flatnonzero(np.diff(t) <= 0)[0])
-        raise AnalysisInputError(f"t_s is not strictly increasing at index {i + 1}; sort the record")
-    return t, v
 
 
 def _edges(
@@ -153,7 +135,7 @@ def classify_conduction_mode(
     extrapolated back to the edge. CCM when median start / median peak >
     ``threshold_ratio``. Common practice.
     """
-    t, i = _as_series(t_s, i_switch_a, "i_switch_a")
+    t, i = as_series(t_s, i_switch_a, "i_switch_a", 16)
     if not 0 < threshold_ratio < 1:
         raise AnalysisInputError(f"threshold_ratio must lie between 0 and 1, got {threshold_ratio!r}")
     holdoff = 0.0
@@ -166,7 +148,7 @@ def classify_conduction_mode(
         raise AnalysisInputError("i_switch_a never rises above zero; check the probe polarity and channel")
 
     if v_gate_v is not None:
-        _, g = _as_series(t_s, v_gate_v, "v_gate_v")
+        _, g = as_series(t_s, v_gate_v, "v_gate_v", 16)
         g_lo, g_hi = float(np.percentile(g, 1)), float(np.percentile(g, 99))
         if g_hi - g_lo <= 0:
             raise AnalysisInputError("v_gate_v does not switch (flat); check the gate-drive channel")
@@ -245,7 +227,7 @@ def conduction_mode_from_idle_interval(
     valley/peak ratio above it cannot touch zero). Erickson & Maksimović 2nd ed.
     ch. 5 (DCM subinterval D3, from memory).
     """
-    t, i = _as_series(t_s, i_inductor_a, "i_inductor_a")
+    t, i = as_series(t_s, i_inductor_a, "i_inductor_a", 16)
     peak = float(np.percentile(i, 99.5))
     if peak <= 0:
         raise AnalysisInputError("i_inductor_a never rises above zero; check the probe polarity and channel")

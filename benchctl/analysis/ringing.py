@@ -20,6 +20,7 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 from scipy.optimize import least_squares
 
+from benchctl.analysis.series import as_series
 from benchctl.errors import AnalysisInputError
 
 logger = logging.getLogger(__name__)
@@ -85,25 +86,6 @@ class RcSnubberDesign:
     loss_w: float
     v_switch_v: float
     fsw_hz: float
-
-
-def _as_series(t_s: ArrayLike, y: ArrayLike, name: str) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
-    t = np.asarray(t_s, dtype=float)
-    v = np.asarray(y, dtype=float)
-    if t.ndim != 1 or v.ndim != 1 or t.size != v.size:
-        raise AnalysisInputError(
-            f"t_s and {name} must be 1-D arrays of equal length; got shapes {t.shape} and {v.shape}"
-        )
-    if t.size < 20:
-        raise AnalysisInputError(f"{name} has {t.size} samples; at least 20 are needed to fit a ring")
-    for arr, label in ((t, "t_s"), (v, name)):
-        bad = np.flatnonzero(~np.isfinite(arr))
-        if bad.size:
-            raise AnalysisInputError(f"{label} holds NaN or infinite values (first at index {bad[0]}); clean the record")
-    if np.any(np.diff(t) <= 0):
-        i = int(np.flatnonzero(np.diff(t) <= 0)[0])
-        raise AnalysisInputError(f"t_s is not strictly increasing at index {i + 1}; sort the record")
-    return t, v
 
 
 def _fft_frequency(tr: NDArray[np.float64], x: NDArray[np.float64]) -> float:
@@ -185,7 +167,7 @@ def fit_ringing(
     covers ``duration_s`` seconds from the start (default: 1.5 times the time the ring
     takes to decay to 5 % of its first swing, at most to the end of the record).
     """
-    t, v = _as_series(t_s, v_v, "v_v")
+    t, v = as_series(t_s, v_v, "v_v", 20)
     if start_index is None:
         start_index = int(np.argmax(v))
     if not 0 <= start_index < t.size - 20:

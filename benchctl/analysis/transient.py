@@ -17,6 +17,7 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
+from benchctl.analysis.series import as_series
 from benchctl.errors import AnalysisInputError
 
 logger = logging.getLogger(__name__)
@@ -54,32 +55,6 @@ class TransientMetrics:
     settling_reason: str
 
 
-def _as_series(t_s: ArrayLike, y: ArrayLike, name: str, min_samples: int) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
-    t = np.asarray(t_s, dtype=float)
-    v = np.asarray(y, dtype=float)
-    if t.ndim != 1 or v.ndim != 1:
-        raise AnalysisInputError(f"t_s and {name} must be 1-D arrays; got shapes {t.shape} and {v.shape}")
-    if t.size != v.size:
-        raise AnalysisInputError(
-            f"t_s has {t.size} samples but {name} has {v.size}; pass arrays from the same capture"
-        )
-    if t.size < min_samples:
-        raise AnalysisInputError(f"{name} has {t.size} samples; at least {min_samples} are needed")
-    for arr, label in ((t, "t_s"), (v, name)):
-        bad = np.flatnonzero(~np.isfinite(arr))
-        if bad.size:
-            raise AnalysisInputError(
-                f"{label} holds NaN or infinite values (first at index {bad[0]}); remove or interpolate them"
-            )
-    steps = np.diff(t)
-    if np.any(steps <= 0):
-        i = int(np.flatnonzero(steps <= 0)[0])
-        raise AnalysisInputError(
-            f"t_s is not strictly increasing at index {i + 1} ({t[i]!r} then {t[i + 1]!r}); sort the record"
-        )
-    return t, v
-
-
 def find_step_time(t_s: ArrayLike, iout_a: ArrayLike) -> tuple[float, str]:
     """Find the load-step edge in a load-current channel.
 
@@ -89,7 +64,7 @@ def find_step_time(t_s: ArrayLike, iout_a: ArrayLike) -> tuple[float, str]:
     Raises AnalysisInputError when the levels differ by no more than ten times the
     sample-to-sample noise (common practice).
     """
-    t, i = _as_series(t_s, iout_a, "iout_a", 10)
+    t, i = as_series(t_s, iout_a, "iout_a", 10)
     lo, hi = float(np.percentile(i, 5)), float(np.percentile(i, 95))
     d = np.diff(i)
     noise = 1.4826 * float(np.median(np.abs(d - np.median(d)))) / np.sqrt(2.0)
@@ -160,7 +135,7 @@ def load_step_metrics(
     the post-step part). Method: common practice (peak deviation from the pre-step
     value; recovery until the output enters and stays in the band).
     """
-    t, v = _as_series(t_s, vout_v, "vout_v", 10)
+    t, v = as_series(t_s, vout_v, "vout_v", 10)
     direction_from_current: str | None = None
     if iout_a is not None:
         found_t, direction_from_current = find_step_time(t_s, iout_a)
