@@ -283,7 +283,7 @@ class ScpiDriver:
             self._open_session()
         try:
             self.identity = self._identify_once()
-            self._read_event_status()
+            self._read_event_status(strict=False)
         except Exception:
             self.close()
             raise
@@ -680,12 +680,17 @@ class ScpiDriver:
                 "mains and connection, then start the run again",
                 instrument=self.name, command=command)
 
-    def _read_event_status(self) -> int | None:
-        """Read (and so clear) ``*ESR?``; None when the answer is not a number."""
-        answer = self.ask(self.commands["event_status"])
+    def _read_event_status(self, strict: bool = True) -> int | None:
+        """Read (and so clear) ``*ESR?``. A non-number raises, or gives None when not ``strict`` (at open)."""
+        command = self.commands["event_status"]
+        answer = self.ask(command)
         try:
             return int(float(answer))
         except ValueError:
+            if strict:
+                raise InstrumentResponseError(
+                    f"expected the event status register as a number, got {answer!r}; whether the instrument "
+                    "reset cannot be told", instrument=self.name, command=command) from None
             logger.debug("%s: *ESR? answered %r, not a number", self.name, answer)
             return None
 
