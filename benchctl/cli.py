@@ -59,6 +59,10 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--time-scale", type=float, default=1.0, help="model seconds per real second (default 1)")
     p.add_argument("--seed", type=int, default=1, help="seed of the measurement noise")
     p.add_argument("--base-port", type=int, default=0, help="first TCP port (default: free ports)")
+    p.add_argument("--fault", action="append", default=[], metavar="SPEC",
+                   help="inject a fault for a dry run (repeatable): KIND[@ROLE][:after=N|on=TEXT|at=T|random=SEED"
+                        "][,for=S], e.g. drop@source:after=40,for=0 or feedback_open:at=3.5; kinds: unresponsive, "
+                        "drop, garble, scpi_error, reset, feedback_open, output_short, overheat, input_sag")
 
     p = sub.add_parser("instruments", help="connect to every instrument of a station and identify it")
     p.add_argument("--station", required=True, metavar="FILE", help="station file (TOML)")

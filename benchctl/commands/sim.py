@@ -6,6 +6,7 @@ import argparse
 import threading
 from pathlib import Path
 
+from rich.markup import escape
 from rich.table import Table
 
 from benchctl.cli import EXIT_BAD_INPUT, EXIT_OK
@@ -36,8 +37,17 @@ def cmd_sim(args: argparse.Namespace) -> int:
     if not args.time_scale > 0:
         error_console().print("[bold red]error:[/] --time-scale must be positive")
         return EXIT_BAD_INPUT
+    from simulated_instruments.faults import FaultSpecError, apply_fault_specs, parse_fault_spec
+
+    try:
+        specs = [parse_fault_spec(text) for text in args.fault]
+    except FaultSpecError as exc:
+        error_console().print(f"[bold red]error:[/] --fault: {escape(str(exc))}", soft_wrap=True)
+        return EXIT_BAD_INPUT
     bench = SimulatedBench(args.model, time_scale=args.time_scale, seed=args.seed, base_port=args.base_port)
     bench.start()
+    if specs:
+        apply_fault_specs(bench, specs)
     try:
         path = bench.write_station(args.station_out or default_station_path(args.model))
         table = Table(title=f"simulated bench: {bench.design.description}")
@@ -53,6 +63,8 @@ def cmd_sim(args: argparse.Namespace) -> int:
         out.print(f"try:  benchctl instruments --station {path}")
         if bench.hazardous:
             print_caution("This simulated converter's input range goes above 60 V DC, as the real one would.")
+        for spec in args.fault:
+            out.print(f"fault armed: {escape(spec)}")
         out.print("serving until Ctrl-C ...")
         threading.Event().wait()
     except KeyboardInterrupt:
