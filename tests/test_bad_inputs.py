@@ -77,6 +77,12 @@ def files(bench, tmp_path_factory):
         "limits_unknown_key": station("l2.toml", "[[limit]]\nname = 'a'\nquantity = 'efficiency'\nminimum = 0.8\n"),
         "limits_no_bound": station("l3.toml", "[[limit]]\nname = 'a'\nquantity = 'efficiency'\n"),
         "limits_code": station("l4.toml", "[[limit]]\nname = 'a'\nquantity = 'efficiency'\nmin = '__import__(\"os\").getcwd()'\n"),
+        "csv_no_freq": station("c1.csv", "f,gain_db,phase_deg\n10,20,-90\n100,0,-120\n"),
+        "csv_text_cell": station("c2.csv", "freq_hz,gain_db,phase_deg\n10,20,-90\n100,zero,-120\n1000,-20,-150\n"),
+        "csv_freq_down": station("c3.csv", "freq_hz,gain_db,phase_deg\n100,20,-90\n10,0,-120\n1000,-20,-150\n"),
+        "csv_empty": station("c4.csv", ""),
+        "wave_no_time": station("w1.csv", "vout_v\n5.0\n5.1\n"),
+        "wave_time_back": station("w2.csv", "t_s,vout_v\n" + "".join(f"{t}e-6,5.0{t}\n" for t in (0, 1, 2, 3, 5, 4, 6, 7, 8, 9))),
         "db": str(root / "runs.db"),
         "missing": str(root / "nothing-here.toml"),
     }
@@ -140,6 +146,14 @@ CASES = [
     ("limits unknown key", ["check", "latest", "--limits", "{limits_unknown_key}", "--db", "{db}"], "problem(s) in the limits file", 2),
     ("limit without bound", ["check", "latest", "--limits", "{limits_no_bound}", "--db", "{db}"], "problem(s) in the limits file", 2),
     ("limit holding code", ["check", "latest", "--limits", "{limits_code}", "--db", "{db}"], "problem(s) in the limits file", 2),
+    # --- CSV files for analysis (loop gain: freq_hz + gain_db/phase_deg or re/im; waveforms: t_s + values)
+    ("loop CSV without freq_hz", ["analyze", "loop-gain", "{csv_no_freq}"], "freq_hz", 2),
+    ("loop CSV with text in a number cell", ["analyze", "loop-gain", "{csv_text_cell}"], "line 3", 2),
+    ("loop CSV frequency not increasing", ["analyze", "loop-gain", "{csv_freq_down}"], "does not increase", 2),
+    ("loop CSV empty", ["analyze", "loop-gain", "{csv_empty}"], "error", 2),
+    ("loop CSV missing", ["analyze", "loop-gain", "{missing}"], "no such file", 2),
+    ("waveform CSV without time column", ["analyze", "ripple", "{wave_no_time}"], "need a time column", 2),
+    ("waveform CSV time going back", ["analyze", "ripple", "{wave_time_back}"], "increasing", 2),
     # --- database URLs (SQLAlchemy URL syntax, sqlalchemy.engine.make_url)
     ("unknown database dialect", run("{good}")[:-1] + ["nosuch://x/y"], "Can't load plugin", 3),
     ("unparsable database URL", ["runs", "--db", "://"], "cannot be parsed", 3),

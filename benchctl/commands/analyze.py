@@ -86,7 +86,7 @@ def cmd_analyze(args: argparse.Namespace) -> int:
     except (AnalysisInputError, ConfigurationError) as exc:
         from rich.markup import escape
 
-        error_console().print(f"[bold red]error:[/] {escape(str(exc))}", markup=True, highlight=False)
+        error_console().print(f"[bold red]error:[/] {escape(str(exc))}", markup=True, highlight=False, soft_wrap=True)
         return EXIT_BAD_INPUT
 
 

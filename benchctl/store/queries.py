@@ -45,13 +45,13 @@ def resolve_run(conn: Connection, ref: int | str) -> int:
     except (TypeError, ValueError) as exc:
         raise StoreError(f"run reference {ref!r} is neither a run id nor 'latest'") from exc
     if conn.execute(select(s.runs.c.id).where(s.runs.c.id == run_id)).first() is None:
-        raise StoreError(f"the store has no run {run_id}; list runs with Store.runs()")
+        raise StoreError(f"the store has no run {run_id}; list the runs with `benchctl runs` (Store.runs() from Python)")
     return run_id
 
 
 def _require_run(conn: Connection, run_id: int) -> None:
     if conn.execute(select(s.runs.c.id).where(s.runs.c.id == run_id)).first() is None:
-        raise StoreError(f"the store has no run {run_id}; list runs with Store.runs()")
+        raise StoreError(f"the store has no run {run_id}; list the runs with `benchctl runs` (Store.runs() from Python)")
 
 
 def last_point(conn: Connection, run_id: int) -> int | None:
@@ -79,7 +79,7 @@ def run_info(conn: Connection, run_id: int) -> RunInfo:
         .where(r.c.id == run_id)
     ).first()
     if row is None:
-        raise StoreError(f"the store has no run {run_id}; list runs with Store.runs()")
+        raise StoreError(f"the store has no run {run_id}; list the runs with `benchctl runs` (Store.runs() from Python)")
     inst = s.instruments
     instruments = tuple(
         InstrumentInfo(role=i.role, driver=i.driver, resource=i.resource, identity=i.identity)

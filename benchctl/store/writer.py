@@ -147,7 +147,7 @@ class Writer:
             return
         found = conn.execute(select(s.runs.c.id).where(s.runs.c.id == run_id)).first()
         if found is None:
-            raise StoreError(f"store {self._where} has no run {run_id}; list runs with Store.runs()")
+            raise StoreError(f"store {self._where} has no run {run_id}; list the runs with `benchctl runs` (Store.runs() from Python)")
         self._known_runs.add(run_id)
 
     def _open_run(self, conn: Connection, run_id: int) -> _OpenRun:
