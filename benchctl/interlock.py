@@ -141,23 +141,31 @@ class Interlock:
         self.raise_if_tripped()
 
     def shutdown(self) -> list[str]:
-        """Outputs off in the safe order: source first, then load. Never raises; idempotent."""
+        """Outputs off in the safe order: source first, then load. Never raises; idempotent.
+
+        First the OFF commands go out to the source, then the load, without waiting for any
+        check (sending OFF is always safe), so a dead or slow source cannot delay the load;
+        then each is confirmed through the driver (error queue read, retries, read-back).
+        """
         steps: list[str] = []
+        outputs = [(name, driver, off) for name, driver, off in
+                   (("source", self._source, "set_output"), ("load", self._load, "set_input"))
+                   if driver is not None and getattr(driver, "is_open", False)]
         with self._lock:
-            for name, driver, off in (("source", self._source, "set_output"), ("load", self._load, "set_input")):
-                if driver is None or not getattr(driver, "is_open", False):
-                    continue
+            for name, driver, off in outputs:
+                try:
+                    driver.send(driver.command(off, state="OFF"))
+                    steps.append(f"{name} off sent")
+                except Exception as exc:  # keep going: the next output must still go off
+                    logger.error("could not send the %s its OFF command: %s", name, exc)
+                    steps.append(f"{name} off send FAILED: {exc}")
+            for name, driver, off in outputs:
                 try:
                     getattr(driver, off)(False)
-                    steps.append(f"{name} off")
-                except Exception as exc:  # keep going: the next output must still go off
-                    logger.error("could not turn the %s off: %s", name, exc)
-                    steps.append(f"{name} off FAILED: {exc}")
-                    try:
-                        driver.send(driver.command(off, state="OFF"))
-                        steps.append(f"{name} off (re-sent without error check)")
-                    except Exception as exc2:
-                        steps.append(f"{name} off re-send FAILED: {exc2}")
+                    steps.append(f"{name} off confirmed")
+                except Exception as exc:
+                    logger.error("could not confirm the %s off: %s", name, exc)
+                    steps.append(f"{name} off confirmation FAILED: {exc}")
             self._source_on = False
             self._load_on = False
         return steps

@@ -17,7 +17,7 @@ from simulated_instruments.faults import apply_fault_specs
 
 WATCH_PERIOD_S = 0.2
 # One watch cycle is a handful of loopback exchanges (~1 ms each); allow for a loaded 2-core machine.
-CYCLE_SLACK_S = 0.1
+CYCLE_SLACK_S = 0.3
 READING = {"dut_output_voltage_max_v": ("output_meter", "MEAS:VOLT?"),
            "source_voltage_max_v": ("source", "MEAS:VOLT?"),
            "source_current_max_a": ("source", "MEAS:CURR?")}
