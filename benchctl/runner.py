@@ -181,6 +181,7 @@ def execute(
                            {"limit": exc.limit, "value": exc.value, "instrument": exc.instrument})
     except KeyboardInterrupt:
         status, message = "interrupted", "stopped by the operator (Ctrl-C)"
+        store.record_event(run_id, "interrupted", message, {})
     except InstrumentError as exc:
         status, message = "failed", str(exc)
         store.record_event(run_id, "error", str(exc), {"instrument": exc.instrument, "command": exc.command,
