@@ -31,8 +31,10 @@ PARAMETERS = [
     Parameter("search_max_a", "A", 3.0, minimum=0.0, maximum=1000.0, help="highest load of the boundary search"),
     Parameter("search_tol_a", "A", 0.01, minimum=1e-6, maximum=100.0, help="bisection stops at this bracket width"),
     Parameter("find_boundary", "", True, kind="bool", help="search the boundary at each line voltage"),
-    Parameter("threshold_ratio", "", 0.02, minimum=1e-4, maximum=0.99,
-              help="start/peak switch current above which a cycle counts as CCM"),
+    Parameter("threshold_ratio", "", 0.1, minimum=1e-4, maximum=0.99,
+              help="start/peak switch current above which a cycle counts as CCM (the boundary found lies at "
+                   "(1+r)/(1-r) x the textbook one; a small r misreads light-load DCM, where the start "
+                   "current is near the measurement's own offset)"),
     Parameter("fsw_hz", "Hz", 150e3, minimum=1.0, maximum=1e9, help="switching frequency (record length, edge hold-off)"),
     Parameter("periods", "", 8, minimum=2, maximum=10000, kind="int", help="switching periods per record"),
     Parameter("points", "", 8000, minimum=100, maximum=2_000_000, kind="int", help="record points"),

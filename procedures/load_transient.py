@@ -29,6 +29,9 @@ PARAMETERS = [
     Parameter("slew_a_per_s", "A/s", [1e6], minimum=1.0, maximum=1e12, kind="float_list",
               help="slew rates of the load edges (1e6 A/s = 1 A/us)"),
     Parameter("band_v", "V", 0.05, minimum=0.0, maximum=100.0, help="half-width of the recovery/settling band"),
+    Parameter("fsw_hz", "Hz", 150e3, minimum=0.0, maximum=1e9,
+              help="switching frequency: the output is averaged over one period before the metrics, so the "
+                   "ripple does not count as deviation (0 = no averaging)"),
     Parameter("record_s", "s", 4e-3, minimum=1e-7, maximum=10.0, help="scope record length"),
     Parameter("pre_trigger_s", "s", 4e-4, minimum=0.0, maximum=10.0, help="record before the step"),
     Parameter("points", "", 20000, minimum=100, maximum=2_000_000, kind="int", help="record points"),
@@ -82,7 +85,7 @@ def _setup_scope(scope, p: Parameters) -> None:
 
 
 def run(bench, p: Parameters) -> None:
-    from benchctl.analysis.transient import load_step_metrics
+    from benchctl.analysis.transient import load_step_metrics, switching_period_average
 
     source, load, scope = bench.source, bench.load, bench.role("scope")
     points = plan(p)
@@ -113,7 +116,8 @@ def run(bench, p: Parameters) -> None:
         scope.wait_acquired(p.acquire_timeout_s)
         vout = scope.fetch_waveform(p.vout_channel)
         iout = scope.fetch_waveform(p.iout_channel) if p.iout_channel else None
-        metrics = load_step_metrics(vout.t_s, vout.values, step_time_s=None if iout is not None else 0.0,
+        vout_v = switching_period_average(vout.t_s, vout.values, p.fsw_hz) if p.fsw_hz else vout.values
+        metrics = load_step_metrics(vout.t_s, vout_v, step_time_s=None if iout is not None else 0.0,
                                     iout_a=None if iout is None else iout.values, band_v=p.band_v,
                                     load_step=point["load_step"])
         seq = bench.record({
@@ -130,6 +134,8 @@ def run(bench, p: Parameters) -> None:
             "clipped_samples": float(vout.clipped_samples),
         }, units={"slew_a_per_s": "A/s", "step_up": "", "clipped_samples": ""}, tag=point["load_step"])
         columns = {"t_s": vout.t_s, "vout_ac_v": vout.values}
+        if p.fsw_hz:
+            columns["vout_avg_v"] = vout_v
         if iout is not None:
             columns["iout_a"] = iout.values
         bench.record_array("waveform", columns, point_seq=seq, meta={
@@ -137,6 +143,7 @@ def run(bench, p: Parameters) -> None:
             "iout_from_a": point["iout_from_a"], "iout_to_a": point["iout_set_a"],
             "slew_a_per_s": point["slew_a_per_s"], "coupling": "AC", "bandwidth_limit_hz": bw,
             "band_v": metrics.band_v, "recovery_reason": metrics.recovery_reason,
+            "averaged_over_switching_period": bool(p.fsw_hz),
             "settling_reason": metrics.settling_reason, "step_time_s": metrics.step_time_s,
         })
         if vout.clipped_samples:

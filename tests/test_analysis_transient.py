@@ -149,3 +149,19 @@ def test_input_errors_say_what_to_do():
         find_step_time(t, np.full_like(t, 5.0))
     with pytest.raises(AnalysisInputError, match="at least"):
         load_step_metrics(t[:5], v[:5], step_time_s=t[2], band_v=0.01)
+
+
+def test_switching_period_average_removes_the_ripple():
+    """A boxcar one switching period long has nulls at fsw and its harmonics (moving-average
+    frequency response sin(pi f T)/(pi f T), signal-processing handbook formula)."""
+    import numpy as np
+
+    from benchctl.analysis.transient import switching_period_average
+
+    fsw = 100e3
+    t = np.arange(0, 2e-3, 1e-7)  # 100 samples per period
+    step = np.where(t > 1e-3, -0.1, 0.0)
+    ripple = 0.03 * np.sin(2 * np.pi * fsw * t) + 0.01 * np.sign(np.sin(2 * np.pi * 3 * fsw * t))
+    avg = switching_period_average(t, step + ripple, fsw)
+    away = (np.abs(t - 1e-3) > 2e-5) & (t > 2e-5) & (t < t[-1] - 2e-5)
+    assert np.max(np.abs(avg[away] - step[away])) < 1e-3

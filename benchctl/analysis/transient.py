@@ -224,3 +224,26 @@ def load_step_metrics(
         settling_after_step_s=None if t_set is None else max(0.0, t_set - float(step_time_s)),
         settling_reason=set_reason,
     )
+
+
+def switching_period_average(t_s: ArrayLike, v: ArrayLike, fsw_hz: float) -> NDArray[np.float64]:
+    """Moving average of ``v`` over one switching period (uniform sampling assumed).
+
+    A boxcar one period long has nulls at fsw and all its harmonics, so it removes the
+    switching ripple and keeps the loop's response: the usual way to read a load-step
+    deviation and recovery without the ripple eating the tolerance band (common
+    practice). Ends are padded with the mean of the first and last period.
+    """
+    t, x = as_series(t_s, v, "v", 4)
+    if not fsw_hz > 0:
+        raise AnalysisInputError(f"fsw_hz must be positive, got {fsw_hz!r}")
+    dt = float((t[-1] - t[0]) / (t.size - 1))
+    n = int(round(1.0 / (fsw_hz * dt)))
+    if n < 2:
+        return x.copy()
+    if n >= x.size:
+        raise AnalysisInputError(f"the record ({t[-1] - t[0]:.3g} s) is shorter than one switching period "
+                                 f"({1 / fsw_hz:.3g} s); capture a longer record")
+    pad_lo, pad_hi = n // 2, n - 1 - n // 2
+    padded = np.concatenate([np.full(pad_lo, x[:n].mean()), x, np.full(pad_hi, x[-n:].mean())])
+    return np.convolve(padded, np.ones(n) / n, mode="valid")

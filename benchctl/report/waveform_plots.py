@@ -37,15 +37,21 @@ def _fmt_time(t_s: float) -> str:
 
 
 def transient_figure(t_s: ArrayLike, vout_v: ArrayLike, metrics: Any, *, iout_a: ArrayLike | None = None,
-                     title: str = "Load transient") -> Figure:
+                     vout_avg_v: ArrayLike | None = None, title: str = "Load transient") -> Figure:
     """Output voltage (and load current) against time with the pre-step level, the band,
-    the peak and the recovery/settling instants marked. ``metrics`` is a TransientMetrics."""
+    the peak and the recovery/settling instants marked. ``metrics`` is a TransientMetrics
+    (of ``vout_avg_v``, the switching-period average, when it is given: drawn on top)."""
     t = np.asarray(t_s, float)
     v = np.asarray(vout_v, float)
     k, unit = _time_axis(t)
     fig, axes = style.new_figure(2 if iout_a is not None else 1, sharex=True, height_in=6.0)
     ax = axes[0]
-    ax.plot(t * k, v * 1e3, color=style.line_colour(0), linewidth=1.0, label="output (AC)")
+    if vout_avg_v is None:
+        ax.plot(t * k, v * 1e3, color=style.line_colour(0), linewidth=1.0, label="output (AC)")
+    else:
+        ax.plot(t * k, v * 1e3, color=style.line_colour(0), linewidth=0.6, alpha=0.35, label="output (AC), raw")
+        ax.plot(t * k, np.asarray(vout_avg_v, float) * 1e3, color=style.line_colour(0), linewidth=1.6,
+                label="averaged over one switching period")
     pre, band = metrics.pre_step_v, metrics.band_v
     ax.axhline(pre * 1e3, color=style.REFERENCE_INK, linewidth=0.8, linestyle="--", label="pre-step value")
     ax.axhspan((pre - band) * 1e3, (pre + band) * 1e3, color=style.LIMIT_INK, alpha=style.LIMIT_BAND_ALPHA,
@@ -155,13 +161,15 @@ def _transients(run: RunData) -> list[ReportFigure]:
     for seq, meta in _records(run, "load_transient"):
         a = run.load_array("waveform", seq)
         iout = a.columns.get("iout_a")
-        m = load_step_metrics(a["t_s"], a["vout_ac_v"], step_time_s=None if iout is not None else 0.0, iout_a=iout,
+        vavg = a.columns.get("vout_avg_v")
+        m = load_step_metrics(a["t_s"], a["vout_ac_v"] if vavg is None else vavg,
+                              step_time_s=None if iout is not None else 0.0, iout_a=iout,
                               band_v=float(meta.get("band_v") or 0.05), load_step=meta.get("load_step"))
         what = f"{meta.get('vin_set_v', 0):g} V, {meta.get('iout_from_a', 0):g} → {meta.get('iout_to_a', 0):g} A"
         figs.append(ReportFigure(f"load-transient-{seq}", f"Load transient at {what}",
                                  f"Output voltage (AC) after a {meta.get('slew_a_per_s', 0):g} A/s load step; "
                                  "peak from the pre-step value, recovery into the band (common practice).",
-                                 transient_figure(a["t_s"], a["vout_ac_v"], m, iout_a=iout,
+                                 transient_figure(a["t_s"], a["vout_ac_v"], m, iout_a=iout, vout_avg_v=vavg,
                                                   title=f"Load transient, {what}")))
     return figs
 
