@@ -30,7 +30,10 @@ DEFAULT_TOLERANCES: dict[str, float] = {
     "line_regulation_pct": 0.02,
     "load_regulation_pct": 0.05,
 }
-DEFAULT_REL_TOLERANCE = 0.02  # 2 % of the value for quantities not listed
+DEFAULT_REL_TOLERANCE = 0.02  # 2 % of the value for quantities not listed ...
+#: ... but never less than a bench meter's resolution by unit suffix (common practice), so
+#: that noise on a near-zero reading (the output current at no load) is not a "change".
+ABSOLUTE_FLOORS = {"_v": 1e-3, "_a": 1e-3, "_w": 10e-3, "_pct": 0.01, "_hz": 1.0, "_deg": 0.5, "_db": 0.2, "_s": 1e-6}
 
 _POINT_META = {"seq", "t_utc", "settled", "settle_time_s"}
 
@@ -69,9 +72,12 @@ class Comparison:
 
 
 def tolerance_for(quantity: str, value: float, tolerances: Mapping[str, float]) -> float:
+    """The flag threshold of a quantity: given explicitly, else 2 % of the value, at least
+    the unit's floor (see :data:`ABSOLUTE_FLOORS`)."""
     if quantity in tolerances and tolerances[quantity] > 0:
         return float(tolerances[quantity])
-    return DEFAULT_REL_TOLERANCE * abs(value)
+    floor = next((f for suffix, f in ABSOLUTE_FLOORS.items() if quantity.endswith(suffix)), 0.0)
+    return max(DEFAULT_REL_TOLERANCE * abs(value), floor)
 
 
 def _setpoint_columns(points: pd.DataFrame) -> list[str]:

@@ -56,14 +56,28 @@ def cmd_compare(args: argparse.Namespace) -> int:
               f"run {b} ({info_b.dut_part} rev {info_b.dut_revision or '—'} s/n {info_b.dut_serial or '—'}): "
               f"{comparison.matched_points} matched operating points, {comparison.only_in_a} only in {a}, "
               f"{comparison.only_in_b} only in {b}")
-    shown = [d for d in comparison.deltas if d.flagged or d.quantity in ("efficiency", "vout_v")]
-    table = Table(title="changes (B − A); flagged beyond tolerance")
-    for col in ("quantity", "where", "A", "B", "B − A", "tolerance", ""):
-        table.add_column(col, justify="right" if col in ("A", "B", "B − A", "tolerance") else "left")
-    for d in shown:
-        where = ", ".join(f"{k}={v:g}" for k, v in d.where.items())
-        table.add_row(d.quantity, where, f"{d.value_a:.5g}", f"{d.value_b:.5g}", f"{d.delta:+.4g}",
-                      f"{d.tolerance:.3g}", "[red]CHANGED[/]" if d.flagged else "")
+    from benchctl.commands.summary import _scope_text
+
+    per_quantity: dict[str, list] = {}
+    for d in comparison.deltas:
+        per_quantity.setdefault(d.quantity, []).append(d)
+    table = Table(title="changes B − A by quantity")
+    for col in ("quantity", "matched", "largest change", "where", "tolerance", "beyond"):
+        table.add_column(col, justify="left" if col in ("quantity", "where") else "right")
+    for q, ds in per_quantity.items():
+        worst = max(ds, key=lambda d: abs(d.delta))
+        n_flag = sum(d.flagged for d in ds)
+        table.add_row(q, str(len(ds)), f"{worst.delta:+.4g}", _scope_text(worst.where), f"{worst.tolerance:.3g}",
+                      f"[red]{n_flag}[/]" if n_flag else "0")
     out.print(table)
-    out.print(f"{len(comparison.flagged)} change(s) beyond tolerance")
+    flagged = comparison.flagged
+    if flagged:
+        detail = Table(title=f"changes beyond tolerance ({len(flagged)}, largest first)")
+        for col in ("quantity", "where", "A", "B", "B − A"):
+            detail.add_column(col, justify="left" if col in ("quantity", "where") else "right")
+        for d in sorted(flagged, key=lambda d: -abs(d.delta) / d.tolerance)[:20]:
+            detail.add_row(d.quantity, _scope_text(d.where), f"{d.value_a:.5g}", f"{d.value_b:.5g}",
+                           f"[red]{d.delta:+.4g}[/]")
+        out.print(detail)
+    out.print(f"{len(flagged)} change(s) beyond tolerance")
     return EXIT_OK
