@@ -192,7 +192,7 @@ def test_compare_two_runs_flags_a_real_change(simulated_bench, station_for, tmp_
     assert any(d.flagged for d in effs)
     code = main(["compare", str(a), str(c), "--db", str(db), "--report", str(tmp_path / "cmp")])
     out = capsys.readouterr().out
-    assert code == EXIT_OK and "CHANGED" in out and "15 matched operating points" in out
+    assert code == EXIT_OK and "changes beyond tolerance" in out and "15 matched operating points" in out
     assert (tmp_path / "cmp" / "00-compare-efficiency.png").exists()
 
 
