@@ -140,7 +140,44 @@ def analyse(points, p: Parameters) -> list[Result]:
                                            "the mode is the same at both ends of the search range; widen it",
                                            "method": method},
                                   scope={"vin_set_v": float(row["vin_set_v"])}))
+    results += _extrapolated_boundaries(points)
     if tags is not None and (tags == "map").any():
         ccm = points.loc[tags == "map", "ccm"].to_numpy(float)
         results.append(Result("dcm_point_count", float(np.sum(ccm == 0)), ""))
     return results
+
+
+def _extrapolated_boundaries(points) -> list[Result]:
+    """The boundary where the CCM start current, extrapolated along the load, reaches zero.
+
+    In CCM the switch current at the start of the on-time is the average current minus
+    half the ripple; at a fixed line the ripple stays (nearly) constant and the average
+    grows with the load, so the start current is a straight line in the load whose zero
+    is the CCM/DCM boundary (Erickson & Maksimovic 2nd ed. ch. 5, from memory). Unlike the
+    threshold edge, it carries no (1+r)/(1-r) bias.
+    """
+    import numpy as np
+
+    out: list[Result] = []
+    if "ccm" not in points.columns or "start_current_a" not in points.columns:
+        return out
+    measured = points[points["ccm"].notna() & points["start_current_a"].notna()]
+    for vin, group in measured.groupby("vin_set_v"):
+        ccm = group[group["ccm"] == 1.0]
+        loads = ccm["iout_set_a"].to_numpy(float)
+        starts = ccm["start_current_a"].to_numpy(float)
+        if len(np.unique(loads)) < 2:
+            out.append(Result("ccm_dcm_boundary_extrapolated_a", None, "A",
+                              details={"found": False, "reason": "fewer than two CCM loads at this line voltage; "
+                                       "measure more loads above the boundary"}, scope={"vin_set_v": float(vin)}))
+            continue
+        slope, intercept = np.polyfit(loads, starts, 1)
+        found = slope > 0 and -intercept / slope >= 0
+        out.append(Result(
+            "ccm_dcm_boundary_extrapolated_a", float(-intercept / slope) if found else None, "A",
+            details={"found": bool(found), "ccm_points": int(len(loads)), "slope_a_per_a": float(slope),
+                     "intercept_a": float(intercept),
+                     "reason": "" if found else "the CCM start current does not fall toward zero with the load",
+                     "method": "zero of a straight line through the CCM start currents against the load"},
+            scope={"vin_set_v": float(vin)}))
+    return out

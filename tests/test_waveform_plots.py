@@ -46,6 +46,6 @@ def test_ripple_and_ringing_figures():
 def test_conduction_map_and_registration():
     fig = wp.conduction_map_figure([36, 36, 75, 75], [0.3, 4, 0.3, 4], [0, 1, 0, 1],
                                    boundary_vin_v=[36, 75], boundary_iout_a=[0.9, 1.3])
-    assert _labels(fig) == ["CCM", "DCM", "boundary"]
+    assert _labels(fig) == ["CCM", "DCM", "boundary (threshold)"]
     keys = {e.key for e in registered_plots()}
     assert {"load-transient", "output-ripple", "conduction-mode-map", "switch-node-ringing"} <= keys

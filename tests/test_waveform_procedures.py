@@ -110,6 +110,16 @@ def test_conduction_mode_boundary_against_the_textbook(simulated_bench, station_
             sp = bench.model.steady_state(vin, "CC", i, was_running=True).stage
             return (sp.l_valley_a if sp.mode == "CCM" else 0.0) / sp.l_peak_a - r
         assert value == pytest.approx(brentq(ratio, 0.5 * i_crit, 3 * i_crit), abs=0.02)
+    # Without the threshold's bias: the zero of the CCM start current along the load is the
+    # textbook boundary itself (same formula; a few % for the losses that raise D).
+    extrapolated = _results(benchctl_store, out.run_id, "ccm_dcm_boundary_extrapolated_a")
+    assert len(extrapolated) == 2
+    for value, scope in zip(extrapolated["value"], extrapolated["scope"]):
+        vin = scope["vin_set_v"]
+        n, v = d.stage.turns_ratio, d.vout_nom_v
+        duty = v / (v + n * vin)
+        i_crit = v * (1 - duty) ** 2 / (2 * n * n * d.stage.inductance_h * d.fsw_hz)
+        assert value == pytest.approx(i_crit, rel=0.06)
     maps = _results(benchctl_store, out.run_id, "conduction_mode_ccm")
     modes = {(s["vin_set_v"], s["iout_set_a"]): v for s, v in zip(maps["scope"], maps["value"])}
     assert modes == {(36.0, 0.3): 0.0, (36.0, 4.0): 1.0, (75.0, 0.3): 0.0, (75.0, 4.0): 1.0}

@@ -95,6 +95,7 @@ def ripple_figure(t_s: ArrayLike, vout_v: ArrayLike, measurement: Any, *, title:
 
 def conduction_map_figure(vin_v: ArrayLike, iout_a: ArrayLike, ccm: ArrayLike, *,
                           boundary_vin_v: ArrayLike = (), boundary_iout_a: ArrayLike = (),
+                          extrapolated_vin_v: ArrayLike = (), extrapolated_iout_a: ArrayLike = (),
                           title: str = "Conduction mode over the envelope") -> Figure:
     """CCM (filled) and DCM (hollow) points over line x load, with the boundary found at each line."""
     vin, iout, mode = (np.asarray(x, float) for x in (vin_v, iout_a, ccm))
@@ -106,7 +107,13 @@ def conduction_map_figure(vin_v: ArrayLike, iout_a: ArrayLike, ccm: ArrayLike, *
     ok = np.isfinite(bi)
     if ok.any():
         order = np.argsort(bv[ok])
-        ax.plot(bi[ok][order], bv[ok][order], "-", color=style.LIMIT_INK, marker="D", label="boundary")
+        ax.plot(bi[ok][order], bv[ok][order], "-", color=style.LIMIT_INK, marker="D", label="boundary (threshold)")
+    ev, ei = np.asarray(extrapolated_vin_v, float), np.asarray(extrapolated_iout_a, float)
+    ok = np.isfinite(ei)
+    if ok.any():
+        order = np.argsort(ev[ok])
+        ax.plot(ei[ok][order], ev[ok][order], "--", color=style.line_colour(2), marker="s",
+                label="boundary (start current → 0)")
     ax.set_xlabel("load current (A)")
     ax.set_ylabel("input voltage (V)")
     style.set_title(ax, title)
@@ -199,12 +206,17 @@ def _mode_map(run: RunData) -> list[ReportFigure]:
     pts = run.points
     m = pts[pts["tag"].isin(["map", "bisection"])]
     b = pts[pts["tag"] == "boundary"]
+    res = run.results
+    ex = res[res["name"] == "ccm_dcm_boundary_extrapolated_a"] if not res.empty else res
     fig = conduction_map_figure(m["vin_set_v"], m["iout_set_a"], m["ccm"],
                                 boundary_vin_v=b["vin_set_v"] if not b.empty else (),
-                                boundary_iout_a=b["boundary_iout_a"] if not b.empty else ())
+                                boundary_iout_a=b["boundary_iout_a"] if not b.empty else (),
+                                extrapolated_vin_v=[sc.get("vin_set_v") for sc in ex["scope"]] if len(ex) else (),
+                                extrapolated_iout_a=ex["value"] if len(ex) else ())
     return [ReportFigure("conduction-mode-map", "Conduction mode over the envelope",
                          "Each measured point classified from the switch current at the start of the on-time; "
-                         "the line joins the boundary found by bisection at each input voltage.", fig)]
+                         "the solid line joins the boundary found by bisection (start/peak threshold), the dashed one "
+                         "where the CCM start current extrapolates to zero.", fig)]
 
 
 @register_plot("switch-node-ringing", title="Switch-node ringing", order=63, applies=_has("switch_node"))
