@@ -1,6 +1,8 @@
 """Framework overhead: the efficiency map through benchctl vs a bare pyvisa script.
 
-Both talk to the same simulated bench (settling disabled, so only the instrument
+Both talk to the same simulated bench, served by a separate process as real instruments
+would be (in-process servers would share the interpreter lock with the client's threads
+and charge the framework's interlock thread to the instruments), with settling disabled, so only the instrument
 exchanges count) and send the same SCPI: the bare script sets each operating point,
 checks the error queue after each setting, as the drivers do, and reads the six meter
 quantities plus the two settle readings. benchctl adds the interlock (limit checks and
@@ -16,6 +18,8 @@ derived results) and for the sweep alone (first to last point), with the store o
 from __future__ import annotations
 
 import argparse
+import subprocess
+import sys
 import tempfile
 import time
 from pathlib import Path
@@ -75,7 +79,7 @@ def bare_script(resources: dict[str, str], plan: list[dict], ilimit_a: float) ->
     return elapsed, sweep
 
 
-def framework(bench: SimulatedBench, station_text: str, values: dict, db: str) -> tuple[float, float]:
+def framework(bench: object, station_text: str, values: dict, db: str) -> tuple[float, float]:
     """(whole run, sweep from the first setpoint to the last point) in seconds."""
     proc = load_procedure("efficiency_map")
     params = proc.resolve_parameters(values=values)
@@ -98,18 +102,28 @@ def main() -> None:
     ap = argparse.ArgumentParser()
     ap.add_argument("--repeat", type=int, default=3)
     args = ap.parse_args()
-    bench = SimulatedBench("flyback-48v-5v", time_scale=50.0).start()
+    design = SimulatedBench("flyback-48v-5v")  # for its parameters and limits only; not started
+    tmp_dir = tempfile.TemporaryDirectory(dir=".")
+    station_file = Path(tmp_dir.name) / "station.toml"
+    server = subprocess.Popen([sys.executable, "-m", "benchctl.cli", "sim", "--time-scale", "50",
+                               "--station-out", str(station_file)],
+                              stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
     try:
-        values = {**bench.procedure_parameters(), "load_pct": [float(x) for x in range(0, 101, 5)]}
+        deadline = time.monotonic() + 60
+        while not station_file.exists() and time.monotonic() < deadline:
+            time.sleep(0.05)
+        time.sleep(0.2)
+        station = parse_station(station_file.read_text())
+        resources = {role: cfg.resource for role, cfg in station.instruments.items()}
+        values = {**design.procedure_parameters(), "load_pct": [float(x) for x in range(0, 101, 5)]}
         proc = load_procedure("efficiency_map")
         plan = proc.plan(proc.resolve_parameters(values=values))
-        text = bench.station_toml(watch_period_s=0.1)
+        text = station_file.read_text().replace("watch_period_s = 0.05", "watch_period_s = 0.1")
         bare, disk, memory = [], [], []
-        with tempfile.TemporaryDirectory(dir=".") as tmp:
-            for k in range(args.repeat):
-                bare.append(bare_script(bench.resources, plan, bench.limits.source_current_max_a))
-                disk.append(framework(bench, text, values, str(Path(tmp) / f"bench{k}.db")))
-                memory.append(framework(bench, text, values, "sqlite://"))
+        for k in range(args.repeat):
+            bare.append(bare_script(resources, plan, design.limits.source_current_max_a))
+            disk.append(framework(None, text, values, str(Path(tmp_dir.name) / f"bench{k}.db")))
+            memory.append(framework(None, text, values, "sqlite://"))
         best = {name: (min(r[0] for r in runs), min(r[1] for r in runs))
                 for name, runs in (("bare", bare), ("disk", disk), ("memory", memory))}
         print(f"points per run: {len(plan)}; best of {args.repeat}; whole run / sweep only")
@@ -121,7 +135,9 @@ def main() -> None:
         print("target: sweep ratio <= 1.15 for the framework's own cost (store in memory); "
               "on disk each point also waits for its fsync")
     finally:
-        bench.stop()
+        server.terminate()
+        server.wait(timeout=10)
+        tmp_dir.cleanup()
 
 
 if __name__ == "__main__":
