@@ -27,6 +27,7 @@ from pathlib import Path
 from typing import Any, Mapping
 
 from benchctl.errors import ConfigurationError
+from benchctl.config_file import read_config_text
 
 _JOB_KEYS = {"name", "description", "dut_part", "dut_revision", "dut_serial"}
 _STEP_KEYS = {"procedure", "params", "limits", "parameters", "name"}
@@ -128,13 +129,7 @@ def parse_job(text: str, *, path: Path | None = None) -> Job:
 
 def load_job(path: str | Path) -> Job:
     path = Path(path)
-    try:
-        text = path.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise JobFileError(f"job file {path} does not exist") from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise JobFileError(f"job file {path} cannot be read: {exc}") from exc
-    return parse_job(text, path=path)
+    return parse_job(read_config_text(path, "job file", JobFileError), path=path)
 
 
 @dataclass(frozen=True)

@@ -96,6 +96,7 @@ import pandas as pd
 
 from benchctl.cli import EXIT_FAILED, EXIT_NOT_CHECKED, EXIT_OK
 from benchctl.errors import LimitsFileError
+from benchctl.config_file import read_config_text
 
 log = logging.getLogger(__name__)
 
@@ -422,14 +423,7 @@ def parse_limits(text: str, *, path: Path | None = None) -> LimitsFile:
 def load_limits(path: str | Path) -> LimitsFile:
     """Read and validate a limits file."""
     path = Path(path)
-    try:
-        text = path.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise LimitsFileError(
-            f"limits file {path} does not exist; examples are in procedures/limits/"
-        ) from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise LimitsFileError(f"limits file {path} cannot be read: {exc}") from exc
+    text = read_config_text(path, "limits file", LimitsFileError, "examples are in procedures/limits/")
     return parse_limits(text, path=path)
 
 

@@ -224,11 +224,12 @@ class Procedure:
 
 def load_parameter_file(path: str | Path) -> dict[str, Any]:
     """Read a TOML file of parameter values (top-level keys, or a [parameters] table)."""
+    from benchctl.config_file import read_config_text
+
     path = Path(path)
+    text = read_config_text(path, "parameter file", ParameterError)
     try:
-        data = tomllib.loads(path.read_text(encoding="utf-8"))
-    except FileNotFoundError:
-        raise ParameterError(f"parameter file {path} does not exist") from None
+        data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise ParameterError(f"parameter file {path}: not valid TOML: {exc}") from exc
     return dict(data.get("parameters", data))

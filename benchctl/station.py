@@ -35,6 +35,7 @@ from pathlib import Path
 from typing import Any, Mapping
 
 from benchctl.errors import StationFileError
+from benchctl.config_file import read_config_text
 
 #: DC voltage above which a station must acknowledge hazardous voltage: the SELV / ES1
 #: boundary of 60 V DC (IEC 62368-1 Table 4; IEC 60950-1 §1.2.8.8 — from memory).
@@ -297,12 +298,7 @@ def parse_station(text: str, *, path: Path | None = None) -> Station:
 def load_station(path: str | Path) -> Station:
     """Read and validate a station file."""
     path = Path(path)
-    try:
-        text = path.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise StationFileError(f"station file {path} does not exist; `benchctl sim` writes one for the simulated bench") from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise StationFileError(f"station file {path} cannot be read: {exc}") from exc
+    text = read_config_text(path, "station file", StationFileError, "`benchctl sim` writes one for the simulated bench")
     return parse_station(text, path=path)
 
 
