@@ -135,6 +135,10 @@ def build_parser() -> argparse.ArgumentParser:
     _add_db(p)
     p.add_argument("--format", choices=("csv", "json"), default="csv")
     p.add_argument("--out", metavar="FILE", default=None, help="write here instead of standard output")
+    p.add_argument("--array", metavar="NAME", default=None,
+                   help="export an array record instead of the points (e.g. bode, waveform); "
+                        "a Bode CSV feeds `benchctl analyze loop-gain`")
+    p.add_argument("--seq", type=int, default=None, metavar="N", help="with --array: the point it belongs to")
 
     from benchctl.commands.analyze import add_analyze_arguments  # light: argparse only
 

@@ -97,11 +97,43 @@ def cmd_show(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
+def _array_frame(store, run_id: int, name: str, seq: int | None):
+    """One array record of a run as a DataFrame of its 1-D columns, with its units."""
+    import numpy as np
+    import pandas as pd
+
+    from benchctl.errors import ConfigurationError
+
+    listing = store.arrays(run_id)
+    found = listing[listing["name"] == name] if not listing.empty else listing
+    if found.empty:
+        names = sorted(set(listing["name"])) if not listing.empty else []
+        raise ConfigurationError(f"run {run_id} has no array named {name!r}; its arrays: {', '.join(names) or 'none'}")
+    if seq is None and len(found) > 1:
+        seqs = ", ".join(str(int(s)) for s in found["point_seq"].dropna())
+        raise ConfigurationError(f"run {run_id} has {len(found)} {name!r} arrays; choose one with --seq (points {seqs})")
+    data = store.array(run_id, name, seq if seq is not None else (None if found["point_seq"].isna().all()
+                                                                   else int(found["point_seq"].iloc[0])))
+    columns = {}
+    for col, values in data.items():
+        values = np.asarray(values)
+        if values.ndim != 1:
+            continue
+        if np.iscomplexobj(values):
+            columns[f"{col}_re"], columns[f"{col}_im"] = values.real, values.imag
+        else:
+            columns[col] = values
+    return pd.DataFrame(columns), dict(data.units)
+
+
 def cmd_export(args: argparse.Namespace) -> int:
     with _open(args.db) as store:
         run_id = store.resolve_run(args.run)
-        frame = store.points(run_id)
-        units = store.quantity_units(run_id)
+        if args.array:
+            frame, units = _array_frame(store, run_id, args.array, args.seq)
+        else:
+            frame = store.points(run_id)
+            units = store.quantity_units(run_id)
         if args.format == "csv":
             text = frame.to_csv(index=False)  # column names carry their units (vin_v, pout_w)
         else:
@@ -109,7 +141,8 @@ def cmd_export(args: argparse.Namespace) -> int:
                                "points": json.loads(frame.to_json(orient="records", date_format="iso"))}, indent=1)
         if args.out:
             Path(args.out).write_text(text, encoding="utf-8")
-            console().print(f"wrote {len(frame)} points of run {run_id} to {args.out}")
+            what = f"{len(frame)} rows of array {args.array!r}" if args.array else f"{len(frame)} points"
+            console().print(f"wrote {what} of run {run_id} to {args.out}")
         else:
             sys.stdout.write(text)
     return EXIT_OK
