@@ -69,6 +69,7 @@ def test_two_sessions_share_one_instrument(setup) -> None:
     other = rm.open_resource(srv.resource, read_termination="\n", write_termination="\n", timeout=3000)
     try:
         res.write("VOLT 3.3")
+        assert res.query("*OPC?") == "1"  # processed before the other connection asks (no race)
         assert float(other.query("VOLT?")) == pytest.approx(3.3, rel=1e-9)
         other.write("VOLTA")
         assert other.query("*OPC?") == "1"  # VOLTA has been processed before the other session asks
