@@ -40,8 +40,11 @@ def cmd_instruments(args: argparse.Namespace) -> int:
         print(json.dumps({"station": station.name, "instruments": rows, "ok": not bad}, indent=2))
     else:
         table = Table(title=f"station {station.name}")
-        for col in ("role", "driver", "resource", "identity", "status"):
-            table.add_column(col, overflow="fold")
+        table.add_column("role", no_wrap=True)
+        table.add_column("driver", overflow="fold")
+        table.add_column("resource", no_wrap=True)
+        table.add_column("identity", overflow="fold")
+        table.add_column("status", overflow="fold")
         for r in rows:
             status = "[green]ok[/]" if r["status"] == "ok" else f"[red]{escape(r['status'])}[/]"
             table.add_row(r["role"], r["driver"], r["resource"], escape(r["identity"]), status)

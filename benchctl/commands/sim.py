@@ -51,9 +51,9 @@ def cmd_sim(args: argparse.Namespace) -> int:
     try:
         path = bench.write_station(args.station_out or default_station_path(args.model))
         table = Table(title=f"simulated bench: {bench.design.description}")
-        table.add_column("role")
-        table.add_column("VISA resource")
-        table.add_column("identity")
+        table.add_column("role", no_wrap=True)
+        table.add_column("VISA resource", no_wrap=True)
+        table.add_column("identity", overflow="fold")
         for role, inst in bench.instruments.items():
             ident = inst.identity
             table.add_row(role, bench.resources[role], f"{ident.maker},{ident.model},{ident.serial},{ident.firmware}")
