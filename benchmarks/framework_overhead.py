@@ -100,7 +100,7 @@ def framework(bench: object, station_text: str, values: dict, db: str) -> tuple[
 
 def main() -> None:
     ap = argparse.ArgumentParser()
-    ap.add_argument("--repeat", type=int, default=3)
+    ap.add_argument("--repeat", type=int, default=5)
     args = ap.parse_args()
     design = SimulatedBench("flyback-48v-5v")  # for its parameters and limits only; not started
     tmp_dir = tempfile.TemporaryDirectory(dir=".")
@@ -115,7 +115,7 @@ def main() -> None:
         time.sleep(0.2)
         station = parse_station(station_file.read_text())
         resources = {role: cfg.resource for role, cfg in station.instruments.items()}
-        values = {**design.procedure_parameters(), "load_pct": [float(x) for x in range(0, 101, 5)]}
+        values = {**design.procedure_parameters(), "load_pct": [float(x) for x in range(0, 101, 2)]}
         proc = load_procedure("efficiency_map")
         plan = proc.plan(proc.resolve_parameters(values=values))
         text = station_file.read_text().replace("watch_period_s = 0.05", "watch_period_s = 0.1")
