@@ -16,21 +16,7 @@ from typing import Any, Callable, Iterable, Iterator, Mapping
 from benchctl.errors import ProcedureError
 from benchctl.interlock import Interlock
 from benchctl.settle import SettleResult, settle_adaptive
-
-#: Unit implied by a quantity name's suffix (the project's naming convention).
-SUFFIX_UNITS = {
-    "_v": "V", "_a": "A", "_w": "W", "_hz": "Hz", "_s": "s", "_pct": "%", "_ohm": "ohm",
-    "_deg": "deg", "_db": "dB", "_f": "F", "_h": "H", "_c": "degC",
-}
-
-
-def unit_from_name(name: str) -> str:
-    """The unit a name's suffix implies ('' when it has none: efficiency, duty, counts)."""
-    for suffix, unit in SUFFIX_UNITS.items():
-        if name.endswith(suffix):
-            return unit
-    return ""
-
+from benchctl.units import unit_from_name
 
 class Bench:
     """What a procedure's ``run(bench, p)`` works with."""

@@ -97,6 +97,7 @@ import pandas as pd
 from benchctl.cli import EXIT_FAILED, EXIT_NOT_CHECKED, EXIT_OK
 from benchctl.errors import LimitsFileError
 from benchctl.config_file import read_config_text
+from benchctl.units import unit_from_name
 
 log = logging.getLogger(__name__)
 
@@ -127,15 +128,6 @@ _AT_CHOICES = ("min", "max", "extremes")
 _MISSING_CHOICES = ("fail", "ignore")
 _SOURCE_CHOICES = (SOURCE_RESULT, SOURCE_POINT)
 
-# Unit implied by a name's suffix (the project's naming convention), for display only.
-_SUFFIX_UNITS = {"v": "V", "a": "A", "w": "W", "hz": "Hz", "db": "dB", "deg": "deg", "s": "s", "pct": "%", "ohm": "ohm"}
-
-
-def unit_of_name(name: str) -> str:
-    """Unit implied by the suffix of ``name`` (``vin_set_v`` -> ``V``), ``""`` if none."""
-    head, sep, suffix = name.rpartition("_")
-    return _SUFFIX_UNITS.get(suffix.lower(), "") if sep and head else ""
-
 
 # ---------------------------------------------------------------- the limits file
 @dataclass(frozen=True)
@@ -152,7 +144,7 @@ class Filter:
 
     def describe(self, rated_current_a: float | None = None) -> str:
         """Plain-English condition, with the key's unit (``vin_set_v = 48 V``)."""
-        unit = "%" if self.key == LOAD_PCT else unit_of_name(self.key)
+        unit = "%" if self.key == LOAD_PCT else unit_from_name(self.key)
         u = f" {unit}" if unit else ""
         if self.at is not None:
             text = {"min": "at its smallest value", "max": "at its largest value",
@@ -745,7 +737,7 @@ def evaluate_limit(spec: LimitSpec, data: RunData) -> LimitOutcome:
                 f"results: {', '.join(names) or 'none'}; point quantities: {', '.join(columns) or 'none'}",
             )
     if not unit:
-        unit = unit_of_name(spec.quantity)
+        unit = unit_from_name(spec.quantity)
     if spec.unit is not None and unit != spec.unit:
         return _not_checked(spec, where, f"{spec.quantity} is stored in {unit or 'no unit'!r} but the limit is "
                                          f"written in {spec.unit or 'no unit'!r}; convert the bounds to the stored unit",

@@ -33,9 +33,11 @@ from sqlalchemy.exc import IntegrityError, SQLAlchemyError
 from benchctl.errors import StoreError
 
 from . import schema as s
-from .engine import WRITE_OPTION, WRITE_OPTIONS
+from .engine import WRITE_OPTIONS
 from .codec import encode_column, to_float_or_none, to_json
 from .url import mask_secrets
+from benchctl.units import unit_from_name  # noqa: F401  (re-exported: documented here before)
+
 from .records import FINAL_STATUSES, RUNNING, RunStart, sha256_hex
 
 log = logging.getLogger(__name__)
@@ -51,27 +53,6 @@ _SHA256_RE = re.compile(r"^[0-9a-f]{64}$")
 
 # Unit implied by a quantity name's suffix (the project's naming convention: vin_v,
 # iout_a, pout_w, freq_hz, gain_db, phase_deg, t_s). Used only when no unit is given.
-_SUFFIX_UNITS = {
-    "v": "V",
-    "a": "A",
-    "w": "W",
-    "hz": "Hz",
-    "db": "dB",
-    "deg": "deg",
-    "s": "s",
-    "pct": "%",
-    "ohm": "ohm",
-}
-
-
-def unit_from_name(name: str) -> str:
-    """Unit implied by the suffix of ``name`` (``vin_v`` -> ``V``), ``""`` if none is implied."""
-    head, sep, suffix = name.rpartition("_")
-    if not sep or not head:
-        return ""
-    return _SUFFIX_UNITS.get(suffix.lower(), "")
-
-
 @dataclass
 class _OpenRun:
     next_seq: int
