@@ -89,22 +89,59 @@ def execute(
     points already committed are skipped and new points go into the same run, after the
     instruments are re-opened and the protection re-armed; the gap is stored as an event.
     """
-    from benchctl.store import InstrumentInfo, RunStart
-
     station.require_roles(procedure.roles, needed_by=f"procedure {procedure.name}")
     started = time.monotonic()
-    drivers: dict[str, Any] = {}
-    try:
-        for role in procedure.roles:
-            drivers[role] = station.instruments[role].create().open()
-    except BaseException:
-        for d in drivers.values():
-            d.close()
-        raise
-
+    drivers = _open_instruments(station, procedure.roles)
     interlock = Interlock(station.limits, watch_period_s=station.watch_period_s)
     interlock.attach_outputs(drivers.get("source"), drivers.get("load"))
-    start = RunStart(
+    try:
+        start = _run_start(procedure, params, station, drivers, dut, operator, job_id)
+        run_id, skip_points = _begin_or_resume(store, start, resume_run_id)
+    except BaseException:
+        _close_all(drivers)
+        raise
+    if on_begin is not None:
+        on_begin(run_id)
+    bench = _bench_for(store, run_id, drivers, interlock, settle_enabled, progress, skip_points)
+    _arm_watch(interlock, bench, drivers)
+    try:
+        status, message = _run_body(procedure, params, bench, drivers, interlock, station, store, run_id)
+    finally:
+        steps = _shut_down(interlock, drivers, store, run_id)
+    if status == "completed" and procedure.analyse is not None:
+        try:
+            store_results(store, run_id, procedure, params)
+        except Exception as exc:
+            logger.exception("analysis of run %s failed", run_id)
+            store.record_event(run_id, "error", f"analysis failed: {type(exc).__name__}: {exc}", {})
+    store.end_run(run_id, status, message)
+    return RunOutcome(run_id, status, message, skip_points + bench.points_recorded, time.monotonic() - started,
+                      trip=interlock.trip_record, shutdown_steps=tuple(steps))
+
+
+def _close_all(drivers: Mapping[str, Any]) -> None:
+    for d in drivers.values():
+        d.close()
+
+
+def _open_instruments(station: Station, roles: tuple[str, ...]) -> dict[str, Any]:
+    """Open and identify the instruments of ``roles``; on any failure close those opened."""
+    drivers: dict[str, Any] = {}
+    try:
+        for role in roles:
+            drivers[role] = station.instruments[role].create().open()
+    except BaseException:
+        _close_all(drivers)
+        raise
+    return drivers
+
+
+def _run_start(procedure: Procedure, params: Parameters, station: Station, drivers: Mapping[str, Any],
+               dut: DutInfo, operator: str | None, job_id: int | None) -> Any:
+    """The run's provenance: procedure and its hash, parameters, station, instrument identities, DUT."""
+    from benchctl.store import InstrumentInfo, RunStart
+
+    return RunStart(
         procedure=procedure.name,
         procedure_sha256=procedure.source_sha256,
         station_name=station.name,
@@ -119,21 +156,21 @@ def execute(
         job_id=job_id,
         **({"operator": operator} if operator is not None else {}),
     )
-    skip_points = 0
-    try:
-        if resume_run_id is None:
-            run_id = store.begin_run(start)
-        else:
-            run_id = resume_run_id
-            skip_points = store.run(run_id).n_points
-            store.reopen_run(run_id, f"resumed after {skip_points} committed points; instruments re-identified: "
-                             + "; ".join(f"{i.role}={i.identity}" for i in start.instruments))
-    except BaseException:
-        for d in drivers.values():
-            d.close()
-        raise
-    if on_begin is not None:
-        on_begin(run_id)
+
+
+def _begin_or_resume(store: Any, start: Any, resume_run_id: int | None) -> tuple[int, int]:
+    """(run id, committed points to skip): a new run, or the resumed one reopened with a gap event."""
+    if resume_run_id is None:
+        return store.begin_run(start), 0
+    skip_points = store.run(resume_run_id).n_points
+    store.reopen_run(resume_run_id, f"resumed after {skip_points} committed points; instruments re-identified: "
+                     + "; ".join(f"{i.role}={i.identity}" for i in start.instruments))
+    return resume_run_id, skip_points
+
+
+def _bench_for(store: Any, run_id: int, drivers: Mapping[str, Any], interlock: Interlock, settle_enabled: bool,
+               progress: Callable[[int, int, Mapping[str, float]], None] | None, skip_points: int) -> Bench:
+    """The Bench of this run: guarded drivers, and recorders that write into ``run_id``."""
 
     def record(values: dict, units: dict, *, tag: str | None, settled: bool | None, settle_time_s: float | None) -> int:
         return store.record_point(run_id, values, units=units, tag=tag or "",
@@ -145,26 +182,34 @@ def execute(
     def record_event(kind: str, message: str, details: Mapping[str, Any]) -> None:
         store.record_event(run_id, kind, message, dict(details))
 
-    bench = Bench(
+    return Bench(
         instruments={role: guard(d, interlock) for role, d in drivers.items()},
         interlock=interlock, recorder=record, array_recorder=record_array, event_recorder=record_event,
         settle_enabled=settle_enabled, progress=progress, skip_points=skip_points,
     )
+
+
+def _arm_watch(interlock: Interlock, bench: Bench, drivers: Mapping[str, Any]) -> None:
+    """What the background watch reads: the input (source or input meter), the DUT output
+    (output meter or load), and every instrument's power-on status (a reset stops the run)."""
     for role in ("source", "input_meter"):
-        if role in bench._instruments:
-            g = bench.role(role)
-            interlock.watch(f"{role} voltage", g.measure_voltage)
-            interlock.watch(f"{role} current", g.measure_current)
+        if bench.has_role(role):
+            guarded = bench.role(role)
+            interlock.watch(f"{role} voltage", guarded.measure_voltage)
+            interlock.watch(f"{role} current", guarded.measure_current)
             break
     for role in ("output_meter", "load"):
-        if role in bench._instruments:
+        if bench.has_role(role):
             interlock.watch(f"{role} voltage", bench.role(role).measure_voltage)
             break
-    for role, d in drivers.items():  # an instrument that resets itself mid-run (PON in *ESR?) stops the run
+    for role, d in drivers.items():
         if callable(getattr(d, "check_power_on", None)):
             interlock.watch(f"{role} power-on status", d.check_power_on)
 
-    status, message = "completed", ""
+
+def _run_body(procedure: Procedure, params: Parameters, bench: Bench, drivers: Mapping[str, Any],
+              interlock: Interlock, station: Station, store: Any, run_id: int) -> tuple[str, str]:
+    """Protect, watch, run the procedure; (status, message), with the cause stored as an event."""
     try:
         _program_protection(drivers, station)
         interlock.start_watch()
@@ -174,50 +219,46 @@ def execute(
             if callable(getattr(d, "check_power_on", None)):
                 d.check_power_on()
     except InterlockTrip as exc:
-        status, message = "tripped", str(exc)
+        return "tripped", str(exc)
     except SetpointRefused as exc:
-        status, message = "failed", str(exc)
         store.record_event(run_id, "interlock_refusal", str(exc),
                            {"limit": exc.limit, "value": exc.value, "instrument": exc.instrument})
+        return "failed", str(exc)
     except KeyboardInterrupt:
-        status, message = "interrupted", "stopped by the operator (Ctrl-C)"
+        message = "stopped by the operator (Ctrl-C)"
         store.record_event(run_id, "interrupted", message, {})
+        return "interrupted", message
     except InstrumentError as exc:
-        status, message = "failed", str(exc)
         store.record_event(run_id, "error", str(exc), {"instrument": exc.instrument, "command": exc.command,
                                                        "type": type(exc).__name__})
+        return "failed", str(exc)
     except BenchctlError as exc:
-        status, message = "failed", str(exc)
         store.record_event(run_id, "error", str(exc), {"type": type(exc).__name__})
+        return "failed", str(exc)
     except Exception as exc:
-        status, message = "failed", f"procedure raised {type(exc).__name__}: {exc}"
+        message = f"procedure raised {type(exc).__name__}: {exc}"
         logger.exception("procedure %s raised", procedure.name)
         store.record_event(run_id, "error", message, {"type": type(exc).__name__})
-    finally:
-        interlock.stop_watch()
-        steps = interlock.shutdown()
-        trip = interlock.trip_record
-        if trip is not None:
-            store.record_event(run_id, "interlock_trip", trip.message, {
-                "limit": trip.limit, "limit_value": trip.limit_value, "value": trip.value,
-                "instrument": trip.instrument, "shutdown": list(trip.shutdown),
-            })
-        failed_off = [s for s in steps if "FAILED" in s]
-        if failed_off:
-            store.record_event(run_id, "error", "could not confirm every output off: " + "; ".join(failed_off),
-                               {"shutdown": steps})
-        for d in drivers.values():
-            d.close()
+        return "failed", message
+    return "completed", ""
 
-    if status == "completed" and procedure.analyse is not None:
-        try:
-            store_results(store, run_id, procedure, params)
-        except Exception as exc:
-            logger.exception("analysis of run %s failed", run_id)
-            store.record_event(run_id, "error", f"analysis failed: {type(exc).__name__}: {exc}", {})
-    store.end_run(run_id, status, message)
-    return RunOutcome(run_id, status, message, skip_points + bench.points_recorded, time.monotonic() - started,
-                      trip=interlock.trip_record, shutdown_steps=tuple(steps))
+
+def _shut_down(interlock: Interlock, drivers: Mapping[str, Any], store: Any, run_id: int) -> list[str]:
+    """Stop the watch, outputs off in the safe order, store the trip and any failure, close."""
+    interlock.stop_watch()
+    steps = interlock.shutdown()
+    trip = interlock.trip_record
+    if trip is not None:
+        store.record_event(run_id, "interlock_trip", trip.message, {
+            "limit": trip.limit, "limit_value": trip.limit_value, "value": trip.value,
+            "instrument": trip.instrument, "shutdown": list(trip.shutdown),
+        })
+    failed_off = [s for s in steps if "FAILED" in s]
+    if failed_off:
+        store.record_event(run_id, "error", "could not confirm every output off: " + "; ".join(failed_off),
+                           {"shutdown": steps})
+    _close_all(drivers)
+    return steps
 
 
 def store_results(store: Any, run_id: int, procedure: Procedure, params: Parameters) -> int:
