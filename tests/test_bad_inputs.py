@@ -140,7 +140,7 @@ CASES = [
     ("parameter file wrong type", run("{good}") + ["--params", "{params_type}"], "not a non-empty list", 2),
     ("procedure file missing", ["run", "/nonexistent/proc.py", "--station", "{good}", "--db", "{db}"], "does not exist", 2),
     ("procedure file broken", ["run", "{proc_syntax}", "--station", "{good}", "--db", "{db}"], "failed to import", 2),
-    # --- spec limits files (format: benchctl/limits.py docstring)
+    # --- spec limits files (format: the benchctl.limits docstring)
     ("limits file missing", ["check", "latest", "--limits", "{missing}", "--db", "{db}"], "does not exist", 2),
     ("limits file not TOML", ["check", "latest", "--limits", "{limits_not_toml}", "--db", "{db}"], "not valid TOML", 2),
     ("limits unknown key", ["check", "latest", "--limits", "{limits_unknown_key}", "--db", "{db}"], "problem(s) in the limits file", 2),
