@@ -49,6 +49,7 @@ class Bench:
         self._done = 0
         self._total = 0
         self._last_values: Mapping[str, float] = {}
+        self._plan_index: int | None = None
 
     @property
     def limits(self) -> Any:
@@ -144,16 +145,25 @@ class Bench:
     # -- walking a plan ------------------------------------------------------------
 
     def sweep(self, points: Iterable[Mapping[str, Any]]) -> Iterator[Mapping[str, Any]]:
-        """Yield the planned points in order, reporting progress; skips points already done (resume)."""
+        """Yield the planned points in order, reporting progress; skips points already done (resume).
+
+        Points recorded while a planned point is current carry its index as ``plan_index``,
+        so a resumed run knows which planned points are done even when a procedure records
+        more than one point per planned point.
+        """
         points = list(points)
         self._total = len(points)
         self._done = min(self.skip_points, self._total)
         self._report()
-        for k, point in enumerate(points):
-            if k < self.skip_points:
-                continue
-            self.interlock.raise_if_tripped()
-            yield point
+        try:
+            for k, point in enumerate(points):
+                if k < self.skip_points:
+                    continue
+                self.interlock.raise_if_tripped()
+                self._plan_index = k
+                yield point
+        finally:
+            self._plan_index = None
 
     def _report(self) -> None:
         if self._progress is not None:
@@ -174,10 +184,13 @@ class Bench:
         Units come from the names' suffixes (``vin_v`` → V) unless ``units`` says otherwise.
         """
         self.interlock.raise_if_tripped()
+        values = dict(values)
+        if self._plan_index is not None:
+            values.setdefault("plan_index", self._plan_index)
         all_units = {name: unit_from_name(name) for name in values}
         all_units.update(units or {})
         seq = self._recorder(
-            dict(values), all_units, tag=tag,
+            values, all_units, tag=tag,
             settled=None if settle is None else settle.settled,
             settle_time_s=None if settle is None else settle.settling_time_s,
         )

@@ -115,7 +115,8 @@ def execute(
             logger.exception("analysis of run %s failed", run_id)
             store.record_event(run_id, "error", f"analysis failed: {type(exc).__name__}: {exc}", {})
     store.end_run(run_id, status, message)
-    return RunOutcome(run_id, status, message, skip_points + bench.points_recorded, time.monotonic() - started,
+    return RunOutcome(run_id, status, message, store.run(run_id).n_points if resume_run_id else bench.points_recorded,
+                      time.monotonic() - started,
                       trip=interlock.trip_record, shutdown_steps=tuple(steps))
 
 
@@ -162,7 +163,11 @@ def _begin_or_resume(store: Any, start: Any, resume_run_id: int | None) -> tuple
     """(run id, committed points to skip): a new run, or the resumed one reopened with a gap event."""
     if resume_run_id is None:
         return store.begin_run(start), 0
-    skip_points = store.run(resume_run_id).n_points
+    points = store.points(resume_run_id)
+    if "plan_index" in points.columns and points["plan_index"].notna().any():
+        skip_points = int(points["plan_index"].max()) + 1  # planned points done (several records each, maybe)
+    else:
+        skip_points = len(points)
     store.reopen_run(resume_run_id, f"resumed after {skip_points} committed points; instruments re-identified: "
                      + "; ".join(f"{i.role}={i.identity}" for i in start.instruments))
     return resume_run_id, skip_points
