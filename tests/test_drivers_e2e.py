@@ -36,7 +36,9 @@ def test_source_identify_set_measure(bench):
         src.set_output(True)
         assert src.output_enabled() is True
         import time
-        time.sleep(0.05)  # the output rises with the model's time constant
+        deadline = time.monotonic() + 2.0  # the output rises with the model's time constant
+        while abs(src.measure_voltage() - 48.0) > 0.05 and time.monotonic() < deadline:
+            time.sleep(0.01)
         assert src.measure_voltage() == pytest.approx(48.0, abs=0.05)
         src.set_output(False)
     # audit log: the output went on then off (state changes recorded by the instrument)

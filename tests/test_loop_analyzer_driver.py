@@ -68,16 +68,16 @@ def test_block_payload_with_newline_bytes_is_read_by_count(analyzer):
 
 
 def test_wait_timeout_is_scaled_to_the_sweep(bench):
-    drv = LoopAnalyzer(bench.resources["analyzer"], name="analyzer", timeout_s=0.3).open()
+    drv = LoopAnalyzer(bench.resources["analyzer"], name="analyzer", timeout_s=0.5).open()
     try:
         drv.reset()
         drv.set_sweep(10.0, 1000.0, 100, "log")
-        drv.set_bandwidth(1.0)  # each point integrates max(5/f, 1/RBW) = 1 s of model time
+        drv.set_bandwidth(0.5)  # each point integrates max(5/f, 1/RBW) = 2 s of model time
         sweep_s = drv.sweep_time_s()
         f = np.geomspace(10.0, 1000.0, 100)
-        assert sweep_s == pytest.approx(np.sum(np.maximum(5.0 / f, 1.0)), rel=1e-9)
-        assert drv.sweep_timeout_s() == pytest.approx(1.5 * sweep_s + 0.3)
-        # 100 model s at time scale 200 = 0.5 s real: longer than the 0.3 s I/O timeout.
+        assert sweep_s == pytest.approx(np.sum(np.maximum(5.0 / f, 2.0)), rel=1e-9)
+        assert drv.sweep_timeout_s() == pytest.approx(1.5 * sweep_s + 0.5)
+        # 200 model s at time scale 200 = 1 s real: longer than the 0.5 s I/O timeout.
         drv.start_sweep()
         drv.wait_sweep(method="opc")
         assert drv.fetch().freq_hz.size == 100
@@ -89,10 +89,10 @@ def test_wait_timeout_is_scaled_to_the_sweep(bench):
             drv.wait_sweep(method="poll", timeout_s=0.05)
     finally:
         drv.close()
-    drv = LoopAnalyzer(bench.resources["analyzer"], name="analyzer", timeout_s=0.3).open()
+    drv = LoopAnalyzer(bench.resources["analyzer"], name="analyzer", timeout_s=0.5).open()
     try:
         drv.set_sweep(10.0, 1000.0, 100, "log")
-        drv.set_bandwidth(1.0)
+        drv.set_bandwidth(0.5)
         drv.start_sweep()
         with pytest.raises(InstrumentTimeout):
             drv.wait_sweep(method="opc", timeout_s=0.1)
