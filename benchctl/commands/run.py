@@ -204,7 +204,20 @@ def cmd_demo(args: argparse.Namespace) -> int:
             outcome = run_procedure(procedure, params, station, store, dut=DutInfo(part, "A", "SIM-0001"))
             _report_outcome(outcome, store, False)
             out.print(f"data: [bold]{store.url}[/] (run {outcome.run_id})")
-            out.print(f"next: benchctl show {outcome.run_id}   |   benchctl export {outcome.run_id} --format csv")
+            if outcome.status == "completed":
+                from benchctl.report import build_report
+
+                files = build_report(store, outcome.run_id)
+                out.print(f"report: [bold]{files.html_path}[/] ({len(files.png_paths)} plots)")
+            from benchctl.procedure import procedures_dir
+
+            limits = procedures_dir() / "limits" / f"{args.model}.toml"
+            try:
+                limits = limits.relative_to(Path.cwd())
+            except ValueError:
+                pass
+            out.print(f"next: benchctl show {outcome.run_id}   |   benchctl export {outcome.run_id} --format csv   |   "
+                      f"benchctl check {outcome.run_id} --limits {limits}")
             return _exit_code(outcome)
         finally:
             store.close()
