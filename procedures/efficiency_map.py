@@ -112,7 +112,7 @@ def analyse(points, p: Parameters) -> list[Result]:
     dev = output_deviation_pct(points["vout_v"], p.vout_nom_v)
     for k, seq in enumerate(points["seq"]):
         scope = {"seq": int(seq), "vin_set_v": float(points["vin_set_v"].iloc[k]), "iout_set_a": float(points["iout_set_a"].iloc[k])}
-        if np.isfinite(eff[k]):
+        if np.isfinite(eff[k]) and scope["iout_set_a"] > 0:  # undefined at no load: Pout is ~0 there
             results.append(Result("efficiency", float(eff[k]), "", scope=scope))
         results.append(Result("loss_w", float(loss[k]), "W", scope=scope))
         results.append(Result("vout_deviation_pct", float(dev[k]), "%", scope=scope))
