@@ -22,3 +22,15 @@ def test_readme_procedure_and_plugin_example(tmp_path, simulated_bench, station_
     namespace: dict = {}
     exec(compile(example_test, "README example test", "exec"), namespace)
     namespace["test_my_sweep_completes"](simulated_bench, station_for, benchctl_store)
+
+
+def test_readme_station_and_limits_examples_are_valid():
+    from benchctl.limits import parse_limits
+    from benchctl.station import parse_station
+
+    text = README.read_text(encoding="utf-8")
+    blocks = re.findall(r"```toml\n(.*?)```", text, flags=re.S)
+    station = parse_station(next(b for b in blocks if b.startswith("[station]")))
+    assert station.limits.hazardous and station.instruments["source"].commands
+    limits = parse_limits(next(b for b in blocks if "[[limit]]" in b))
+    assert len(limits.limits) == 3
