@@ -140,12 +140,17 @@ class Interlock:
                 self._trip_event.set()
         self.raise_if_tripped()
 
+    #: How long the shutdown waits for one instrument to have processed its OFF command
+    #: before it switches the next one off (a dead instrument costs at most this).
+    OFF_ACK_TIMEOUT_S = 0.5
+
     def shutdown(self) -> list[str]:
         """Outputs off in the safe order: source first, then load. Never raises; idempotent.
 
-        First the OFF commands go out to the source, then the load, without waiting for any
-        check (sending OFF is always safe), so a dead or slow source cannot delay the load;
-        then each is confirmed through the driver (error queue read, retries, read-back).
+        Each OFF command is sent and acknowledged (``*OPC?``, at most
+        :attr:`OFF_ACK_TIMEOUT_S`, no retries) before the next output is switched off, so the
+        order holds at the instruments and a dead source delays the load by half a second
+        at most; then each output is confirmed through the driver (error queue, read-back).
         """
         steps: list[str] = []
         outputs = [(name, driver, off) for name, driver, off in
@@ -155,10 +160,17 @@ class Interlock:
             for name, driver, off in outputs:
                 try:
                     driver.send(driver.command(off, state="OFF"))
+                    driver.wait_complete(timeout_s=min(self.OFF_ACK_TIMEOUT_S, getattr(driver, "timeout_s", 2.0)))
                     steps.append(f"{name} off sent")
                 except Exception as exc:  # keep going: the next output must still go off
-                    logger.error("could not send the %s its OFF command: %s", name, exc)
+                    logger.error("could not switch the %s off at once: %s", name, exc)
                     steps.append(f"{name} off send FAILED: {exc}")
+                    drop = getattr(driver, "_drop_session", None)
+                    if callable(drop):  # a late answer must not be read as the next one
+                        try:
+                            drop()
+                        except Exception:
+                            pass
             for name, driver, off in outputs:
                 try:
                     getattr(driver, off)(False)
