@@ -23,7 +23,8 @@ from typing import TYPE_CHECKING, Any
 from rich.markup import escape
 from rich.table import Table
 
-from benchctl.errors import ConfigurationError, StoreError
+from benchctl.commands.stores import open_existing_store
+from benchctl.errors import ConfigurationError
 from benchctl.junit import write_junit
 from benchctl.limits import (
     FAIL,
@@ -173,19 +174,9 @@ def check_run(
     return report
 
 
-def _open_store(db: str | None) -> Store:
-    from benchctl.cli import default_db
-    from benchctl.store import Store
-
-    url = db or default_db()
-    if "://" not in url and not Path(url).exists():
-        raise StoreError(f"no database at {url}; run `benchctl demo` or `benchctl run` first, or give --db")
-    return Store.open(url)
-
-
 def cmd_check(args: argparse.Namespace) -> int:
     """``benchctl check``: returns the check's exit code."""
-    with _open_store(args.db) as store:
+    with open_existing_store(args.db) as store:
         report = check_run(store, args.run, args.limits, junit_path=args.junit, print_table=not args.json)
     if args.json:
         print(json.dumps(_json_ready(report.to_dict()), indent=2))

@@ -9,7 +9,7 @@ from rich.table import Table
 
 from benchctl.cli import EXIT_OK
 from benchctl.commands.console import console
-from benchctl.commands.data import _open
+from benchctl.commands.stores import open_existing_store as _open
 from benchctl.errors import ConfigurationError
 
 

@@ -11,19 +11,12 @@ from pathlib import Path
 from rich.markup import escape
 from rich.table import Table
 
-from benchctl.cli import EXIT_OK, default_db
+from benchctl.cli import EXIT_OK
+from benchctl.commands.stores import open_existing_store as _open
 from benchctl.commands.console import console
 from benchctl.commands.summary import print_run_summary
 
 
-def _open(db: str | None):
-    from benchctl.store import Store
-    from benchctl.errors import StoreError
-
-    url = db or default_db()
-    if "://" not in url and not Path(url).exists():
-        raise StoreError(f"no database at {url}; run `benchctl demo` or `benchctl run` first, or give --db")
-    return Store.open(url)
 
 
 def _json_default(obj):

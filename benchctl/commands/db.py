@@ -27,6 +27,7 @@ from rich.table import Table
 
 from benchctl.cli import EXIT_FAILED, EXIT_OK, default_db
 from benchctl.commands.console import console
+from benchctl.commands.stores import existing_store_url as _existing
 
 from benchctl.commands.db_arguments import add_db_arguments  # noqa: F401  (re-exported for tests)
 
@@ -46,12 +47,6 @@ def resolve_db(args: argparse.Namespace) -> str:
     return default_db()
 
 
-def _existing(url: str) -> str:
-    from benchctl.errors import StoreError
-
-    if "://" not in url and not Path(url).exists():
-        raise StoreError(f"no database at {url}; give --db, or run `benchctl demo` or `benchctl run` first")
-    return url
 
 
 def _open(url: str):  # -> Store

@@ -10,7 +10,8 @@ from rich.table import Table
 
 from benchctl.cli import EXIT_BAD_INPUT, EXIT_FAILED, EXIT_INTERRUPTED, EXIT_NOT_CHECKED, EXIT_OK
 from benchctl.commands.console import console
-from benchctl.commands.run import _exit_code, open_store, print_plan, run_procedure
+from benchctl.commands.run import _exit_code, print_plan, run_procedure
+from benchctl.commands.stores import open_store
 
 #: Which step outcome decides the job's exit code when several go wrong (worst first).
 _SEVERITY = [EXIT_INTERRUPTED, EXIT_FAILED, EXIT_NOT_CHECKED, EXIT_BAD_INPUT, EXIT_OK]

@@ -3,11 +3,11 @@
 from __future__ import annotations
 
 import argparse
-from pathlib import Path
 
 from rich.markup import escape
 
-from benchctl.cli import DEFAULT_DB_ENV, EXIT_OK, default_db
+from benchctl.cli import DEFAULT_DB_ENV, EXIT_OK
+from benchctl.commands.stores import open_existing_store
 
 
 def add_report_arguments(parser: argparse.ArgumentParser) -> None:
@@ -23,14 +23,9 @@ def add_report_arguments(parser: argparse.ArgumentParser) -> None:
 def cmd_report(args: argparse.Namespace) -> int:
     """Build the report of ``args.run``; prints where it was written."""
     from benchctl.commands.console import console
-    from benchctl.errors import StoreError
     from benchctl.report import build_report
-    from benchctl.store import Store
 
-    url = args.db or default_db()
-    if "://" not in url and not Path(url).exists():
-        raise StoreError(f"no database at {url}; run `benchctl demo` or `benchctl run` first, or give --db")
-    with Store.open(url) as store:
+    with open_existing_store(args.db) as store:
         files = build_report(store, args.run, args.out)
     out = console()
     out.print(f"report of run {files.run_id}: {escape(str(files.html_path))} "

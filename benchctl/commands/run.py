@@ -14,18 +14,12 @@ from rich.table import Table
 from rich.console import Group
 from rich.text import Text
 
-from benchctl.cli import EXIT_FAILED, EXIT_INTERRUPTED, EXIT_OK, default_db
+from benchctl.cli import EXIT_FAILED, EXIT_INTERRUPTED, EXIT_OK
 from benchctl.commands.console import console, print_caution
+from benchctl.commands.stores import open_store
 from benchctl.commands.summary import print_run_summary
 
 
-def open_store(db: str | None):
-    from benchctl.store import Store
-
-    url = db or default_db()
-    if "://" not in url:
-        Path(url).parent.mkdir(parents=True, exist_ok=True)
-    return Store.open(url)
 
 
 class _ProgressView:

@@ -1,0 +1,34 @@
+"""Opening the store a command works on: one that must exist (reading), or one to write into."""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Any
+
+from benchctl.cli import default_db
+
+
+def existing_store_url(url: str) -> str:
+    """``url`` unchanged, or StoreError when it names a SQLite file that is not there."""
+    from benchctl.errors import StoreError
+
+    if "://" not in url and not Path(url).exists():
+        raise StoreError(f"no database at {url}; run `benchctl demo` or `benchctl run` first, or give --db")
+    return url
+
+
+def open_existing_store(db: str | None) -> Any:
+    """The store at ``db`` (default: $BENCHCTL_DB or ./benchctl-data/benchctl.db), which must exist."""
+    from benchctl.store import Store
+
+    return Store.open(existing_store_url(db or default_db()))
+
+
+def open_store(db: str | None) -> Any:
+    """The store at ``db`` (default as above), created with its folder when it is new."""
+    from benchctl.store import Store
+
+    url = db or default_db()
+    if "://" not in url:
+        Path(url).parent.mkdir(parents=True, exist_ok=True)
+    return Store.open(url)
