@@ -35,7 +35,7 @@ DEFAULT_REL_TOLERANCE = 0.02  # 2 % of the value for quantities not listed ...
 #: that noise on a near-zero reading (the output current at no load) is not a "change".
 ABSOLUTE_FLOORS = {"_v": 1e-3, "_a": 1e-3, "_w": 10e-3, "_pct": 0.01, "_hz": 1.0, "_deg": 0.5, "_db": 0.2, "_s": 1e-6}
 
-_POINT_META = {"seq", "t_utc", "settled", "settle_time_s", "plan_index"}
+_POINT_META = {"seq", "t_utc", "settled", "settle_time_s", "settle_info", "settle_reason", "plan_index"}
 
 
 @dataclass(frozen=True)

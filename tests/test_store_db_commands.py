@@ -39,7 +39,7 @@ def test_db_version_and_upgrade(store_url, capsys):
         Store.open(store_url)
     code, out = _run(["db", "upgrade", "--db", store_url, "--json"], capsys)
     result = json.loads(out)
-    assert code == 0 and result["from_version"] == 1 and result["revisions_applied"] == ["0002"]
+    assert code == 0 and result["from_version"] == 1 and result["revisions_applied"] == ["0002", "0003"]
     code, out = _run(["db", "upgrade", "--db", store_url], capsys)
     assert code == 0 and "nothing to do" in out
     code, out = _run(["db", "version", "--db", store_url], capsys)
@@ -89,7 +89,7 @@ def test_database_from_the_station_file(tmp_path, store_url, capsys):
         encoding="utf-8",
     )
     code, out = _run(["db", "upgrade", "--station", str(station), "--json"], capsys)
-    assert code == 0 and json.loads(out)["revisions_applied"] == ["0001", "0002"]
+    assert code == 0 and json.loads(out)["revisions_applied"] == ["0001", "0002", "0003"]
     code, out = _run(["db", "version", "--station", str(station), "--json"], capsys)
     assert json.loads(out)["status"] == "current"
     with Store.open(store_url) as store:  # the station's database is the one upgraded

@@ -156,8 +156,9 @@ def test_points_wide_matches_pandas_pivot_of_long_form(store):
 
     wide = store.points(run_id)
     long = store.points_long(run_id)
-    assert list(wide.columns[:5]) == ["seq", "t_utc", "tag", "settled", "settle_time_s"]
-    assert list(wide.columns[5:]) == ["vin_v", "iin_a", "vout_v", "iout_a", "pin_w", "pout_w", "temp_c"]
+    assert list(wide.columns[:7]) == ["seq", "t_utc", "tag", "settled", "settle_time_s", "settle_info",
+                                      "settle_reason"]
+    assert list(wide.columns[7:]) == ["vin_v", "iin_a", "vout_v", "iout_a", "pin_w", "pout_w", "temp_c"]
     assert wide["seq"].tolist() == list(range(1, len(expected) + 2))
     assert wide["tag"].tolist() == [t for t, _ in expected] + [""]
     assert wide["settled"].tolist() == [i != 2 for i in range(len(expected))] + [True]
@@ -165,8 +166,8 @@ def test_points_wide_matches_pandas_pivot_of_long_form(store):
     assert math.isnan(wide["settle_time_s"].iloc[-1])
 
     # Reference: pandas.DataFrame.pivot (library) applied to the long form must give the same table.
-    ref = long.pivot(index="seq", columns="quantity", values="value").reindex(columns=list(wide.columns[5:]))
-    got = wide.set_index("seq")[list(wide.columns[5:])]
+    ref = long.pivot(index="seq", columns="quantity", values="value").reindex(columns=list(wide.columns[7:]))
+    got = wide.set_index("seq")[list(wide.columns[7:])]
     ref.columns.name = None
     pd.testing.assert_frame_equal(got, ref, check_dtype=False, check_names=False)
 
@@ -366,3 +367,25 @@ def test_second_writer_of_the_same_run_is_refused_whole(store_url):
         # the failed transaction was rolled back: the connection writes again
         assert b.record_point(run_id, {"vin_v": 60.0}) == 3
         assert a.last_point(run_id) == 3
+
+
+def test_settle_info_and_result_uncertainty_round_trip(store):
+    run_id = store.begin_run(flyback_start())
+    info = {"method": "exponential_fit", "quantity": "pin_w", "window_s": 0.06, "tau_s": 0.021,
+            "predicted_residual": 1.2e-4, "verified": False, "reason": "load current 0.41 A, setpoint 0.5 A"}
+    store.record_point(run_id, {"pin_w": 3.1}, settled=False, settle_info=info)
+    store.record_point(run_id, {"pin_w": 3.2})
+    points = store.points(run_id)
+    assert points["settle_info"].tolist() == [info, {}]
+    assert points["settle_reason"].tolist() == ["load current 0.41 A, setpoint 0.5 A", ""]
+    store.record_results(run_id, [{"name": "efficiency", "value": 0.9, "uncertainty": 0.001,
+                                   "expanded_uncertainty": 0.002}, {"name": "loss_w", "value": 0.3}])
+    results = store.results(run_id)
+    assert results["uncertainty"].iloc[0] == 0.001 and results["expanded_uncertainty"].iloc[0] == 0.002
+    assert math.isnan(results["uncertainty"].iloc[1])
+
+
+def test_job_ids_come_from_the_database(store):
+    first = store.begin_job("nightly", "bench-3")
+    second = store.begin_job("nightly", "bench-4")
+    assert second > first

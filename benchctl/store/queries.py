@@ -21,7 +21,7 @@ from . import schema as s
 from .codec import decode_column, from_json
 from .records import RUN_STATUSES, ArrayData, InstrumentInfo, RunInfo
 
-POINT_COLUMNS = ("seq", "t_utc", "tag", "settled", "settle_time_s")
+POINT_COLUMNS = ("seq", "t_utc", "tag", "settled", "settle_time_s", "settle_info", "settle_reason")
 
 
 def utc_datetime(t_utc_s: float | None) -> datetime | None:
@@ -229,24 +229,33 @@ def quantity_units(conn: Connection, run_id: int) -> dict[str, str]:
 def _point_rows(conn: Connection, run_id: int) -> list[Any]:
     p = s.points
     return conn.execute(
-        select(p.c.seq, p.c.t_utc_s, p.c.tag, p.c.settled, p.c.settle_time_s)
+        select(p.c.seq, p.c.t_utc_s, p.c.tag, p.c.settled, p.c.settle_time_s, p.c.settle_json)
         .where(p.c.run_id == run_id)
         .order_by(p.c.seq)
     ).all()
 
 
 def _point_frame(rows: list[Any]) -> dict[str, pd.Series]:
+    infos = [_settle_info(r.settle_json) for r in rows]
     return {
         "seq": pd.Series([r.seq for r in rows], dtype="int64"),
         "t_utc": _utc_series([r.t_utc_s for r in rows]),
         "tag": pd.Series([r.tag for r in rows], dtype="str"),
         "settled": pd.Series([bool(r.settled) for r in rows], dtype="bool"),
         "settle_time_s": pd.Series([r.settle_time_s for r in rows], dtype="float64"),
+        "settle_info": pd.Series(infos, dtype="object"),
+        "settle_reason": pd.Series([str(i.get("reason", "") or "") for i in infos], dtype="str"),
     }
 
 
+def _settle_info(text: str | None) -> dict[str, Any]:
+    value = from_json(text) if text else {}
+    return value if isinstance(value, dict) else {}
+
+
 def points_wide(conn: Connection, run_id: int) -> pd.DataFrame:
-    """One row per point: seq, t_utc, tag, settled, settle_time_s, then one float column per
+    """One row per point: seq, t_utc, tag, settled, settle_time_s, settle_info (dict: how the point
+    was settled and verified), settle_reason ("" when settled and verified), then one float column per
     quantity (first-appearance order); NaN where a point has no value for a quantity."""
     _require_run(conn, run_id)
     rows = _point_rows(conn, run_id)
@@ -275,7 +284,8 @@ def points_long(conn: Connection, run_id: int) -> pd.DataFrame:
     _require_run(conn, run_id)
     p, q, v = s.points, s.quantities, s.point_values
     rows = conn.execute(
-        select(p.c.seq, p.c.t_utc_s, p.c.tag, p.c.settled, p.c.settle_time_s, q.c.name, v.c.value, q.c.unit)
+        select(p.c.seq, p.c.t_utc_s, p.c.tag, p.c.settled, p.c.settle_time_s, p.c.settle_json, q.c.name, v.c.value,
+               q.c.unit)
         .select_from(
             v.join(p, (p.c.run_id == v.c.run_id) & (p.c.seq == v.c.seq)).join(q, q.c.id == v.c.quantity_id)
         )
@@ -308,7 +318,7 @@ def events_frame(conn: Connection, run_id: int) -> pd.DataFrame:
 
 def results_frame(conn: Connection, run_id: int) -> pd.DataFrame:
     """Derived results in recording order: result_id, name, value (NaN if none), unit,
-    details, scope (dict), t_utc."""
+    details, scope (dict), uncertainty and expanded_uncertainty (k = 2; NaN if none), t_utc."""
     _require_run(conn, run_id)
     t = s.results
     rows = conn.execute(select(t).where(t.c.run_id == run_id).order_by(t.c.id)).all()
@@ -320,6 +330,10 @@ def results_frame(conn: Connection, run_id: int) -> pd.DataFrame:
             "unit": pd.Series([r.unit for r in rows], dtype="str"),
             "details": pd.Series([from_json(r.details_json) for r in rows], dtype="object"),
             "scope": pd.Series([from_json(r.scope_json) for r in rows], dtype="object"),
+            "uncertainty": pd.Series([np.nan if r.uncertainty is None else r.uncertainty for r in rows],
+                                     dtype="float64"),
+            "expanded_uncertainty": pd.Series(
+                [np.nan if r.expanded_uncertainty is None else r.expanded_uncertainty for r in rows], dtype="float64"),
             "t_utc": _utc_series([r.t_utc_s for r in rows]),
         }
     )

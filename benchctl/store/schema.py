@@ -10,16 +10,21 @@ Layout (``→`` is a foreign key)::
                     started_utc_s, ended_utc_s
     instruments     → runs, → stations, role, driver, resource, identity (as found at run start)
     quantities      → runs, name, unit           (one row per quantity name of a run)
-    points          (run_id, seq) key, t_utc_s, tag, settled, settle_time_s
+    points          (run_id, seq) key, t_utc_s, tag, settled, settle_time_s, settle_json
     point_values    (run_id, seq) → points, → quantities, value   (long form)
     events          → runs, t_utc_s, kind, message, details_json, point_seq
-    results         → runs, name, value (nullable), unit, details_json, scope_json
+    results         → runs, name, value (nullable), unit, details_json, scope_json,
+                    uncertainty, expanded_uncertainty (nullable; standard and k = 2)
+    jobs            job_uuid, name, station_name, host, started_utc_s (runs.job_id names a row)
     arrays          → runs, point_seq (nullable), name, meta_json
     array_columns   → arrays, position, name, unit, dtype, shape_json, data (raw little-endian bytes)
 
 Times are float seconds since the Unix epoch, UTC (portable across engines, 0.2 µs
 resolution today). Text columns use ``""`` rather than NULL where "unknown" needs
 no distinction, so unique constraints behave the same on every engine.
+
+Schema version 3 adds how each point settled (``points.settle_json``), the uncertainty
+of results and the ``jobs`` table whose ids the database assigns.
 
 ``runs.run_uuid`` (schema version 2) names a run the same way in every database it is
 copied to, so moving a run from a station's file to the shared database is idempotent.
@@ -52,7 +57,7 @@ from sqlalchemy import (
 )
 from sqlalchemy.engine import Connection
 
-SCHEMA_VERSION = 2
+SCHEMA_VERSION = 3
 """Integer version of the table layout below; bump it with every layout change and add
 the migration that makes it (``benchctl/store/migrations/versions/NNNN_*.py``)."""
 
@@ -170,6 +175,8 @@ points = Table(
     Column("tag", String(100), nullable=False, server_default=""),
     Column("settled", Boolean, nullable=False),
     Column("settle_time_s", Float, nullable=True),
+    # How the point was settled and verified (JSON object; ``{}`` before schema version 3).
+    Column("settle_json", Text, nullable=False, server_default="{}"),
 )
 
 point_values = Table(
@@ -205,6 +212,20 @@ results = Table(
     Column("unit", String(50), nullable=False, server_default=""),
     Column("details_json", Text, nullable=False, server_default="null"),
     Column("scope_json", Text, nullable=False, server_default="{}"),
+    Column("uncertainty", Float, nullable=True),  # standard uncertainty u, in ``unit`` (GUM 2.3.1)
+    Column("expanded_uncertainty", Float, nullable=True),  # U = k·u with k = 2 (GUM 2.3.5)
+)
+
+jobs = Table(
+    "jobs",
+    metadata,
+    Column("id", Integer, primary_key=True),  # assigned by the database: unique across stations
+    Column("job_uuid", String(36), nullable=False),
+    Column("name", String(200), nullable=False, server_default=""),
+    Column("station_name", String(200), nullable=False, server_default=""),
+    Column("host", String(255), nullable=False, server_default=""),
+    Column("started_utc_s", Float, nullable=False),
+    Index("jobs_uuid_idx", "job_uuid", unique=True),
 )
 
 arrays = Table(

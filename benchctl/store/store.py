@@ -179,6 +179,7 @@ class Store:
         settled: bool = True,
         settle_time_s: float | None = None,
         t_utc_s: float | None = None,
+        settle_info: Mapping[str, Any] | None = None,
     ) -> int:
         """Store one measured point; it is committed when this returns. Returns its seq (1, 2, ...).
 
@@ -186,11 +187,21 @@ class Store:
         ``units`` gives each quantity's unit the first time it appears; a name's
         suffix supplies it when omitted (``vin_v`` -> ``V``, see
         :func:`benchctl.store.writer.unit_from_name`). ``t_utc_s`` defaults to now.
+        ``settle_info`` says how the point was settled and verified (stored as JSON; read
+        back as the ``settle_info`` column of :meth:`points`).
         """
         self._require_open()
         return self._writer.record_point(
-            run_id, values, units=units, tag=tag, settled=settled, settle_time_s=settle_time_s, t_utc_s=t_utc_s
+            run_id, values, units=units, tag=tag, settled=settled, settle_time_s=settle_time_s, t_utc_s=t_utc_s,
+            settle_info=settle_info,
         )
+
+    def begin_job(self, name: str, station_name: str = "", host: str | None = None) -> int:
+        """A new job id, assigned by the database (two stations never get the same one)."""
+        import socket
+
+        self._require_open()
+        return self._writer.begin_job(name, station_name, socket.gethostname() if host is None else host)
 
     def record_event(
         self,

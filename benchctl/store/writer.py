@@ -43,11 +43,12 @@ from .records import FINAL_STATUSES, RUNNING, RunStart, sha256_hex
 log = logging.getLogger(__name__)
 
 # Column order of the tuples handed to the point writers (that of the tables).
-POINT_KEYS = ("run_id", "seq", "t_utc_s", "tag", "settled", "settle_time_s")
+POINT_KEYS = ("run_id", "seq", "t_utc_s", "tag", "settled", "settle_time_s", "settle_json")
 VALUE_KEYS = ("run_id", "seq", "quantity_id", "value")
 
 # Columns of the wide points table; a quantity may not take one of these names.
-RESERVED_NAMES = frozenset({"run_id", "seq", "t_utc", "tag", "settled", "settle_time_s"})
+RESERVED_NAMES = frozenset({"run_id", "seq", "t_utc", "tag", "settled", "settle_time_s", "settle_info",
+                            "settle_reason"})
 
 _SHA256_RE = re.compile(r"^[0-9a-f]{64}$")
 
@@ -210,6 +211,15 @@ class Writer:
         log.info("run %d begun: %s on station %s", run_id, start.procedure, start.station_name)
         return run_id
 
+    def begin_job(self, name: str, station_name: str, host: str) -> int:
+        """Store a new job and return its id, assigned by the database (unique across stations)."""
+        with self._transaction(f"beginning job {name!r}") as conn:
+            job_id = conn.execute(
+                insert(s.jobs).values(job_uuid=str(uuid.uuid4()), name=name, station_name=station_name, host=host,
+                                      started_utc_s=self._clock())
+            ).inserted_primary_key[0]
+        return int(job_id)
+
     def end_run(self, run_id: int, status: str, message: str = "") -> None:
         """Give a running run its final status and end time."""
         if status not in FINAL_STATUSES:
@@ -269,13 +279,18 @@ class Writer:
         settled: bool = True,
         settle_time_s: float | None = None,
         t_utc_s: float | None = None,
+        settle_info: Mapping[str, Any] | None = None,
     ) -> int:
-        """Store one point and its values in one transaction; committed on return. Returns its seq."""
+        """Store one point and its values in one transaction; committed on return. Returns its seq.
+
+        ``settle_info`` says how the point was settled and verified (a JSON-able mapping).
+        """
         if not values:
             raise StoreError(f"run {run_id}: a point needs at least one value; got none")
         units = units or {}
         t = self._clock() if t_utc_s is None else float(t_utc_s)
         settle = None if settle_time_s is None else float(settle_time_s)
+        settle_json = to_json(f"run {run_id}: settle information", dict(settle_info or {}))
         with self._lock:
             opened = self._open_runs.get(run_id)
             if opened is None:
@@ -307,7 +322,7 @@ class Writer:
                 elif all_known:
                     value_rows.append((run_id, seq, known[0], number))
                 numbers.append((name, number))
-            point = (run_id, seq, t, tag, bool(settled), settle)
+            point = (run_id, seq, t, tag, bool(settled), settle, settle_json)
             if self._fast is not None and all_known:
                 self._fast.write_point(self._connection(), point, value_rows, f"run {run_id}, point {seq}")
             else:
@@ -403,7 +418,8 @@ class Writer:
     def record_results(self, run_id: int, results: Iterable[Mapping[str, Any]]) -> int:
         """Store many derived results in one transaction (one commit); returns how many.
 
-        Each item has ``name`` and ``value`` and optionally ``unit``, ``details``, ``scope``.
+        Each item has ``name`` and ``value`` and optionally ``unit``, ``details``, ``scope``,
+        ``uncertainty`` (standard) and ``expanded_uncertainty`` (k = 2), in the result's unit.
         """
         rows = []
         now = self._clock()
@@ -417,6 +433,9 @@ class Writer:
                 unit=item.get("unit", "") or "",
                 details_json=to_json(f"details of result {name!r}", item.get("details")),
                 scope_json=to_json(f"scope of result {name!r}", dict(item.get("scope") or {})),
+                uncertainty=to_float_or_none(f"run {run_id}: uncertainty of {name!r}", item.get("uncertainty")),
+                expanded_uncertainty=to_float_or_none(f"run {run_id}: expanded uncertainty of {name!r}",
+                                                      item.get("expanded_uncertainty")),
             ))
         if not rows:
             return 0
