@@ -1,7 +1,7 @@
 """K-factor compensator design checked against its formulas and python-control margins.
 
 K factor: H. D. Venable, "The K Factor: A New Mathematical Tool for Stability Analysis and
-Synthesis," Proc. Powercon 10, 1983 (formulas from memory, REFERENCES.md "Compensators:
+Synthesis," Proc. Powercon 10, 1983 (formulas from memory; VENABLE-1983 in benchctl.references, "Compensators:
 K-factor"); margins: python-control ``control.margin`` -> (gm ratio, pm deg, wpc, wgc) rad/s.
 """
 
@@ -58,13 +58,13 @@ def _in_series(value: float, series: str) -> bool:
     return any(abs(m - x) < 1e-9 for x in SERIES[series] + (10.0,))
 
 
-PLANT_RC = 10 / (1 + S / (TWO_PI * 500))  # REFERENCES.md worked example plant
+PLANT_RC = 10 / (1 + S / (TWO_PI * 500))  # worked-example plant [calc]
 
 
 def test_type2_worked_example() -> None:
     fc, pm, r1 = 10e3, 60.0, 10e3
     d = design_type2(_tf_callable(PLANT_RC), crossover_hz=fc, phase_margin_deg=pm, r1_ohm=r1)
-    # Re-derived from Venable's formulas (REFERENCES.md, formulas from memory):
+    # Re-derived from Venable's formulas (VENABLE-1983, from memory):
     p_deg = -math.degrees(math.atan(fc / 500))
     g = math.sqrt(1 + (fc / 500) ** 2) / 10
     boost = pm - p_deg - 90
@@ -80,7 +80,7 @@ def test_type2_worked_example() -> None:
     assert d.ideal_parts.c2_f == pytest.approx(c2, rel=1e-9)
     assert d.ideal_parts.c1_f == pytest.approx(c1, rel=1e-9)
     assert d.ideal_parts.r2_ohm == pytest.approx(r2, rel=1e-9)
-    # REFERENCES.md worked example [calc]: P -87.14 deg, boost 57.14, K 3.3909, fz 2.949 kHz,
+    # worked example [calc]: P -87.14 deg, boost 57.14, K 3.3909, fz 2.949 kHz,
     # fp 33.91 kHz, C2 234.4 pF, C1 2.461 nF, R2 21.93 kOhm.
     assert d.plant_phase_deg == pytest.approx(-87.14, abs=0.005)
     assert d.k_factor == pytest.approx(3.3909, abs=5e-5)
@@ -94,7 +94,7 @@ def test_type2_worked_example() -> None:
 
 def test_type2_predicted_margins_match_python_control() -> None:
     d = design_type2(_tf_callable(PLANT_RC), crossover_hz=10e3, phase_margin_deg=60.0)
-    # REFERENCES.md [calc]: control.margin -> PM 60.00 deg at 10 kHz with the ideal parts.
+    # [calc] python-control control.margin -> PM 60.00 deg at 10 kHz with the ideal parts.
     _gm, pm, _wpc, wgc = control.margin(_gc_tf(d.ideal_parts) * PLANT_RC)
     assert pm == pytest.approx(60.0, abs=0.01)
     assert wgc / TWO_PI == pytest.approx(10e3, rel=1e-4)
@@ -175,7 +175,7 @@ def test_phase_boost_at_crossover_is_the_designed_boost() -> None:
 
 def test_type2_impossible_boost_warns() -> None:
     # Double-pole plant near -180 deg at fc: boost = 60 + ~170 - 90 > 90 deg (type 2 limit,
-    # Venable; REFERENCES.md).
+    # VENABLE-1983).
     d = design_type2(_tf_callable(_pol_buck_plant()), crossover_hz=40e3, phase_margin_deg=60.0)
     assert d.boost_required_deg > 90.0
     assert d.boost_deg == pytest.approx(85.0)
@@ -187,7 +187,7 @@ def test_type2_impossible_boost_warns() -> None:
 
 
 def test_fsw_and_rhp_zero_rules_of_thumb_warn() -> None:
-    # Common practice (REFERENCES.md): fc <= fsw/5 and fc <= f_RHPz/3.
+    # Common practice: fc <= fsw/5 and fc <= f_RHPz/3.
     plant = _tf_callable(_pol_buck_plant())
     d = design_type3(plant, crossover_hz=150e3, phase_margin_deg=60.0, fsw_hz=500e3)
     assert any("fsw/5" in w for w in d.warnings)
@@ -197,7 +197,7 @@ def test_fsw_and_rhp_zero_rules_of_thumb_warn() -> None:
 
 
 def test_rhp_zero_taken_from_a_fitted_flyback_plant() -> None:
-    # Flyback CCM Gvd at Vg 48 V (REFERENCES.md worked example [calc]): f0 1038.21 Hz,
+    # Flyback CCM Gvd at Vg 48 V (worked example [calc]): f0 1038.21 Hz,
     # Q 18.40, RHP zero 38.197 kHz, Gd0 48 V; 30 mOhm ESR on 470 uF.
     w0, q, wz, wesr = TWO_PI * 1038.21, 18.40, TWO_PI * 38197.0, 1 / (0.03 * 470e-6)
     gvd = 48 * (1 - S / wz) * (1 + S / wesr) / (1 + S / (q * w0) + S**2 / w0**2) / 2.5  # 2.5 V ramp

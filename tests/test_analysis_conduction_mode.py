@@ -27,7 +27,7 @@ from benchctl.analysis.conduction_mode import (
 )
 from benchctl.errors import AnalysisInputError
 
-VG, V, L_H, FS = 12.0, 5.0, 10e-6, 500e3  # REFERENCES.md buck example
+VG, V, L_H, FS = 12.0, 5.0, 10e-6, 500e3  # buck example computed from ERICKSON-2E ch. 2 and 5 formulas [calc]
 TS = 1.0 / FS
 N_PER = 200
 PERIODS = 10
@@ -111,7 +111,7 @@ def test_idle_interval_method_on_inductor_current():
 
 
 def test_k_and_boundary_currents_match_reference_values():
-    # REFERENCES.md [calc], Erickson 2nd ed. ch. 5 (mem): buck 12 -> 5 V, 10 uH, R 1 Ohm, 500 kHz
+    # [calc] from ERICKSON-2E ch. 5 (from memory): buck 12 -> 5 V, 10 uH, R 1 Ohm, 500 kHz
     assert k_parameter(L_H, 1.0, FS) == pytest.approx(10.0)
     assert k_crit_buck(V / VG) == pytest.approx(0.5833, abs=1e-4)
     i_crit = buck_boundary_load_current_a(VG, V, L_H, FS)
@@ -135,7 +135,7 @@ def test_k_and_boundary_currents_match_reference_values():
     l_sec = n**2 * lm
     i_pk_sec = v_out * (1 - d) / (fs_fb * l_sec)
     assert i_fb == pytest.approx(i_pk_sec * (1 - d) / 2, rel=1e-12)
-    assert i_fb < v_out / 6.0  # R = 6 Ohm draws 2 A, above the boundary: CCM as in REFERENCES.md
+    assert i_fb < v_out / 6.0  # R = 6 Ohm draws 2 A, above the boundary: CCM (K vs K_crit, ERICKSON-2E ch. 5)
 
 
 def test_find_boundary_with_textbook_classifier():

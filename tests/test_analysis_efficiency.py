@@ -35,7 +35,7 @@ def test_peak_efficiency_location():
 
 
 def test_load_regulation_conventions_reference_values():
-    # REFERENCES.md "Definitions" (common practice / IEC 61204 style, from memory):
+    # definitions: common practice / IEC-61204 style (from memory):
     # 12.06 V no load, 11.94 V full load -> 1.005 % textbook (÷ V_FL), 1.000 % rated (÷ 12 V)
     assert load_regulation_pct(12.06, 11.94, "textbook") == pytest.approx(1.005, abs=5e-4)
     assert load_regulation_pct(12.06, 11.94, "rated", 12.0) == pytest.approx(1.000, abs=5e-4)
@@ -61,7 +61,7 @@ def test_regulation_grouping_merges_passes():
 
 
 def test_level_vi_limits_worked_values():
-    # REFERENCES.md [calc] from the 10 CFR 430.32(w) formulas (from memory):
+    # [calc] from the CFR-430.32W formulas (from memory):
     # basic 10 W -> 0.8195; 24 W -> 0.8620; 60 W -> 0.880; low-voltage 5 W -> 0.7362.
     # Re-derived here from the formula as well as compared with the tabulated values.
     assert level_vi_average_efficiency_limit(10, "basic-voltage") == pytest.approx(

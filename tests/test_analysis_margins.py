@@ -64,9 +64,9 @@ def _delay_loop() -> control.TransferFunction:
 
 # (name, loop, w_lo, w_hi) -- loops of our own choosing; ranges cover every crossing.
 CASES = [
-    # REFERENCES.md cross-check [calc]: gm 2.0 at 1 rad/s, pm 21.386 deg at 0.6823 rad/s.
+    # python-control cross-check [calc] (PYTHON-CONTROL): gm 2.0 at 1 rad/s, pm 21.386 deg at 0.6823 rad/s.
     ("integrator_two_poles", 1 / (S**3 + 2 * S**2 + S), 1e-3, 1e3),
-    # REFERENCES.md cross-check [calc]: gm 3.6 at 3.1623 rad/s, pm 29.110 deg at 1.7844 rad/s.
+    # python-control cross-check [calc] (PYTHON-CONTROL): gm 3.6 at 3.1623 rad/s, pm 29.110 deg at 1.7844 rad/s.
     ("third_order", 25 / (S**3 + 10 * S**2 + 10 * S + 10), 1e-3, 1e3),
     # conditionally stable: three phase crossovers, two below the gain crossover.
     ("conditionally_stable", 3 * (S + 1) ** 2 / (S * (S + 0.1) ** 2 * (S / 30 + 1) ** 2), 1e-3, 1e4),
@@ -83,7 +83,7 @@ CASES = [
     ("pade_delay", _delay_loop(), 1e-2, 1e4),
     # converter-like: type-3 compensator times a buck double pole with ESR zero.
     ("buck_type3", _buck_type3_loop(), TWO_PI * 10.0, TWO_PI * 2e6),
-    # the type-2 K-factor worked example of REFERENCES.md (its loop, ideal parts).
+    # the type-2 K-factor worked example [calc] (VENABLE-1983; its loop, ideal parts).
     (
         "kfactor_type2_example",
         (10 / (1 + S / (TWO_PI * 500)))
@@ -137,7 +137,7 @@ def test_worst_gain_margin_matches_python_control_choice(name, sys, w_lo, w_hi) 
 
 
 def test_reference_cross_checks_literal_values() -> None:
-    # REFERENCES.md "Loop gain" cross-checks [calc, python-control control.margin].
+    # python-control control.margin cross-checks [calc] (PYTHON-CONTROL).
     f, h = _sample(1 / (S**3 + 2 * S**2 + S), 1e-3, 1e3, per_decade=200)
     m = loop_margins(f, h)
     assert m.worst_gain_margin_db == pytest.approx(20 * math.log10(2.0), abs=0.01)
@@ -293,7 +293,7 @@ def test_gain_phase_input_matches_python_control_data_mode() -> None:
 
 def test_phase_margin_to_closed_loop_q() -> None:
     # Erickson & Maksimovic 2nd ed. sec. 9.4 (from memory): Q = sqrt(cos pm)/sin pm, exact for
-    # T = 1/((s/w0)(1 + s/w2)); REFERENCES.md: 45 deg -> 1.189, 60 deg -> 0.816.
+    # T = 1/((s/w0)(1 + s/w2)); ERICKSON-2E §9.4 (from memory): 45 deg -> 1.189, 60 deg -> 0.816.
     assert closed_loop_q(45.0) == pytest.approx(1.189, abs=5e-4)
     assert closed_loop_q(60.0) == pytest.approx(0.816, abs=5e-4)
     for w2_over_w0 in (0.5, 1.0, 3.0, 10.0):

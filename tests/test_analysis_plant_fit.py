@@ -1,7 +1,7 @@
 """Rational fit of converter plants: recovers known poles/zeros, flags RHP zeros, picks order.
 
 True plants are averaged small-signal models (Erickson & Maksimovic, Fundamentals of Power
-Electronics, 2nd ed., ch. 7-8; formulas from memory, REFERENCES.md "Averaged small-signal
+Electronics, 2nd ed., ch. 7-8; formulas from memory; ERICKSON-2E "Averaged small-signal
 models"); their poles and zeros are cross-checked with python-control ``control.poles`` /
 ``control.zeros`` and responses computed with ``scipy.signal.freqs``.
 """
@@ -46,7 +46,7 @@ def _flyback_gvd() -> tuple[control.TransferFunction, dict[str, float]]:
 
 
 def _buck_gvd() -> control.TransferFunction:
-    """Buck 12 V -> 5 V, L 10 uH, C 100 uF, rc 10 mOhm, R 1 Ohm (REFERENCES.md worked example):
+    """Buck 12 V -> 5 V, L 10 uH, C 100 uF, rc 10 mOhm, R 1 Ohm (worked example [calc], ERICKSON-2E formulas):
     Gvd = Vg (1 + s rc C)/(1 + s(L/R + rc C) + s^2 L C (1 + rc/R)), Erickson 2nd ed. ch. 8 (mem)."""
     vg, l_h, c, rc, r = 12.0, 10e-6, 100e-6, 10e-3, 1.0
     return vg * (1 + S * rc * c) / (1 + S * (l_h / r + rc * c) + S**2 * l_h * c * (1 + rc / r))
@@ -72,7 +72,7 @@ def test_flyback_poles_zeros_recovered_from_noisy_data() -> None:
     assert ref_zeros[1].real / TWO_PI == pytest.approx(true["rhp_zero_hz"], rel=1e-9)
     assert -ref_zeros[0].real / TWO_PI == pytest.approx(true["esr_zero_hz"], rel=1e-9)
     assert abs(control.poles(sys)[0]) / TWO_PI == pytest.approx(true["f0_hz"], rel=1e-9)
-    # REFERENCES.md flyback worked example [calc]: Gd0 48 V, f0 1038.21 Hz, Q 18.40, RHPz 38.197 kHz
+    # flyback worked example [calc] (ERICKSON-2E ch. 7-8): Gd0 48 V, f0 1038.21 Hz, Q 18.40, RHPz 38.197 kHz
     assert true["gd0"] == pytest.approx(48.0, rel=1e-6)
     assert true["f0_hz"] == pytest.approx(1038.21, rel=1e-5)
     assert true["q"] == pytest.approx(18.40, rel=1e-3)
@@ -99,7 +99,7 @@ def test_buck_fit_on_clean_data_is_exact() -> None:
     sys = _buck_gvd()
     f, h = _sample(sys, 10.0, 1e6, per_decade=30)
     fit = fit_plant(f, h, num_order=1, den_order=2)
-    # REFERENCES.md buck worked example [calc]: f_esr 159.15 kHz, Gd0 12 V, f0 5007.94 Hz, Q 2.889
+    # buck worked example [calc] (ERICKSON-2E ch. 8): f_esr 159.15 kHz, Gd0 12 V, f0 5007.94 Hz, Q 2.889
     assert fit.dc_gain == pytest.approx(12.0, rel=1e-8)
     assert fit.resonances[0].f0_hz == pytest.approx(5007.94, rel=1e-5)
     assert fit.resonances[0].q == pytest.approx(2.889, rel=2e-4)
@@ -157,7 +157,7 @@ def test_zero_weights_ignore_corrupted_points() -> None:
     w = np.ones(f.size)
     w[60:70] = 0.0
     fit = fit_plant(f, bad, num_order=1, den_order=2, weights=w)
-    # Reference values: REFERENCES.md buck example [calc] f0 5007.94 Hz, Q 2.889.
+    # Reference values: buck example [calc] (ERICKSON-2E ch. 8) f0 5007.94 Hz, Q 2.889.
     assert fit.resonances[0].f0_hz == pytest.approx(5007.94, rel=1e-5)
     assert fit.resonances[0].q == pytest.approx(2.889, rel=2e-4)
     unweighted = fit_plant(f, bad, num_order=1, den_order=2)

@@ -92,9 +92,9 @@ def test_buck_worked_values_rederived():
     di = (vg - v) * d / (fs * l_h)  # inductor volt-seconds over the on-time
     assert est.duty == pytest.approx(d)
     assert est.inductor_ripple_pk_pk_a == pytest.approx(di, rel=1e-12)
-    assert est.inductor_ripple_pk_pk_a == pytest.approx(0.5833, abs=1e-4)  # REFERENCES.md [calc]
-    assert est.capacitor_ripple_pk_pk_v == pytest.approx(1.458e-3, abs=1e-6)  # REFERENCES.md [calc]
-    assert est.esr_ripple_pk_pk_v == pytest.approx(5.833e-3, abs=1e-6)  # REFERENCES.md [calc]
+    assert est.inductor_ripple_pk_pk_a == pytest.approx(0.5833, abs=1e-4)  # [calc] from ERICKSON-2E ch. 2 formulas
+    assert est.capacitor_ripple_pk_pk_v == pytest.approx(1.458e-3, abs=1e-6)  # [calc] from ERICKSON-2E ch. 2 formulas
+    assert est.esr_ripple_pk_pk_v == pytest.approx(5.833e-3, abs=1e-6)  # [calc] from ERICKSON-2E ch. 2 formulas
 
     # Independent check of dV = dI/(8 fs C): integrate the AC inductor current into C over one
     # period (capacitor charge balance, Erickson ch. 2 argument) with scipy.integrate.

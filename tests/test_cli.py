@@ -170,7 +170,7 @@ def test_export_an_array_as_csv_and_analyze_it(tmp_path, capsys):
 
     from benchctl.store import RunStart, Store
 
-    # loop 25/(s^3+10s^2+10s+10): python-control cross-check in REFERENCES.md (pm 29.11 deg)
+    # loop 25/(s^3+10s^2+10s+10): python-control cross-check [calc] (PYTHON-CONTROL, benchctl.references; pm 29.11 deg)
     freq = np.logspace(-2, 1, 400)
     w = 2 * np.pi * freq
     s = 1j * w

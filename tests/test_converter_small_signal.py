@@ -29,21 +29,21 @@ def _pole_f0_q(tf: RationalTF) -> tuple[float, float]:
 
 
 def test_buck_28v_to_15v_f0_q_gd0() -> None:
-    # Erickson & Maksimović, Fundamentals of Power Electronics 2nd ed., §9.5.4 (REFERENCES [calc]):
+    # Erickson & Maksimović, Fundamentals of Power Electronics 2nd ed., §9.5.4 ([calc] from its formulas):
     # f0 = 1/(2π√(LC)), Q = R√(C/L), Gd0 = Vg — re-derived here, then read from the model's poles.
     vg, l, c, r = 28.0, 50e-6, 500e-6, 3.0
     tf = buck_ccm_gvd(vg, l, c, r)
     f0, q = _pole_f0_q(tf)
     assert f0 == pytest.approx(1.0 / (TWO_PI * math.sqrt(l * c)), rel=1e-9)
     assert q == pytest.approx(r * math.sqrt(c / l), rel=1e-9)
-    assert f0 == pytest.approx(1006.58, abs=0.01)      # REFERENCES worked value
+    assert f0 == pytest.approx(1006.58, abs=0.01)      # worked value [calc]
     assert q == pytest.approx(9.487, abs=0.001)
     assert tf.dc_gain() == pytest.approx(vg)
 
 
 def test_buck_12v_to_5v_esr_zero_exact_poles_and_boundary() -> None:
     # Erickson 2nd ed. ch. 8 (buck with ESR, exact denominator 1 + s(L/R + rc·C) + s²LC(1 + rc/R));
-    # K = 2L/(R·Ts) vs K_crit = 1 − D and I_crit = (1 − D)·V·Ts/(2L), ch. 5 (REFERENCES [calc]).
+    # K = 2L/(R·Ts) vs K_crit = 1 − D and I_crit = (1 − D)·V·Ts/(2L), ch. 5 ([calc] from its formulas).
     vg, v, l, c, rc, r, fs = 12.0, 5.0, 10e-6, 100e-6, 0.010, 1.0, 500e3
     tf = buck_ccm_gvd(vg, l, c, r, rc)
     z = tf.zeros()
@@ -69,7 +69,7 @@ def test_buck_12v_to_5v_esr_zero_exact_poles_and_boundary() -> None:
 
 
 def test_flyback_ccm_worked_example() -> None:
-    # REFERENCES "Averaged small-signal models" (Erickson 2nd ed. ch. 7–8, formulas from memory) [calc]:
+    # ERICKSON-2E ch. 7–8 averaged small-signal models (formulas from memory) [calc]:
     # Vg 48 V, n 0.25, Lm 200 µH, C 470 µF, R 6 Ω, D 0.5 ⇒ V = 12 V.
     vg, n, lm, c, r, d, fs = 48.0, 0.25, 200e-6, 470e-6, 6.0, 0.5, 100e3
     v = n * vg * d / (1 - d)
@@ -94,7 +94,7 @@ def test_flyback_ccm_worked_example() -> None:
 
 
 def test_flyback_dcm_worked_example() -> None:
-    # REFERENCES DCM flyback (Erickson 2nd ed. ch. 11, from memory) [calc]: Lm 20 µH, R 12 Ω, V 12 V:
+    # DCM flyback, ERICKSON-2E ch. 11 (from memory) [calc]: Lm 20 µH, R 12 Ω, V 12 V:
     # M = V/Vg = n·D/√K′ ⇒ D = 0.14434; Gd0 = V/D = 83.14 V; fp = 2/(2π·R·C) = 56.44 Hz.
     vg, v, n, lm, c, r, fs = 48.0, 12.0, 0.25, 20e-6, 470e-6, 12.0, 100e3
     k = 2 * n * n * lm * fs / r
@@ -111,7 +111,7 @@ def test_flyback_dcm_worked_example() -> None:
 
 def test_gvd_responses_match_scipy_freqs_and_closed_forms() -> None:
     # scipy.signal.freqs on the same polynomials, and the textbook closed forms evaluated directly
-    # (Erickson 2nd ed. ch. 8; REFERENCES "Averaged small-signal models").
+    # (ERICKSON-2E ch. 8, averaged small-signal models).
     w = TWO_PI * FREQS_HZ
     s = 1j * w
     vg, l, c, rc, r = 12.0, 0.68e-6, 600e-6, 0.003, 0.12
@@ -147,8 +147,8 @@ def test_type3_compensator_matches_op_amp_algebra() -> None:
 
 
 @pytest.mark.parametrize(("num", "den", "gm", "pm_deg", "w_pc", "w_gc"), [
-    ([1.0], [1.0, 2.0, 1.0, 0.0], 2.0, 21.386, 1.0, 0.6823),          # REFERENCES [calc]
-    ([25.0], [1.0, 10.0, 10.0, 10.0], 3.6, 29.110, 3.1623, 1.7844),   # REFERENCES [calc]
+    ([1.0], [1.0, 2.0, 1.0, 0.0], 2.0, 21.386, 1.0, 0.6823),          # python-control cross-check [calc]
+    ([25.0], [1.0, 10.0, 10.0, 10.0], 3.6, 29.110, 3.1623, 1.7844),   # python-control cross-check [calc]
 ])
 def test_loop_margins_on_reference_systems(num, den, gm, pm_deg, w_pc, w_gc) -> None:
     # python-control control.margin → (gm ratio, pm deg, w phase crossover, w gain crossover), rad/s
@@ -214,7 +214,7 @@ def test_dc_loop_gain_formula_buck_ccm() -> None:
 
 
 def test_stability_across_envelope() -> None:
-    # Rules of thumb (REFERENCES [CP]): PM ≥ 45°, GM ≥ 6 dB, CCM crossover ≤ fsw/5 and ≤ f_RHPz/3;
+    # Rules of thumb (common practice): PM ≥ 45°, GM ≥ 6 dB, CCM crossover ≤ fsw/5 and ≤ f_RHPz/3;
     # margins must differ between corners (the loop gain moves with line and load).
     for design in (FLYBACK_48V_5V, BUCK_12V_1V2):
         pms = []

@@ -123,7 +123,7 @@ def test_ccm_dcm_boundary_load(design, line: float) -> None:
 
 @pytest.mark.parametrize("design", DESIGN_LIST)
 def test_line_and_load_regulation_in_range(design) -> None:
-    # Definitions (REFERENCES [CP]): line reg % = (Vo@Vin,max − Vo@Vin,min)/Vo,nom × 100 at full load;
+    # Definitions (common practice): line reg % = (Vo@Vin,max − Vo@Vin,min)/Vo,nom × 100 at full load;
     # load reg % = (V_NL − V_FL)/V_FL × 100 (textbook convention).  Targets: line 0.01–0.2 %,
     # load 0.05–0.5 % (design intent).
     d = design

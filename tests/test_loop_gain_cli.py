@@ -40,7 +40,7 @@ def _write_bode(path, num, den, w_rad_s, *, inverted=False, comment=True):
 
 @pytest.mark.parametrize("num, den", [([25.0], [1.0, 10.0, 10.0, 10.0]), ([1.0], [1.0, 2.0, 1.0, 0.0])])
 def test_margins_agree_with_python_control(tmp_path, capsys, num, den):
-    # REFERENCES.md cross-checks [calc]: control.margin(sys) -> (gm ratio, pm deg, w180, wc) in rad/s.
+    # python-control cross-checks [calc]: control.margin(sys) -> (gm ratio, pm deg, w180, wc) in rad/s.
     gm, pm, w180, wc = control.margin(control.tf(num, den))
     w = np.logspace(-2, 2, 801)
     report = _json(capsys, [str(_write_bode(tmp_path / "loop.csv", num, den, w))])
@@ -62,7 +62,7 @@ def test_inverted_data_from_the_file_comment_and_the_option(tmp_path, capsys):
 
 
 def test_fit_recovers_a_flyback_plant_with_its_rhp_zero(tmp_path, capsys):
-    # Flyback CCM Gvd (Erickson & Maksimovic 2nd ed. ch. 7-8, REFERENCES.md worked example):
+    # Flyback CCM Gvd (Erickson & Maksimovic 2nd ed. ch. 7-8, worked example [calc]):
     # Vg 48 V, n 0.25, Lm 200 uH, C 470 uF, R 6 ohm, D 0.5: Gd0 48 V, f0 1038.21 Hz, Q 18.40, RHP zero 38.197 kHz.
     d, n, lm, c, r, v = 0.5, 0.25, 200e-6, 470e-6, 6.0, 12.0
     dp, lp = 1 - d, n * n * lm
@@ -85,7 +85,7 @@ def test_fit_recovers_a_flyback_plant_with_its_rhp_zero(tmp_path, capsys):
 
 
 def test_propose_type2_meets_the_k_factor_worked_example(tmp_path, capsys):
-    # Venable K factor, REFERENCES.md worked example [calc]: type 2 on 10/(1 + s/(2 pi 500)),
+    # Venable K factor, worked example [calc]: type 2 on 10/(1 + s/(2 pi 500)),
     # fc 10 kHz, PM 60 deg: boost 57.14 deg, K = 3.3909, fz 2.949 kHz, fp 33.91 kHz.
     wp = 2 * math.pi * 500.0
     w = 2 * math.pi * np.logspace(1, 6, 501)

@@ -85,7 +85,7 @@ def test_inverted_convention_is_stored_and_margins_are_unchanged(proc, simulated
     assert arr.meta["phase_convention"] == "inverted"
     model = _truth(bench, params, 48.0, 2.5)
     h = arr["re"] + 1j * arr["im"]
-    # The analyzer reported -T (inverting stage's 180 deg, REFERENCES.md convention note, common practice).
+    # The analyzer reported -T (inverting stage's 180 deg; common practice).
     assert np.median(np.abs(h / -model.loop_gain(arr["freq_hz"]) - 1.0)) < 0.02
     pm = _results(benchctl_store, outcome.run_id, "phase_margin_deg").iloc[0]
     assert pm["value"] == pytest.approx(model.loop_truth().phase_margin_deg, abs=2.0)
@@ -95,7 +95,7 @@ def test_inverted_convention_is_stored_and_margins_are_unchanged(proc, simulated
 @pytest.mark.parametrize("injection_v, verdict", [(0.01, "ok"), (3e-4, "too_small"), (0.6, "too_large")])
 def test_injection_check_detects_too_small_and_too_large(proc, simulated_bench, station_for, benchctl_store,
                                                          injection_v, verdict):
-    # Rule of thumb (REFERENCES.md, common practice): an injection small enough that
+    # Rule of thumb (common practice, PRACTICE in benchctl.references): an injection small enough that
     # halving or doubling it changes nothing. Too small: noise moves the margins; too
     # large: the modulator saturates and the gain above crossover is compressed.
     bench = simulated_bench("flyback-48v-5v", time_scale=200.0)

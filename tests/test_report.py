@@ -229,7 +229,7 @@ def test_efficiency_plot_axes_curves_and_limit(points, filled):
     assert "efficiency_min" in limit_text and "≥ 86 %" in limit_text
     limit_lines = [ln for ln in ax.lines if ln.get_label().startswith("limit ")]
     assert np.allclose(limit_lines[0].get_ydata(), 86.0)  # 0.86 stored as a fraction, drawn in %
-    # efficiency = Pout/Pin (common practice; REFERENCES "Definitions"), recomputed here
+    # efficiency = Pout/Pin (common practice), recomputed here
     line = _ascending_line(ax, "48 V")
     expected = [flyback_point(48.0, i, False) for i in (0.5, 1.0, 1.25, 2.0, 2.5, 3.0, 3.75, 4.5, 5.0)]
     assert np.allclose(line.get_xdata(), [p["iout_a"] for p in expected])
