@@ -13,19 +13,15 @@ import argparse
 import os
 import sys
 
-CAUTION = (
-    "CAUTION: a power bench can carry hazardous voltages (above 60 V DC) and stored energy in "
-    "capacitors that stays after the source is off. The interlock is a second line of defence, "
-    "not a substitute for hardware protection, guarding and licensed practice; follow your local "
-    "electrical-safety codes and your lab's rules."
+from benchctl.exit_codes import (  # noqa: F401  (re-exported while commands move to benchctl.exit_codes)
+    EXIT_BAD_INPUT,
+    EXIT_FAILED,
+    EXIT_INSTRUMENT,
+    EXIT_INTERRUPTED,
+    EXIT_NOT_CHECKED,
+    EXIT_OK,
 )
-
-EXIT_OK = 0
-EXIT_FAILED = 1
-EXIT_BAD_INPUT = 2
-EXIT_INSTRUMENT = 3
-EXIT_NOT_CHECKED = 4
-EXIT_INTERRUPTED = 130
+from benchctl.safety import CAUTION
 
 DEFAULT_DB_ENV = "BENCHCTL_DB"
 

@@ -1,7 +1,8 @@
 """Implementations of the ``benchctl`` commands (rich output lives here and only here).
 
 ``dispatch`` maps the project's errors to one clear line on standard error and an exit
-code: bad input 2, instrument/database trouble 3.
+code through :func:`benchctl.exit_codes.exit_code_for_error` (bad input 2,
+instrument/database trouble 3).
 """
 
 from __future__ import annotations
@@ -9,7 +10,6 @@ from __future__ import annotations
 import argparse
 import importlib
 
-from benchctl.cli import EXIT_BAD_INPUT, EXIT_INSTRUMENT
 
 _MODULES = {
     "sim": "benchctl.commands.sim",
@@ -34,7 +34,8 @@ _MODULES = {
 
 def dispatch(args: argparse.Namespace) -> int:
     from benchctl.commands.console import error_console
-    from benchctl.errors import ConfigurationError, InstrumentError, ProcedureError, StoreError, BenchctlError
+    from benchctl.errors import BenchctlError
+    from benchctl.exit_codes import exit_code_for_error
 
     from rich.markup import escape
 
@@ -46,12 +47,6 @@ def dispatch(args: argparse.Namespace) -> int:
     handler = getattr(module, "cmd_" + args.command.replace("-", "_"))
     try:
         return handler(args)
-    except (ConfigurationError, ProcedureError) as exc:
-        report(exc)
-        return EXIT_BAD_INPUT
-    except (InstrumentError, StoreError) as exc:
-        report(exc)
-        return EXIT_INSTRUMENT
     except BenchctlError as exc:
         report(exc)
-        return EXIT_BAD_INPUT
+        return int(exit_code_for_error(exc))

@@ -19,14 +19,14 @@ import numpy as np
 
 import benchctl
 
+from benchctl.run_status import FINAL_STATUSES, RUN_STATUSES, RunStatus
+
 # Run statuses. A run is RUNNING until end_run() or recovery gives it a final one.
-RUNNING = "running"
-COMPLETED = "completed"
-FAILED = "failed"
-TRIPPED = "tripped"
-INTERRUPTED = "interrupted"
-RUN_STATUSES = frozenset({RUNNING, COMPLETED, FAILED, TRIPPED, INTERRUPTED})
-FINAL_STATUSES = RUN_STATUSES - {RUNNING}
+RUNNING = RunStatus.RUNNING
+COMPLETED = RunStatus.COMPLETED
+FAILED = RunStatus.FAILED
+TRIPPED = RunStatus.TRIPPED
+INTERRUPTED = RunStatus.INTERRUPTED
 
 # Event kinds in common use; any short non-empty text is accepted.
 EVENT_INTERLOCK_TRIP = "interlock_trip"
