@@ -13,7 +13,7 @@ from rich.table import Table
 
 from benchctl.cli import EXIT_OK
 from benchctl.commands.stores import open_existing_store as _open
-from benchctl.commands.console import console
+from benchctl.commands.console import Column, console, fitted_table, print_fitted
 from benchctl.commands.summary import print_run_summary
 
 
@@ -33,24 +33,30 @@ def cmd_runs(args: argparse.Namespace) -> int:
         if args.json:
             print(frame.to_json(orient="records", date_format="iso"))
             return EXIT_OK
-        table = Table(title=f"runs in {store.url}")
-        cols = [c for c in ("run_id", "procedure", "station_name", "dut_part", "dut_revision", "dut_serial",
-                            "status", "started_utc", "n_points") if c in frame.columns]
-        for c in cols:
-            table.add_column(c.replace("_", " "))
+        names = [c for c in ("run_id", "procedure", "station", "dut_part", "dut_revision", "dut_serial",
+                             "status", "started_utc", "n_points") if c in frame.columns]
+        keep = {"run_id": 0, "procedure": 0, "status": 0, "started_utc": 1, "n_points": 2, "station": 3,
+                "dut_part": 4, "dut_serial": 5, "dut_revision": 6}
+        rows = []
         for _, r in frame.iterrows():
             cells = []
-            for c in cols:
+            for c in names:
                 v = r[c]
                 if c == "started_utc" and hasattr(v, "strftime"):
                     v = v.strftime("%Y-%m-%d %H:%M:%S")
-                if c == "status":
-                    colour = {"completed": "green", "running": "cyan", "interrupted": "yellow"}.get(str(v), "red")
-                    cells.append(f"[{colour}]{v}[/]")
-                else:
-                    cells.append(escape(str(v)))
-            table.add_row(*cells)
-        console().print(table)
+                cells.append("" if v is None else str(v))
+            rows.append(cells)
+        status_at = names.index("status") if "status" in names else -1
+
+        def colour(i: int, text: str) -> str:
+            if i != status_at:
+                return text
+            return f"[{ {'completed': 'green', 'running': 'cyan', 'interrupted': 'yellow'}.get(text, 'red') }]{text}[/]"
+
+        table, hidden = fitted_table(f"runs in {store.url}", [Column(c.replace("_", " "), keep[c],
+                                     "right" if c in ("run_id", "n_points") else "left") for c in names], rows,
+                                     style=colour)
+        print_fitted(table, hidden)
     return EXIT_OK
 
 

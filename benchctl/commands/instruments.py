@@ -5,11 +5,8 @@ from __future__ import annotations
 import argparse
 import json
 
-from rich.markup import escape
-from rich.table import Table
-
 from benchctl.cli import EXIT_INSTRUMENT, EXIT_OK
-from benchctl.commands.console import console
+from benchctl.commands.console import Column, fitted_table, print_fitted
 from benchctl.errors import BenchctlError
 from benchctl.station import load_station
 
@@ -39,14 +36,17 @@ def cmd_instruments(args: argparse.Namespace) -> int:
     if args.json:
         print(json.dumps({"station": station.name, "instruments": rows, "ok": not bad}, indent=2))
     else:
-        table = Table(title=f"station {station.name}")
-        table.add_column("role", no_wrap=True)
-        table.add_column("driver", overflow="fold")
-        table.add_column("resource", no_wrap=True)
-        table.add_column("identity", overflow="fold")
-        table.add_column("status", overflow="fold")
+        notes = []
+        cells = []
         for r in rows:
-            status = "[green]ok[/]" if r["status"] == "ok" else f"[red]{escape(r['status'])}[/]"
-            table.add_row(r["role"], r["driver"], r["resource"], escape(r["identity"]), status)
-        console().print(table)
+            status = r["status"]
+            if status != "ok":
+                notes.append(f"{len(notes) + 1}. {r['role']}: {status}")
+                status = f"FAILED (note {len(notes)})" if status.startswith("FAILED") else f"errors (note {len(notes)})"
+            cells.append([r["role"], r["driver"], r["resource"], r["identity"], status])
+        table, hidden = fitted_table(
+            f"station {station.name}",
+            [Column("role"), Column("driver", 2), Column("resource", 1), Column("identity", 3), Column("status")],
+            cells, style=lambda i, text: text if i != 4 else ("[green]ok[/]" if text == "ok" else f"[red]{text}[/]"))
+        print_fitted(table, hidden, notes)
     return EXIT_INSTRUMENT if bad else EXIT_OK
