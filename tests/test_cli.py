@@ -47,7 +47,7 @@ def test_demo_then_export_csv(tmp_path, capsys, monkeypatch):
     assert "hazardous voltage" in err  # the flyback's station allows > 60 V: caution shown
     code, out, err = run_cli(["export", "latest", "--db", db, "--format", "csv"], capsys)
     assert code == EXIT_OK
-    frame = pd.read_csv(io.StringIO(out))
+    frame = pd.read_csv(io.StringIO(out), comment="#")  # provenance header lines
     assert len(frame) == 30 and {"vin_v", "iin_a", "pin_w", "vout_v", "iout_a", "pout_w"} <= set(frame.columns)
     code, out, _ = run_cli(["export", "1", "--db", db, "--format", "json"], capsys)
     assert json.loads(out)["units"]["pin_w"] == "W"

@@ -21,7 +21,9 @@ from benchctl.commands.summary import print_run_summary
 
 def _json_default(obj):
     if hasattr(obj, "isoformat"):
-        return obj.isoformat()
+        from benchctl.export_table import iso_utc
+
+        return iso_utc(obj)
     if hasattr(obj, "item"):
         return obj.item()
     return str(obj)
@@ -31,7 +33,9 @@ def cmd_runs(args: argparse.Namespace) -> int:
     with _open(args.db) as store:
         frame = store.runs(status=args.status, procedure=args.procedure, station=args.station_name, limit=args.limit)
         if args.json:
-            print(frame.to_json(orient="records", date_format="iso"))
+            from benchctl.export_table import json_records
+
+            print(json.dumps(json_records(frame)))
             return EXIT_OK
         names = [c for c in ("run_id", "procedure", "station", "dut_part", "dut_revision", "dut_serial",
                              "status", "started_utc", "n_points") if c in frame.columns]
@@ -67,8 +71,10 @@ def cmd_show(args: argparse.Namespace) -> int:
         if args.json:
             payload = asdict(info)
             payload.pop("station_text", None)
-            payload["events"] = json.loads(store.events(run_id).to_json(orient="records", date_format="iso"))
-            payload["results"] = json.loads(store.results(run_id).to_json(orient="records", date_format="iso"))
+            from benchctl.export_table import json_records
+
+            payload["events"] = json_records(store.events(run_id))
+            payload["results"] = json_records(store.results(run_id))
             print(json.dumps(payload, default=_json_default, indent=2))
             return EXIT_OK
         out = console()
@@ -128,16 +134,23 @@ def _array_frame(store, run_id: int, name: str, seq: int | None):
 def cmd_export(args: argparse.Namespace) -> int:
     with _open(args.db) as store:
         run_id = store.resolve_run(args.run)
+        from benchctl.export_table import export_points, points_csv, provenance_lines
+
+        info = store.run(run_id)
         if args.array:
             frame, units = _array_frame(store, run_id, args.array, args.seq)
+            csv_text = "".join(f"# {line}\n" for line in provenance_lines(info)) + frame.to_csv(index=False)
         else:
-            frame = store.points(run_id)
-            units = store.quantity_units(run_id)
+            raw = store.points(run_id)
+            units = {**store.quantity_units(run_id), "efficiency_pct": "%", "loss_w": "W"}
+            frame = export_points(raw)
+            csv_text = points_csv(raw, info)  # column names carry their units (vin_v, pout_w)
         if args.format == "csv":
-            text = frame.to_csv(index=False)  # column names carry their units (vin_v, pout_w)
+            text = csv_text
         else:
-            text = json.dumps({"run_id": run_id, "units": units,
-                               "points": json.loads(frame.to_json(orient="records", date_format="iso"))}, indent=1)
+            records = json.loads(frame.to_json(orient="records"))
+            text = json.dumps({"run_id": run_id, "provenance": provenance_lines(info), "units": units,
+                               "points": records}, indent=1)
         if args.out:
             Path(args.out).write_text(text, encoding="utf-8")
             what = f"{len(frame)} rows of array {args.array!r}" if args.array else f"{len(frame)} points"
