@@ -22,6 +22,22 @@ key, so one edit fixes them all. The format is documented in the README::
     timeout_s = 2.0
     [instruments.source.commands]            # dialect overrides, optional
     set_voltage = "SOUR:VOLT {value:.4f}"
+
+    [instruments.input_meter.accuracy]       # optional: the instrument's specification
+    voltage = { pct_of_reading = 0.05, offset = 0.005 }          # ±(0.05 % of reading + 5 mV)
+    current = [ { range_max = 1.0, pct_of_reading = 0.1, offset = 0.0002 },   # per range: the
+                { range_max = 10.0, pct_of_reading = 0.1, offset = 0.002 } ]  # smallest >= |reading|
+    power = { pct_of_reading = 0.1, offset = 0.002, distribution = "rectangular" }
+
+Accuracy: per measured quantity (``voltage``, ``current``, ``power``: what the driver's
+measure_voltage / measure_current / measure_power return), ``±(pct_of_reading % of
+reading + offset)`` with the offset and ``range_max`` in SI units (V, A, W), one table or
+one per range (ascending ``range_max``). ``distribution`` says how the error is spread
+over that bound: ``"rectangular"`` (the default, u = a/√3), ``"triangular"`` (a/√6) or
+``"normal"`` with ``coverage_factor`` (default 2: the bound is an expanded uncertainty,
+u = a/k); JCGM 100:2008 4.3.3, 4.3.7, 4.3.9. It is stored with the run (the station text)
+and re-read by analysis (:func:`station_accuracy_from_text`) to give every figure its
+uncertainty (:mod:`benchctl.analysis.uncertainty`).
 """
 
 from __future__ import annotations
@@ -34,6 +50,15 @@ from importlib.metadata import entry_points
 from pathlib import Path
 from typing import Any, Mapping
 
+from benchctl.analysis.uncertainty import (
+    DISTRIBUTIONS,
+    MEASURED_QUANTITIES,
+    NORMAL,
+    RECTANGULAR,
+    AccuracyTerm,
+    InstrumentAccuracy,
+    QuantityAccuracy,
+)
 from benchctl.errors import StationFileError
 from benchctl.config_file import read_config_text
 
@@ -98,6 +123,7 @@ class InstrumentConfig:
     timeout_s: float = 2.0
     options: Mapping[str, Any] = field(default_factory=dict)
     commands: Mapping[str, str] = field(default_factory=dict)
+    accuracy: Mapping[str, QuantityAccuracy] = field(default_factory=dict)
 
     def create(self) -> Any:
         """A driver object for this instrument (not yet opened)."""
@@ -123,6 +149,13 @@ class Station:
     path: Path | None = None
     text: str = ""
 
+    @property
+    def accuracy(self) -> dict[str, InstrumentAccuracy]:
+        """The accuracy of every instrument that states one, by role (the resource string
+        identifies the instrument, so two roles of one instrument share their gain errors)."""
+        return {role: InstrumentAccuracy(cfg.resource, dict(cfg.accuracy))
+                for role, cfg in self.instruments.items() if cfg.accuracy}
+
     def require_roles(self, roles: list[str] | tuple[str, ...], *, needed_by: str = "") -> None:
         missing = [r for r in roles if r not in self.instruments]
         if missing:
@@ -135,7 +168,8 @@ class Station:
 
 _LIMIT_KEYS = [f.name for f in fields(StationLimits)]
 _STATION_KEYS = {"name", "description", "watch_period_s", "hazardous_voltage_acknowledged", "database"}
-_INSTRUMENT_KEYS = {"driver", "resource", "timeout_s", "options", "commands"}
+_INSTRUMENT_KEYS = {"driver", "resource", "timeout_s", "options", "commands", "accuracy"}
+_TERM_KEYS = {"pct_of_reading", "offset", "range_max", "distribution", "coverage_factor"}
 
 
 def _positive_number(value: Any) -> bool:
@@ -151,6 +185,113 @@ def _check_resource(resource: str) -> str | None:
     except (rname.InvalidResourceName, ValueError) as exc:
         return str(exc).splitlines()[0]
     return None
+
+
+def _finite_number(value: Any) -> bool:
+    return isinstance(value, (int, float)) and not isinstance(value, bool) and math.isfinite(value)
+
+
+def _parse_term(key: str, item: Any, problems: list[str], *, need_range: bool) -> AccuracyTerm | None:
+    """One ``{ pct_of_reading = .., offset = .., range_max = .., distribution = .. }``."""
+    if not isinstance(item, dict):
+        problems.append(f"{key}: must be a table {{ pct_of_reading = 0.05, offset = 0.005 }}")
+        return None
+    before = len(problems)
+    for extra in sorted(set(item) - _TERM_KEYS):
+        problems.append(f"{key}.{extra}: unknown key; known keys: {', '.join(sorted(_TERM_KEYS))}")
+    pct, offset = item.get("pct_of_reading"), item.get("offset")
+    for name, value in (("pct_of_reading", pct), ("offset", offset)):
+        if value is None:
+            problems.append(f"{key}.{name}: required, a number >= 0 "
+                            + ("(% of reading)" if name == "pct_of_reading" else "(SI unit of the quantity)"))
+        elif not _finite_number(value) or value < 0:
+            problems.append(f"{key}.{name}: {value!r} must be a finite number >= 0")
+    if _finite_number(pct) and pct > 100:
+        problems.append(f"{key}.pct_of_reading: {pct!r} % of reading is not an accuracy; give the percentage "
+                        "(0.05 for 0.05 %)")
+    if _finite_number(pct) and _finite_number(offset) and pct == 0 and offset == 0:
+        problems.append(f"{key}: pct_of_reading and offset are both 0; an instrument without error has no "
+                        "specification to give - leave the quantity out instead")
+    rng = item.get("range_max")
+    if rng is None and need_range:
+        problems.append(f"{key}.range_max: required when a quantity has several ranges (SI unit, > 0)")
+    elif rng is not None and not _positive_number(rng):
+        problems.append(f"{key}.range_max: {rng!r} must be a positive number (SI unit of the quantity)")
+    dist = item.get("distribution", RECTANGULAR)
+    if dist not in DISTRIBUTIONS:
+        problems.append(f"{key}.distribution: {dist!r} must be one of {', '.join(repr(d) for d in DISTRIBUTIONS)}")
+    k = item.get("coverage_factor")
+    if k is not None and dist != NORMAL:
+        problems.append(f"{key}.coverage_factor: only meaningful with distribution = \"normal\" "
+                        f"(the bound is k standard uncertainties)")
+    elif k is not None and (not _positive_number(k) or k > 10):
+        problems.append(f"{key}.coverage_factor: {k!r} must be a number in (0, 10], e.g. 2")
+    if len(problems) > before:
+        return None
+    return AccuracyTerm(pct_of_reading=float(pct), offset=float(offset),
+                        range_max=None if rng is None else float(rng), distribution=dist,
+                        coverage_factor=2.0 if k is None else float(k))
+
+
+def parse_accuracy(key: str, table: Any, problems: list[str]) -> dict[str, QuantityAccuracy]:
+    """Validate one ``[instruments.<role>.accuracy]`` table (``key`` names it in messages);
+    appends every problem to ``problems`` and returns the valid quantities."""
+    if not isinstance(table, dict):
+        problems.append(f"{key}: must be a table of quantity = {{ pct_of_reading = ..., offset = ... }}")
+        return {}
+    out: dict[str, QuantityAccuracy] = {}
+    for quantity, spec in table.items():
+        qkey = f"{key}.{quantity}"
+        if quantity not in MEASURED_QUANTITIES:
+            problems.append(f"{qkey}: unknown quantity; accuracy is given for {', '.join(MEASURED_QUANTITIES)}")
+            continue
+        if isinstance(spec, dict):
+            term = _parse_term(qkey, spec, problems, need_range=False)
+            if term is not None:
+                out[quantity] = QuantityAccuracy((term,))
+            continue
+        if not isinstance(spec, list) or not spec:
+            problems.append(f"{qkey}: must be a table {{ pct_of_reading = ..., offset = ... }} or a non-empty "
+                            "list of them, one per range with range_max")
+            continue
+        terms = [_parse_term(f"{qkey}[{i}]", item, problems, need_range=True) for i, item in enumerate(spec, 1)]
+        if any(t is None for t in terms):
+            continue
+        ranges = [t.range_max for t in terms if t is not None]
+        if any(b <= a for a, b in zip(ranges, ranges[1:])):  # type: ignore[operator]
+            problems.append(f"{qkey}: range_max must increase from one range to the next, got "
+                            f"{', '.join(f'{r:g}' for r in ranges)}")  # type: ignore[str-format]
+            continue
+        out[quantity] = QuantityAccuracy(tuple(t for t in terms if t is not None))
+    return out
+
+
+def station_accuracy_from_text(text: str | None, *, where: str = "stored station text") -> dict[str, InstrumentAccuracy]:
+    """The instruments' accuracy from a station file's text (as stored with a run), by role.
+
+    Only the ``accuracy`` tables are validated, so a run's stored station still gives its
+    accuracy when a driver it named is no longer installed. Empty when there is no text
+    or no accuracy; StationFileError (every problem with its key) when a table is wrong.
+    """
+    if not text:
+        return {}
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise StationFileError(f"{where}: not valid TOML: {exc}") from exc
+    problems: list[str] = []
+    out: dict[str, InstrumentAccuracy] = {}
+    table = data.get("instruments", {})
+    if isinstance(table, dict):
+        for role, spec in table.items():
+            if not isinstance(spec, dict) or "accuracy" not in spec:
+                continue
+            quantities = parse_accuracy(f"instruments.{role}.accuracy", spec["accuracy"], problems)
+            if quantities:
+                out[role] = InstrumentAccuracy(str(spec.get("resource", role)), quantities)
+    if problems:
+        raise StationFileError(f"{where}: {len(problems)} problem(s) in the accuracy tables", problems)
+    return out
 
 
 def parse_station(text: str, *, path: Path | None = None) -> Station:
@@ -231,7 +372,9 @@ def parse_station(text: str, *, path: Path | None = None) -> Station:
         timeout = spec.get("timeout_s", 2.0)
         options = spec.get("options", {})
         commands = spec.get("commands", {})
-        ok = True
+        n_before = len(problems)
+        accuracy = parse_accuracy(f"{key}.accuracy", spec["accuracy"], problems) if "accuracy" in spec else {}
+        ok = len(problems) == n_before
         if not isinstance(driver, str) or not driver:
             problems.append(f"{key}.driver: required, one of {', '.join(driver_names())}")
             ok = False
@@ -277,6 +420,7 @@ def parse_station(text: str, *, path: Path | None = None) -> Station:
                 timeout_s=float(timeout),
                 options=dict(options),
                 commands=dict(commands),
+                accuracy=accuracy,
             )
 
     if problems:
