@@ -10,7 +10,6 @@ problem; 4 a run that could not be checked against its limits; 130 interrupted.
 from __future__ import annotations
 
 import argparse
-import os
 import sys
 
 from benchctl.exit_codes import (  # noqa: F401  (re-exported while commands move to benchctl.exit_codes)
@@ -23,16 +22,13 @@ from benchctl.exit_codes import (  # noqa: F401  (re-exported while commands mov
 )
 from benchctl.safety import CAUTION
 
-DEFAULT_DB_ENV = "BENCHCTL_DB"
-
-
-def default_db() -> str:
-    return os.environ.get(DEFAULT_DB_ENV) or os.path.join("benchctl-data", "benchctl.db")
+from benchctl.locations import DEFAULT_DB_ENV, default_db  # noqa: F401  (re-exported)
 
 
 def _add_db(p: argparse.ArgumentParser) -> None:
     p.add_argument("--db", default=None, metavar="URL",
-                   help=f"database: a SQLite file path or SQLAlchemy URL (default ${DEFAULT_DB_ENV} or ./benchctl-data/benchctl.db)")
+                   help=f"database: a SQLite file path or SQLAlchemy URL (default ${DEFAULT_DB_ENV}, else "
+                        "benchctl.db in the nearest benchctl-data folder here or above, else ./benchctl-data)")
 
 
 def build_parser() -> argparse.ArgumentParser:

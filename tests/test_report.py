@@ -188,8 +188,13 @@ def test_default_out_dir_is_under_benchctl_data(tmp_path, monkeypatch):
                                           station_name="bench-3"))
         store.end_run(run_id, "completed")
         files = build_report(store, "latest")
-    assert default_out_dir(run_id) == Path("benchctl-data") / f"report-run{run_id}"
+    assert default_out_dir(run_id) == tmp_path.resolve() / "benchctl-data" / f"report-run{run_id}"
     assert files.html_path.resolve() == (tmp_path / "benchctl-data" / f"report-run{run_id}" / "report.html").resolve()
+    # From a sub-folder of the project, the same data folder is found (upward, like a repository).
+    sub = tmp_path / "notebooks" / "rev-b"
+    sub.mkdir(parents=True)
+    monkeypatch.chdir(sub)
+    assert default_out_dir(run_id) == tmp_path.resolve() / "benchctl-data" / f"report-run{run_id}"
 
 
 def test_run_without_points_still_reports_so(tmp_path):

@@ -185,7 +185,9 @@ def cmd_demo(args: argparse.Namespace) -> int:
     out.print("[bold]benchctl demo[/]: the efficiency map on a simulated bench (no hardware involved)")
     bench = SimulatedBench(args.model, time_scale=args.time_scale, seed=args.seed).start()
     try:
-        data_dir = Path("benchctl-data")
+        from benchctl.locations import data_dir as find_data_dir
+
+        data_dir = find_data_dir()
         data_dir.mkdir(exist_ok=True)
         station_path = bench.write_station(data_dir / f"sim-{args.model}.toml")
         station = parse_station(station_path.read_text(encoding="utf-8"), path=station_path)

@@ -14,7 +14,9 @@ from benchctl.commands.console import console, error_console, print_caution
 
 
 def default_station_path(model: str) -> Path:
-    return Path("benchctl-data") / f"sim-{model}.toml"
+    from benchctl.locations import data_dir
+
+    return data_dir() / f"sim-{model}.toml"
 
 
 def cmd_sim(args: argparse.Namespace) -> int:

@@ -5,7 +5,15 @@ from __future__ import annotations
 from pathlib import Path
 from typing import Any
 
-from benchctl.cli import default_db
+from benchctl.locations import default_db
+
+
+def _announce(url: str) -> None:
+    """Every command that uses a database says which one (on standard error, password masked)."""
+    from benchctl.commands.console import error_console
+    from benchctl.store.url import mask_secrets
+
+    error_console().print(f"database: {mask_secrets(url)}", style="dim", markup=False, highlight=False)
 
 
 def existing_store_url(url: str) -> str:
@@ -18,10 +26,12 @@ def existing_store_url(url: str) -> str:
 
 
 def open_existing_store(db: str | None) -> Any:
-    """The store at ``db`` (default: $BENCHCTL_DB or ./benchctl-data/benchctl.db), which must exist."""
+    """The store at ``db`` (default: :func:`benchctl.locations.default_db`), which must exist."""
     from benchctl.store import Store
 
-    return Store.open(existing_store_url(db or default_db()))
+    url = existing_store_url(db or default_db())
+    _announce(url)
+    return Store.open(url)
 
 
 def open_store(db: str | None) -> Any:
@@ -31,4 +41,5 @@ def open_store(db: str | None) -> Any:
     url = db or default_db()
     if "://" not in url:
         Path(url).parent.mkdir(parents=True, exist_ok=True)
+    _announce(url)
     return Store.open(url)

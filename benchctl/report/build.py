@@ -33,7 +33,6 @@ from .run_data import RunData, load_run_data
 log = logging.getLogger(__name__)
 
 REPORT_FILE_NAME = "report.html"
-DEFAULT_REPORT_ROOT = Path("benchctl-data")
 
 
 @dataclass(frozen=True)
@@ -48,8 +47,10 @@ class ReportFiles:
 
 
 def default_out_dir(run_id: int) -> Path:
-    """``benchctl-data/report-run<id>`` (relative to the working directory)."""
-    return DEFAULT_REPORT_ROOT / f"report-run{run_id}"
+    """``report-run<id>`` in the data folder (the nearest ``benchctl-data``, see :mod:`benchctl.locations`)."""
+    from benchctl.locations import data_dir
+
+    return data_dir() / f"report-run{run_id}"
 
 
 def figure_png(fig: Figure) -> bytes:
