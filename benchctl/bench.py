@@ -162,6 +162,8 @@ class Bench:
                 self.interlock.raise_if_tripped()
                 self._plan_index = k
                 yield point
+                self._done = k + 1  # progress counts planned points, however many records each makes
+                self._report()
         finally:
             self._plan_index = None
 
@@ -195,7 +197,8 @@ class Bench:
             settle_time_s=None if settle is None else settle.settling_time_s,
         )
         self.points_recorded += 1
-        self._done += 1
+        if self._plan_index is None:  # outside a sweep each record is a step of its own
+            self._done += 1
         self._last_values = dict(values)
         self._report()
         return seq

@@ -23,9 +23,18 @@ from benchctl.commands.summary import print_run_summary
 
 
 class _ProgressView:
-    """A progress bar with points done / total, time left, and the last point."""
+    """A progress bar with points done / total, time left, and the last point.
+
+    On a terminal the bar is redrawn in place; elsewhere (a pipe, a log file) nothing is
+    drawn during the run and one complete line with the planned points done is printed at
+    the end, so the progress never runs into what follows.
+    """
 
     def __init__(self, title: str) -> None:
+        self.title = title
+        self.done = 0
+        self.total = 0
+        self.plain = not console().is_terminal
         self.progress = Progress(
             TextColumn("[bold]{task.description}"), BarColumn(), MofNCompleteColumn(),
             TextColumn("points"), TimeElapsedColumn(), TextColumn("left"), TimeRemainingColumn(),
@@ -39,6 +48,9 @@ class _ProgressView:
         return Group(self.progress, Text(self.last, style="dim", no_wrap=True, overflow="ellipsis"))
 
     def update(self, done: int, total: int, values: Mapping[str, float]) -> None:
+        self.done, self.total = done, total
+        if self.plain:
+            return
         self.progress.update(self.task, completed=done, total=total)
         if values:
             shown = [f"{k}={v:.5g}" for k, v in values.items() if isinstance(v, (int, float))][:10]
@@ -46,11 +58,16 @@ class _ProgressView:
         self.live.update(self._render())
 
     def __enter__(self) -> "_ProgressView":
-        self.live.__enter__()
+        if not self.plain:
+            self.live.__enter__()
         return self
 
     def __exit__(self, *exc: Any) -> None:
-        self.live.__exit__(*exc)
+        if self.plain:
+            console().print(f"{self.title}: {self.done}/{self.total} planned points", markup=False)
+        else:
+            self.live.__exit__(*exc)
+            console().line()
 
 
 def run_procedure(procedure, params, station, store, *, dut, operator: str | None = None, settle: bool = True,
