@@ -10,6 +10,8 @@ A procedure file defines, at module level::
     def plan(p) -> list[dict]:        # every operating point, without touching an instrument
     def run(bench, p) -> None:        # drives the bench; calls bench.record(...) per point
     def analyse(points, p) -> list[Result]   # optional: derived results from the stored points
+    # analyse(points, p, accuracy=...) also receives the station's instrument accuracy by role
+    # (benchctl.analysis.uncertainty.StationAccuracy, re-read from the run's stored station file)
 
 Procedures are found by name in the ``procedures`` package or loaded from any path. The
 parameters are validated (names, types, ranges) before any instrument is opened.
@@ -155,6 +157,8 @@ class Result:
     unit: str = ""
     details: Mapping[str, Any] = field(default_factory=dict)
     scope: Mapping[str, Any] = field(default_factory=dict)
+    uncertainty: float | None = None           # standard uncertainty u, in ``unit`` (JCGM 100:2008 2.3.1)
+    expanded_uncertainty: float | None = None  # U = k·u with k = 2 (JCGM 100:2008 6.2.1)
 
 
 @dataclass(frozen=True)

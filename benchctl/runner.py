@@ -269,13 +269,44 @@ def _shut_down(interlock: Interlock, drivers: Mapping[str, Any], store: Any, run
 def store_results(store: Any, run_id: int, procedure: Procedure, params: Parameters) -> int:
     """Compute the procedure's derived results from the stored points and store them."""
     points = store.points(run_id)
-    results = procedure.analyse(points, params) if procedure.analyse else []
+    results = _call_analyse(procedure, points, params, store, run_id) if procedure.analyse else []
     rows = []
     for r in results:
         value = None if r.value is None or (isinstance(r.value, float) and math.isnan(r.value)) else float(r.value)
         rows.append({"name": r.name, "value": value, "unit": r.unit,
-                     "details": _jsonable(dict(r.details)), "scope": _jsonable(dict(r.scope))})
+                     "details": _jsonable(dict(r.details)), "scope": _jsonable(dict(r.scope)),
+                     "uncertainty": _finite_or_none(getattr(r, "uncertainty", None)),
+                     "expanded_uncertainty": _finite_or_none(getattr(r, "expanded_uncertainty", None))})
     return store.record_results(run_id, rows)
+
+
+def _finite_or_none(value: Any) -> float | None:
+    return None if value is None or not math.isfinite(float(value)) else float(value)
+
+
+def _call_analyse(procedure: Procedure, points: Any, params: Parameters, store: Any, run_id: int) -> list:
+    """``analyse(points, p)``, or ``analyse(points, p, accuracy=...)`` when it takes the instruments'
+    accuracy: read from the station text stored with the run (the provenance), so a re-analysis of
+    an old run uses the accuracy of the station it ran on."""
+    import inspect
+
+    assert procedure.analyse is not None
+    try:
+        takes_accuracy = "accuracy" in inspect.signature(procedure.analyse).parameters
+    except (TypeError, ValueError):
+        takes_accuracy = False
+    if not takes_accuracy:
+        return procedure.analyse(points, params)
+    from benchctl.errors import StationFileError
+    from benchctl.station import station_accuracy_from_text
+
+    try:
+        accuracy = station_accuracy_from_text(store.run(run_id).station_text, where=f"run {run_id}'s station text")
+    except StationFileError as exc:
+        logger.warning("run %s: instrument accuracy not used: %s", run_id, exc)
+        store.record_event(run_id, "warning", f"instrument accuracy not used, results carry no uncertainty: {exc}", {})
+        accuracy = {}
+    return procedure.analyse(points, params, accuracy=accuracy)
 
 
 def _jsonable(obj: Any) -> Any:

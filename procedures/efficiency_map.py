@@ -92,67 +92,184 @@ def run(bench, p: Parameters) -> None:
     source.set_output(False)
 
 
-def analyse(points, p: Parameters) -> list[Result]:
-    """Derived results from the stored points (a pandas DataFrame, one row per point)."""
+#: The instrument (station role) and the measured quantity each recorded value comes from:
+#: the accuracy of that role's quantity in the station file gives the value its type B uncertainty.
+MEASURED_BY = {
+    "vin_v": ("input_meter", "voltage"), "iin_a": ("input_meter", "current"), "pin_w": ("input_meter", "power"),
+    "vout_v": ("output_meter", "voltage"), "iout_a": ("output_meter", "current"), "pout_w": ("output_meter", "power"),
+}
+
+UNCERTAINTY_METHOD = ("JCGM 100:2008 (GUM): type B from the station's instrument accuracy (4.3, rectangular "
+                      "a/sqrt(3) unless stated), type A s/sqrt(N) of the readings (4.2.3), first-order propagation "
+                      "(5.1.2, 5.2.2; the % of reading error of one instrument shared by its readings on one range), "
+                      "U = 2u (6.2.1)")
+
+
+def _readings(points, name: str, accuracy) -> list:
+    """The uncertainty of every point's ``name`` (benchctl.analysis.uncertainty.ReadingUncertainty)."""
     import numpy as np
 
-    from benchctl.analysis.average_efficiency import four_point_average, no_load_power_limit_w
+    from benchctl.analysis.uncertainty import reading_uncertainty, scatter_column
+
+    role, quantity = MEASURED_BY[name]
+    inst = (accuracy or {}).get(role)
+    spec = inst.quantities.get(quantity) if inst is not None else None
+    instrument = inst.instrument if inst is not None else role
+    values = points[name].to_numpy(float)
+    sd_col = scatter_column(name)
+    sds = points[sd_col].to_numpy(float) if sd_col in points.columns else np.full(len(points), np.nan)
+    ns = points["n_readings"].to_numpy(float) if "n_readings" in points.columns else np.ones(len(points))
+    return [reading_uncertainty(v, spec, instrument=instrument if spec is not None else role,
+                                quantity=f"{quantity} ({role})", sd=sd, n_readings=n)
+            for v, sd, n in zip(values, sds, ns)]
+
+
+def _with_u(details: dict, u, flags: tuple[list[str], str]) -> dict:
+    out = dict(details)
+    out["uncertainty_method"] = UNCERTAINTY_METHOD
+    if not u.known:
+        out["uncertainty_note"] = u.note or "uncertainty unknown"
+    if flags[0]:
+        out["flags"] = list(flags[0])
+        out["flag_reasons"] = flags[1]
+    return out
+
+
+def _u_fields(u) -> dict:
+    return {"uncertainty": u.u, "expanded_uncertainty": u.expanded} if u.known else {}
+
+
+def analyse(points, p: Parameters, accuracy=None) -> list[Result]:
+    """Derived results from the stored points (a pandas DataFrame, one row per point).
+
+    ``accuracy`` is the station's instrument accuracy by role (the runner reads it from the
+    station text stored with the run): efficiency, loss, output deviation, line and load
+    regulation, the peak and four-point average efficiency and the no-load input power carry
+    their standard and expanded (k = 2) uncertainty when the accuracy of the meters is known
+    (JCGM 100:2008; :mod:`benchctl.analysis.uncertainty`). Results computed from points that
+    did not settle or whose setpoints were not verified carry ``flags`` ("unsettled",
+    "unverified") and ``flag_reasons`` in their details.
+    """
+    import numpy as np
+
+    from benchctl.analysis.average_efficiency import LOAD_FRACTIONS, four_point_average, no_load_power_limit_w
     from benchctl.analysis.efficiency import efficiency, loss_w, peak_efficiency
+    from benchctl.analysis.quality import merge_flags, point_flags
     from benchctl.analysis.regulation import (
         line_regulation_by_load,
         load_regulation_by_line,
         output_deviation_pct,
     )
+    from benchctl.analysis.uncertainty import (
+        average_efficiency_uncertainty,
+        efficiency_uncertainty,
+        line_regulation_uncertainty,
+        load_regulation_uncertainty,
+        loss_uncertainty,
+        propagate,
+    )
 
     results: list[Result] = []
     if points.empty:
         return results
+    n_pts = len(points)
     eff = efficiency(points["pout_w"], points["pin_w"])
     loss = loss_w(points["pout_w"], points["pin_w"])
     dev = output_deviation_pct(points["vout_v"], p.vout_nom_v)
-    for k, seq in enumerate(points["seq"]):
-        scope = {"seq": int(seq), "vin_set_v": float(points["vin_set_v"].iloc[k]), "iout_set_a": float(points["iout_set_a"].iloc[k])}
-        if np.isfinite(eff[k]) and scope["iout_set_a"] > 0:  # undefined at no load: Pout is ~0 there
-            results.append(Result("efficiency", float(eff[k]), "", scope=scope))
-        results.append(Result("loss_w", float(loss[k]), "W", scope=scope))
-        results.append(Result("vout_deviation_pct", float(dev[k]), "%", scope=scope))
-
+    r_pin, r_pout, r_vout = (_readings(points, n, accuracy) for n in ("pin_w", "pout_w", "vout_v"))
+    settled = points["settled"].tolist() if "settled" in points.columns else [None] * n_pts
+    infos = points["settle_info"].tolist() if "settle_info" in points.columns else [None] * n_pts
+    reasons = points["settle_reason"].tolist() if "settle_reason" in points.columns else [""] * n_pts
+    pflags = [point_flags(settled[k], infos[k], reasons[k]) for k in range(n_pts)]
     vin_set = points["vin_set_v"].to_numpy(float)
     iout_set = points["iout_set_a"].to_numpy(float)
     vout = points["vout_v"].to_numpy(float)
+    labels = [f"{vin_set[k]:g} V, {iout_set[k]:g} A" for k in range(n_pts)]
+
+    def flags_of(idx) -> tuple[list[str], str]:
+        idx = list(idx)
+        return merge_flags([pflags[k] for k in idx], where=[labels[k] for k in idx])
+
+    def u_dev(k: int):
+        return propagate(dev[k], [100.0 / p.vout_nom_v], [r_vout[k]])
+
+    for k, seq in enumerate(points["seq"]):
+        scope = {"seq": int(seq), "vin_set_v": float(vin_set[k]), "iout_set_a": float(iout_set[k])}
+        fl = flags_of([k])
+        if np.isfinite(eff[k]) and scope["iout_set_a"] > 0:  # undefined at no load: Pout is ~0 there
+            u = efficiency_uncertainty(r_pout[k], r_pin[k])
+            results.append(Result("efficiency", float(eff[k]), "", scope=scope, details=_with_u({}, u, fl),
+                                  **_u_fields(u)))
+        u = loss_uncertainty(r_pout[k], r_pin[k])
+        results.append(Result("loss_w", float(loss[k]), "W", scope=scope, details=_with_u({}, u, fl), **_u_fields(u)))
+        u = u_dev(k)
+        results.append(Result("vout_deviation_pct", float(dev[k]), "%", scope=scope, details=_with_u({}, u, fl),
+                              **_u_fields(u)))
+
+    def rows_at(vin: float, iout: float) -> list[int]:
+        return [k for k in range(n_pts) if round(vin_set[k], 4) == round(vin, 4) and round(iout_set[k], 4) == round(iout, 4)]
+
     source_note = "(Vo at Vin,max - Vo at Vin,min)/Vo,nom x 100 at fixed load (common practice)"
     for r in line_regulation_by_load(vin_set, iout_set, vout, p.vout_nom_v):
+        lo, hi = rows_at(r.vin_min_v, r.iout_a), rows_at(r.vin_max_v, r.iout_a)
+        u = line_regulation_uncertainty([r_vout[k] for k in lo], [r_vout[k] for k in hi], p.vout_nom_v)
         results.append(Result("line_regulation_pct", r.line_regulation_pct, "%",
-                              details={**r.__dict__, "definition": source_note}, scope={"iout_set_a": r.iout_a}))
+                              details=_with_u({**r.__dict__, "definition": source_note}, u, flags_of(lo + hi)),
+                              scope={"iout_set_a": r.iout_a}, **_u_fields(u)))
     definition = ("(V_NL - V_FL)/V_FL x 100 (textbook)" if p.load_regulation_convention == "textbook"
                   else "(Vo,min load - Vo,max load)/V_rated x 100 (IEC 61204 style, from memory)")
     for r in load_regulation_by_line(vin_set, iout_set, vout, convention=p.load_regulation_convention,
                                      vout_rated_v=p.vout_nom_v):
+        nl, fl_rows = rows_at(r.vin_v, r.iout_min_a), rows_at(r.vin_v, r.iout_max_a)
+        u = load_regulation_uncertainty([r_vout[k] for k in nl], [r_vout[k] for k in fl_rows],
+                                        convention=p.load_regulation_convention, vout_rated_v=p.vout_nom_v)
         results.append(Result("load_regulation_pct", r.load_regulation_pct, "%",
-                              details={**r.__dict__, "definition": definition}, scope={"vin_set_v": r.vin_v}))
+                              details=_with_u({**r.__dict__, "definition": definition}, u, flags_of(nl + fl_rows)),
+                              scope={"vin_set_v": r.vin_v}, **_u_fields(u)))
     peak = peak_efficiency(vin_set, iout_set, eff)
     if peak is not None:
-        results.append(Result("peak_efficiency", peak.efficiency, "", scope={"vin_set_v": peak.vin_v, "iout_set_a": peak.iout_a}))
-    results.append(Result("max_abs_vout_deviation_pct", float(np.nanmax(np.abs(dev))), "%"))
+        kp = int(np.nanargmax(eff))
+        u = efficiency_uncertainty(r_pout[kp], r_pin[kp])
+        results.append(Result("peak_efficiency", peak.efficiency, "", details=_with_u({}, u, flags_of([kp])),
+                              scope={"vin_set_v": peak.vin_v, "iout_set_a": peak.iout_a}, **_u_fields(u)))
+    kd = int(np.nanargmax(np.abs(dev)))
+    u = u_dev(kd)  # |deviation| has the deviation's uncertainty
+    results.append(Result("max_abs_vout_deviation_pct", float(np.nanmax(np.abs(dev))), "%",
+                          details=_with_u({"vin_set_v": float(vin_set[kd]), "iout_set_a": float(iout_set[kd])}, u,
+                                          flags_of(range(n_pts))),
+                          **_u_fields(u)))
 
+    rel_tol = 0.02  # as four_point_average's default: a load counts within 2 % of rated of its fraction
     for vin in sorted(set(vin_set)):
         sel = vin_set == vin
-        avg = four_point_average(vin, iout_set[sel], eff[sel], iout_rated_a=p.iout_rated_a, vout_nom_v=p.vout_nom_v)
-        results.append(Result(
-            "average_efficiency_4pt", avg.average_efficiency if avg.found else None, "",
-            details={"found": avg.found, "reason": avg.reason, "limit_efficiency": avg.limit_efficiency,
-                     "supply_class": avg.supply_class, "meets_indicative_limit": avg.meets_indicative_limit,
-                     "point_efficiencies": list(avg.point_efficiencies), "note": avg.note,
-                     "source": "10 CFR 430 App. Z average; limit 10 CFR 430.32(w) Level VI (from memory)"},
-            scope={"vin_set_v": float(vin)},
-        ))
-        no_load = sel & (iout_set == 0.0)
-        if no_load.any():
+        avg = four_point_average(vin, iout_set[sel], eff[sel], iout_rated_a=p.iout_rated_a, vout_nom_v=p.vout_nom_v,
+                                 rel_tol=rel_tol)
+        details = {"found": avg.found, "reason": avg.reason, "limit_efficiency": avg.limit_efficiency,
+                   "supply_class": avg.supply_class, "meets_indicative_limit": avg.meets_indicative_limit,
+                   "point_efficiencies": list(avg.point_efficiencies), "note": avg.note,
+                   "source": "10 CFR 430 App. Z average; limit 10 CFR 430.32(w) Level VI (from memory)"}
+        fields: dict = {}
+        if avg.found:
+            groups, used = [], []
+            for frac in LOAD_FRACTIONS:
+                idx = [k for k in np.flatnonzero(sel)
+                       if abs(iout_set[k] - frac * p.iout_rated_a) <= rel_tol * p.iout_rated_a and np.isfinite(eff[k])]
+                groups.append([(r_pout[k], r_pin[k]) for k in idx])
+                used += idx
+            u = average_efficiency_uncertainty(groups)
+            details = _with_u(details, u, flags_of(used))
+            fields = _u_fields(u)
+        results.append(Result("average_efficiency_4pt", avg.average_efficiency if avg.found else None, "",
+                              details=details, scope={"vin_set_v": float(vin)}, **fields))
+        no_load = [int(k) for k in np.flatnonzero(sel & (iout_set == 0.0))]
+        if no_load:
             pin0 = float(points["pin_w"].to_numpy(float)[no_load].mean())
+            u = propagate(pin0, [1.0 / len(no_load)] * len(no_load), [r_pin[k] for k in no_load])
             results.append(Result(
                 "no_load_input_power_w", pin0, "W",
-                details={"indicative_limit_w": no_load_power_limit_w(p.vout_nom_v * p.iout_rated_a),
-                         "note": "indicative only: Level VI no-load limit for external supplies (from memory)"},
-                scope={"vin_set_v": float(vin)},
+                details=_with_u({"indicative_limit_w": no_load_power_limit_w(p.vout_nom_v * p.iout_rated_a),
+                                 "note": "indicative only: Level VI no-load limit for external supplies (from memory)"},
+                                u, flags_of(no_load)),
+                scope={"vin_set_v": float(vin)}, **_u_fields(u),
             ))
     return results
