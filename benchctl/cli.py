@@ -54,7 +54,9 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--fault", action="append", default=[], metavar="SPEC",
                    help="inject a fault for a dry run (repeatable): KIND[@ROLE][:after=N|on=TEXT|at=T|random=SEED"
                         "][,for=S], e.g. drop@source:after=40,for=0 or feedback_open:at=3.5; kinds: unresponsive, "
-                        "drop, garble, scpi_error, reset, feedback_open, output_short, overheat, input_sag")
+                        "drop, garble, scpi_error, reset, feedback_open, output_short, overheat, input_sag; "
+                        "after=N counts the instrument's messages, at=T the model clock in model seconds from "
+                        "the moment `benchctl sim` started (not from a run's start; --time-scale speeds it up)")
 
     p = sub.add_parser("instruments", help="connect to every instrument of a station and identify it")
     p.add_argument("--station", required=True, metavar="FILE", help="station file (TOML)")
