@@ -75,8 +75,9 @@ def test_import_copies_everything_and_twice_changes_nothing(tmp_path, store_url)
         assert report.runs[2].source_run_id == running and "still running" in report.runs[2].reason
         for copy in report.runs[:2]:
             a, b = source.run(copy.source_run_id), shared.run(copy.target_run_id)
-            # the whole provenance arrives (only the database-local id differs)
-            assert dataclasses.replace(b, run_id=a.run_id) == a
+            # the whole provenance arrives (only the database-local ids differ: run and job)
+            assert dataclasses.replace(b, run_id=a.run_id, job_id=a.job_id) == a
+            assert b.job_id is not None  # the job travels with its runs (by job_uuid)
             pd.testing.assert_frame_equal(shared.points(b.run_id), source.points(a.run_id))
             assert shared.quantity_units(b.run_id) == source.quantity_units(a.run_id)
             cols = ["t_utc", "kind", "message", "details", "point_seq"]

@@ -17,13 +17,6 @@ from benchctl.commands.stores import open_store
 _SEVERITY = [EXIT_INTERRUPTED, EXIT_FAILED, EXIT_NOT_CHECKED, EXIT_BAD_INPUT, EXIT_OK]
 
 
-def next_job_id(store) -> int:
-    runs = store.runs()
-    if runs.empty or "job_id" not in runs.columns or runs["job_id"].isna().all():
-        return 1
-    return int(runs["job_id"].max()) + 1
-
-
 def cmd_job(args: argparse.Namespace) -> int:
     from benchctl.job import estimate_duration, load_job
     from benchctl.limits import load_limits
@@ -57,7 +50,7 @@ def cmd_job(args: argparse.Namespace) -> int:
             console().print(f"job {job.name!r}: {len(prepared)} step(s); estimated total "
                             + ("unknown for some steps; known part " if unknown else "") + f"{total:.0f} s")
             return EXIT_OK
-        job_id = next_job_id(store)
+        job_id = store.begin_job(job.name, station.name)  # the database assigns it: unique across stations
         dut = DutInfo(job.dut_part, job.dut_revision, job.dut_serial)
         rows = []
         for n, (step, procedure, params) in enumerate(prepared, 1):

@@ -7,6 +7,16 @@ events, results and arrays. It keeps its ``run_uuid``; it gets a new ``run_id`` 
 target, and an event of kind ``copied`` recording where it came from (the source's URL
 with any password masked, and its run id there).
 
+The run's job travels with it by ``job_uuid``: the target's job of that UUID is used, or
+the job row is created there with an id the target assigns, so job ids of two stations
+never collide in the shared database. (A run whose job has no row in the source - a job id
+assigned by hand - gets a UUID derived from the source store's creation time and that id,
+RFC 4122 version 5, so its runs stay together however often they are copied.)
+
+Copies never carry a password: the station text and event texts are masked again on the
+way (:func:`benchctl.store.url.mask_secrets`), which also cleans runs stored by older
+versions whose masking missed passwords holding ``/`` or ``#``.
+
 Idempotent: a run whose ``run_uuid`` the target already holds is not copied again
 (reported as ``already present``; as ``conflict`` if the stored copy differs in status
 or number of points). Each run is copied in one transaction of the target, so an
@@ -18,6 +28,7 @@ from __future__ import annotations
 
 import logging
 import socket
+import uuid
 from collections.abc import Callable
 from contextlib import AbstractContextManager
 from dataclasses import dataclass
@@ -30,8 +41,9 @@ from sqlalchemy.exc import IntegrityError
 from benchctl.errors import StoreError
 
 from . import schema as s
-from .codec import to_json
+from .codec import from_json, to_json
 from .records import RUNNING
+from .url import mask_secrets
 
 log = logging.getLogger(__name__)
 
@@ -86,6 +98,7 @@ class _RunRows:
     run: dict[str, Any]
     station: dict[str, Any]
     dut: dict[str, Any] | None
+    job: dict[str, Any] | None
     instruments: list[dict[str, Any]]
     quantities: list[dict[str, Any]]
     points: list[dict[str, Any]]
@@ -115,6 +128,7 @@ def read_run_rows(conn: Connection, run_id: int) -> _RunRows:
         run=run,
         station=station,
         dut=dut,
+        job=_job_row(conn, run["job_id"]),
         instruments=_dicts(conn, select(s.instruments).where(s.instruments.c.run_id == run_id).order_by(s.instruments.c.id)),
         quantities=_dicts(conn, select(s.quantities).where(s.quantities.c.run_id == run_id).order_by(s.quantities.c.id)),
         points=_dicts(conn, select(s.points).where(s.points.c.run_id == run_id).order_by(s.points.c.seq)),
@@ -135,6 +149,55 @@ def read_run_rows(conn: Connection, run_id: int) -> _RunRows:
             .order_by(s.array_columns.c.array_id, s.array_columns.c.position),
         ),
     )
+
+
+#: Namespace of the UUIDs given to jobs that have no row of their own (uuid5, RFC 4122 §4.3).
+_JOB_NAMESPACE = uuid.UUID("5d0f4f0e-8a51-4c1e-9c43-6a1f3b2f8e71")
+
+
+def _job_row(conn: Connection, job_id: int | None) -> dict[str, Any] | None:
+    """The jobs row of ``job_id`` in the source (one made up, with a stable UUID, if it has none)."""
+    if job_id is None:
+        return None
+    rows = _dicts(conn, select(s.jobs).where(s.jobs.c.id == int(job_id)))
+    if rows:
+        return rows[0]
+    created = conn.execute(select(s.meta.c.created_utc_s).where(s.meta.c.id == 1)).scalar()
+    started = conn.execute(select(func.min(s.runs.c.started_utc_s)).where(s.runs.c.job_id == int(job_id))).scalar()
+    return {"id": int(job_id), "job_uuid": str(uuid.uuid5(_JOB_NAMESPACE, f"{created!r}/{int(job_id)}")),
+            "name": "", "station_name": "", "host": "", "started_utc_s": float(started or 0.0)}
+
+
+def _target_job_id(conn: Connection, job: dict[str, Any]) -> int:
+    """The target's id of the job with ``job["job_uuid"]``, the row created there if it is new."""
+    t = s.jobs
+    found = conn.execute(select(t.c.id).where(t.c.job_uuid == job["job_uuid"])).scalar()
+    if found is not None:
+        return int(found)
+    values = {k: job[k] for k in ("job_uuid", "name", "station_name", "host", "started_utc_s")}
+    return int(conn.execute(insert(t).values(**values)).inserted_primary_key[0])
+
+
+def _masked_json(text: str | None) -> str | None:
+    """A JSON text with every string in it masked (parsed and written again, so it stays JSON)."""
+    if not text:
+        return text
+
+    def walk(value: Any) -> Any:
+        if isinstance(value, str):
+            return mask_secrets(value)
+        if isinstance(value, list):
+            return [walk(v) for v in value]
+        if isinstance(value, dict):
+            return {mask_secrets(str(k)): walk(v) for k, v in value.items()}
+        return value
+
+    try:
+        value = from_json(text)
+    except ValueError:  # not JSON after all: mask it as text
+        return mask_secrets(text)
+    masked = walk(value)
+    return text if masked == value else to_json("event details", masked)
 
 
 def source_run_ids(conn: Connection) -> list[int]:
@@ -162,6 +225,8 @@ def _station_id(conn: Connection, station: dict[str, Any]) -> int:
     if row is not None:
         return int(row.id)
     values = {k: station[k] for k in ("name", "description", "station_text", "station_sha256")}
+    if values["station_text"] is not None:
+        values["station_text"] = mask_secrets(values["station_text"])
     return int(conn.execute(insert(t).values(**values)).inserted_primary_key[0])
 
 
@@ -183,7 +248,8 @@ def write_run_rows(conn: Connection, rows: _RunRows, *, note: dict[str, Any], no
     station_id = _station_id(conn, rows.station)
     dut_id = _dut_id(conn, rows.dut) if rows.dut is not None else None
     run_values = {k: v for k, v in rows.run.items() if k != "id"}
-    run_values.update(station_id=station_id, dut_id=dut_id)
+    run_values.update(station_id=station_id, dut_id=dut_id,
+                      job_id=_target_job_id(conn, rows.job) if rows.job is not None else None)
     run_id = int(conn.execute(insert(s.runs).values(**run_values)).inserted_primary_key[0])
     if rows.instruments:
         conn.execute(
@@ -204,7 +270,9 @@ def write_run_rows(conn: Connection, rows: _RunRows, *, note: dict[str, Any], no
             insert(s.point_values),
             [{**v, "run_id": run_id, "quantity_id": quantity_ids[int(v["quantity_id"])]} for v in rows.values],
         )
-    events = [{**{k: v for k, v in e.items() if k != "id"}, "run_id": run_id} for e in rows.events]
+    events = [{**{k: v for k, v in e.items() if k != "id"}, "run_id": run_id,
+               "message": mask_secrets(e["message"] or ""), "details_json": _masked_json(e["details_json"])}
+              for e in rows.events]
     events.append(
         {
             "run_id": run_id,
@@ -233,6 +301,14 @@ def write_run_rows(conn: Connection, rows: _RunRows, *, note: dict[str, Any], no
     return run_id
 
 
+def running_refusal(run_id: int, host: str, pid: int, wait_advice: str, db: str | None = None) -> str:
+    """Why a run still marked ``running`` is refused, and the command that ends that state."""
+    where = f" --db {db}" if db else ""
+    return (f"run {run_id} is still running according to the store (host {host or '?'}, pid {pid}): it may still gain points; "
+            f"{wait_advice}. If its process is gone (another host, a renamed machine, a removed container), "
+            f"mark it interrupted with `benchctl mark-interrupted {run_id}{where}`")
+
+
 def copy_runs(
     read: Callable[[Callable[..., Any]], Any],
     write: Callable[[str], AbstractContextManager[Connection]],
@@ -255,8 +331,8 @@ def copy_runs(
         if not run_uuid:
             raise StoreError(f"run {source_id} of {source_url} has no run_uuid; upgrade that store first")
         if rows.run["status"] == RUNNING and not include_running:
-            report.append(RunCopy(source_id, run_uuid, SKIPPED, None, n_points,
-                                  "the run is still running (it may gain points); copy it when it has ended"))
+            report.append(RunCopy(source_id, run_uuid, SKIPPED, None, n_points, running_refusal(
+                source_id, rows.run["host"], rows.run["pid"], "copy it when it has ended", source_url)))
             continue
         report.append(_copy_one(write, rows, source_id, run_uuid, n_points, source_url, clock))
     result = CopyReport(source_url=source_url, target_url=target_url, runs=tuple(report))
