@@ -237,116 +237,24 @@ def _design(
     capacitor_series: str,
     grid_freq_hz: ArrayLike | None,
 ) -> CompensatorDesign:
+    """Venable's K-factor design: plant at fc -> boost -> K -> parts -> rounding -> checks."""
     where = f"design_type{kind}"
-    if not (isinstance(fc, (int, float)) and math.isfinite(fc) and fc > 0.0):
-        raise AnalysisInputError(f"{where}: crossover_hz must be a finite value > 0, got {fc!r}")
-    if not (isinstance(pm_deg, (int, float)) and 0.0 < pm_deg < 180.0):
-        raise AnalysisInputError(
-            f"{where}: phase_margin_deg must lie in (0, 180) deg, got {pm_deg!r}; 45..70 is usual"
-        )
-    if not (isinstance(r1, (int, float)) and math.isfinite(r1) and r1 > 0.0):
-        raise AnalysisInputError(f"{where}: r1_ohm must be a finite value > 0, got {r1!r}")
-    series_values(resistor_series)
-    series_values(capacitor_series)
-
+    _check_inputs(where, fc, pm_deg, r1, fsw_hz, rhp_zero_hz, resistor_series, capacitor_series)
     evaluate, grid, rhp_from_fit = _plant_access(plant, fc, grid_freq_hz, where)
     gain_fc, phase_fc = _plant_at(evaluate, plant, fc)
-    warnings: list[str] = []
 
     boost_required = pm_deg - phase_fc - 90.0
-    limit = 90.0 if kind == 2 else 180.0
-    boost = boost_required
-    if boost_required >= limit:
-        boost = limit - _BOOST_INSET_DEG
-        warnings.append(
-            f"required boost {boost_required:.1f} deg is impossible for a type {kind} "
-            f"(< {limit:.0f} deg): designed for {boost:.1f} deg, so the phase margin target "
-            f"is not met; {'use a type 3, ' if kind == 2 else ''}lower fc or the target PM"
-        )
-    elif boost_required <= 0.0:
-        boost = _BOOST_INSET_DEG
-        warnings.append(
-            f"required boost {boost_required:.1f} deg is <= 0: the plant already gives the "
-            f"target phase margin at fc; designed for a minimal {boost:.1f} deg boost "
-            "(a type 1 integrator would also do)"
-        )
-
-    g = 1.0 / gain_fc
-    if kind == 2:
-        k = math.tan(math.radians(boost / 2.0 + 45.0))
-        c2 = 1.0 / (2.0 * math.pi * fc * g * k * r1)
-        c1 = c2 * (k * k - 1.0)
-        r2 = k / (2.0 * math.pi * fc * c1)
-        ideal = CompensatorParts(kind=2, r1_ohm=r1, r2_ohm=r2, c1_f=c1, c2_f=c2)
-        zero_hz, pole_hz = fc / k, fc * k
-        rounded = CompensatorParts(
-            kind=2,
-            r1_ohm=r1,
-            r2_ohm=nearest_preferred(r2, resistor_series),
-            c1_f=nearest_preferred(c1, capacitor_series),
-            c2_f=nearest_preferred(c2, capacitor_series),
-        )
-    else:
-        k = math.tan(math.radians(boost / 4.0 + 45.0)) ** 2
-        sk = math.sqrt(k)
-        c2 = 1.0 / (2.0 * math.pi * fc * g * r1)
-        c1 = c2 * (k - 1.0)
-        r2 = sk / (2.0 * math.pi * fc * c1)
-        r3 = r1 / (k - 1.0)
-        c3 = 1.0 / (2.0 * math.pi * fc * sk * r3)
-        ideal = CompensatorParts(kind=3, r1_ohm=r1, r2_ohm=r2, c1_f=c1, c2_f=c2, r3_ohm=r3, c3_f=c3)
-        zero_hz, pole_hz = fc / sk, fc * sk
-        rounded = CompensatorParts(
-            kind=3,
-            r1_ohm=r1,
-            r2_ohm=nearest_preferred(r2, resistor_series),
-            c1_f=nearest_preferred(c1, capacitor_series),
-            c2_f=nearest_preferred(c2, capacitor_series),
-            r3_ohm=nearest_preferred(r3, resistor_series),
-            c3_f=nearest_preferred(c3, capacitor_series),
-        )
+    boost, warnings = _feasible_boost(kind, boost_required)
+    k, ideal, zero_hz, pole_hz = _ideal_parts(kind, boost, fc, 1.0 / gain_fc, r1)
+    rounded = _rounded_parts(ideal, resistor_series, capacitor_series)
 
     plant_grid = evaluate(grid)
     predicted_ideal = loop_margins(grid, compensator_response(grid, ideal) * plant_grid)
     predicted_rounded = loop_margins(grid, compensator_response(grid, rounded) * plant_grid)
 
-    if fsw_hz is not None:
-        if not (math.isfinite(fsw_hz) and fsw_hz > 0.0):
-            raise AnalysisInputError(f"{where}: fsw_hz must be a finite value > 0, got {fsw_hz!r}")
-        if fc > fsw_hz / 5.0:
-            warnings.append(
-                f"fc {fc:g} Hz is above fsw/5 = {fsw_hz / 5.0:g} Hz: the averaged plant model is "
-                "unreliable there; fc <= fsw/5..fsw/10 is common practice"
-            )
-    rhp_candidates = list(rhp_from_fit)
-    if rhp_zero_hz is not None:
-        if not (math.isfinite(rhp_zero_hz) and rhp_zero_hz > 0.0):
-            raise AnalysisInputError(
-                f"{where}: rhp_zero_hz must be a finite value > 0, got {rhp_zero_hz!r}"
-            )
-        rhp_candidates.append(rhp_zero_hz)
-    if rhp_candidates:
-        f_rhp = min(rhp_candidates)
-        if fc > f_rhp / 3.0:
-            warnings.append(
-                f"fc {fc:g} Hz is above f_RHPz/3 = {f_rhp / 3.0:g} Hz (RHP zero at {f_rhp:g} Hz): "
-                "its phase lag makes the margin fragile; fc <= f_RHPz/3..f_RHPz/5 is common practice"
-            )
-    pm_r = predicted_rounded.worst_phase_margin
-    if isinstance(pm_r, NotFound):
-        warnings.append(f"with rounded parts: {pm_r.reason}")
-    elif abs(pm_r.phase_margin_deg - pm_deg) > _PM_TOLERANCE_DEG:
-        cause = (
-            "because the boost was limited (see above)"
-            if boost != boost_required
-            else "from rounding; try a finer series"
-        )
-        warnings.append(
-            f"with rounded parts the phase margin is {pm_r.phase_margin_deg:.1f} deg at "
-            f"{pm_r.freq_hz:g} Hz, more than {_PM_TOLERANCE_DEG:g} deg from the {pm_deg:g} deg "
-            f"target, {cause}"
-        )
-    warnings.extend(_practical_range(rounded))
+    warnings += _rule_of_thumb_warnings(fc, fsw_hz, [*rhp_from_fit, *([rhp_zero_hz] if rhp_zero_hz else [])])
+    warnings += _rounding_warnings(predicted_rounded, pm_deg, limited=boost != boost_required)
+    warnings += _practical_range(rounded)
     for w in warnings:
         logger.debug("%s: %s", where, w)
 
@@ -367,6 +275,110 @@ def _design(
         predicted_rounded=predicted_rounded,
         warnings=tuple(warnings),
     )
+
+
+def _check_inputs(where: str, fc: float, pm_deg: float, r1: float, fsw_hz: float | None,
+                  rhp_zero_hz: float | None, resistor_series: str, capacitor_series: str) -> None:
+    """Refuse a design request that cannot mean anything (AnalysisInputError naming the argument)."""
+    if not (isinstance(fc, (int, float)) and math.isfinite(fc) and fc > 0.0):
+        raise AnalysisInputError(f"{where}: crossover_hz must be a finite value > 0, got {fc!r}")
+    if not (isinstance(pm_deg, (int, float)) and 0.0 < pm_deg < 180.0):
+        raise AnalysisInputError(
+            f"{where}: phase_margin_deg must lie in (0, 180) deg, got {pm_deg!r}; 45..70 is usual"
+        )
+    if not (isinstance(r1, (int, float)) and math.isfinite(r1) and r1 > 0.0):
+        raise AnalysisInputError(f"{where}: r1_ohm must be a finite value > 0, got {r1!r}")
+    if fsw_hz is not None and not (math.isfinite(fsw_hz) and fsw_hz > 0.0):
+        raise AnalysisInputError(f"{where}: fsw_hz must be a finite value > 0, got {fsw_hz!r}")
+    if rhp_zero_hz is not None and not (math.isfinite(rhp_zero_hz) and rhp_zero_hz > 0.0):
+        raise AnalysisInputError(f"{where}: rhp_zero_hz must be a finite value > 0, got {rhp_zero_hz!r}")
+    series_values(resistor_series)
+    series_values(capacitor_series)
+
+
+def _feasible_boost(kind: int, boost_required: float) -> tuple[float, list[str]]:
+    """The boost a type 2 (< 90 deg) or type 3 (< 180 deg) can give, with a warning when limited."""
+    limit = 90.0 if kind == 2 else 180.0
+    if boost_required >= limit:
+        boost = limit - _BOOST_INSET_DEG
+        return boost, [
+            f"required boost {boost_required:.1f} deg is impossible for a type {kind} "
+            f"(< {limit:.0f} deg): designed for {boost:.1f} deg, so the phase margin target "
+            f"is not met; {'use a type 3, ' if kind == 2 else ''}lower fc or the target PM"
+        ]
+    if boost_required <= 0.0:
+        boost = _BOOST_INSET_DEG
+        return boost, [
+            f"required boost {boost_required:.1f} deg is <= 0: the plant already gives the "
+            f"target phase margin at fc; designed for a minimal {boost:.1f} deg boost "
+            "(a type 1 integrator would also do)"
+        ]
+    return boost_required, []
+
+
+def _ideal_parts(kind: int, boost: float, fc: float, g: float, r1: float
+                 ) -> tuple[float, CompensatorParts, float, float]:
+    """(K, ideal parts, zero Hz, pole Hz) by Venable's formulas for the gain ``g`` needed at fc."""
+    if kind == 2:
+        k = math.tan(math.radians(boost / 2.0 + 45.0))
+        c2 = 1.0 / (2.0 * math.pi * fc * g * k * r1)
+        c1 = c2 * (k * k - 1.0)
+        r2 = k / (2.0 * math.pi * fc * c1)
+        return k, CompensatorParts(kind=2, r1_ohm=r1, r2_ohm=r2, c1_f=c1, c2_f=c2), fc / k, fc * k
+    k = math.tan(math.radians(boost / 4.0 + 45.0)) ** 2
+    sk = math.sqrt(k)
+    c2 = 1.0 / (2.0 * math.pi * fc * g * r1)
+    c1 = c2 * (k - 1.0)
+    r2 = sk / (2.0 * math.pi * fc * c1)
+    r3 = r1 / (k - 1.0)
+    c3 = 1.0 / (2.0 * math.pi * fc * sk * r3)
+    parts = CompensatorParts(kind=3, r1_ohm=r1, r2_ohm=r2, c1_f=c1, c2_f=c2, r3_ohm=r3, c3_f=c3)
+    return k, parts, fc / sk, fc * sk
+
+
+def _rounded_parts(ideal: CompensatorParts, resistor_series: str, capacitor_series: str) -> CompensatorParts:
+    """The ideal parts rounded to the nearest preferred values (IEC 60063); R1 is kept as chosen."""
+    def r(value: float | None) -> float | None:
+        return None if value is None else nearest_preferred(value, resistor_series)
+
+    def c(value: float | None) -> float | None:
+        return None if value is None else nearest_preferred(value, capacitor_series)
+
+    return CompensatorParts(kind=ideal.kind, r1_ohm=ideal.r1_ohm, r2_ohm=r(ideal.r2_ohm), c1_f=c(ideal.c1_f),
+                            c2_f=c(ideal.c2_f), r3_ohm=r(ideal.r3_ohm), c3_f=c(ideal.c3_f))
+
+
+def _rule_of_thumb_warnings(fc: float, fsw_hz: float | None, rhp_zeros_hz: list[float]) -> list[str]:
+    """fc <= fsw/5 and fc <= f_RHPz/3 (common practice)."""
+    warnings = []
+    if fsw_hz is not None and fc > fsw_hz / 5.0:
+        warnings.append(
+            f"fc {fc:g} Hz is above fsw/5 = {fsw_hz / 5.0:g} Hz: the averaged plant model is "
+            "unreliable there; fc <= fsw/5..fsw/10 is common practice"
+        )
+    if rhp_zeros_hz:
+        f_rhp = min(rhp_zeros_hz)
+        if fc > f_rhp / 3.0:
+            warnings.append(
+                f"fc {fc:g} Hz is above f_RHPz/3 = {f_rhp / 3.0:g} Hz (RHP zero at {f_rhp:g} Hz): "
+                "its phase lag makes the margin fragile; fc <= f_RHPz/3..f_RHPz/5 is common practice"
+            )
+    return warnings
+
+
+def _rounding_warnings(predicted_rounded: LoopMargins, pm_deg: float, *, limited: bool) -> list[str]:
+    """A warning when the rounded parts miss the target phase margin by more than the tolerance."""
+    pm_r = predicted_rounded.worst_phase_margin
+    if isinstance(pm_r, NotFound):
+        return [f"with rounded parts: {pm_r.reason}"]
+    if abs(pm_r.phase_margin_deg - pm_deg) > _PM_TOLERANCE_DEG:
+        cause = "because the boost was limited (see above)" if limited else "from rounding; try a finer series"
+        return [
+            f"with rounded parts the phase margin is {pm_r.phase_margin_deg:.1f} deg at "
+            f"{pm_r.freq_hz:g} Hz, more than {_PM_TOLERANCE_DEG:g} deg from the {pm_deg:g} deg "
+            f"target, {cause}"
+        ]
+    return []
 
 
 def _plant_access(
