@@ -23,8 +23,15 @@ Mapping of outcomes, chosen by what the schema's elements mean:
 * not checked (required) -> ``<error type="not_checked">``: the check could not be
   carried out because data are missing, a problem to look at, not a deliberate skip
   (``<skipped>`` means "not run on purpose", and CI servers show skipped as green);
-* advisory limits (``required = false``): a failure becomes ``<system-out>`` text on a
-  passing test case, a not-checked one ``<skipped>``;
+* borderline (required; guarded acceptance, a value within its U of a bound) ->
+  ``<error type="limit_borderline">``, and suspect (required; a value that would pass
+  but comes from an unsettled or unverified point or a flagged result) ->
+  ``<error type="limit_suspect">``: the assertion could be neither shown true nor
+  false, so it is not a ``<failure>`` (the data do not show a violation) and not a
+  pass; the build goes red as for an error, and the check exits 4 (not decided), the
+  same as for a limit that could not be checked; the values are listed in the text;
+* advisory limits (``required = false``): a failure, borderline or suspect becomes
+  ``<system-out>`` text on a passing test case, a not-checked one ``<skipped>``;
 * a run whose status is not ``completed`` adds one test case ``run completed`` with
   ``<error type="run_not_completed">``, so the XML alone tells that the run's points
   do not cover the envelope (the check's exit code says the same, 4).
@@ -42,7 +49,7 @@ from datetime import datetime, timezone
 from pathlib import Path
 
 from benchctl.errors import ConfigurationError
-from benchctl.limits import COMPLETED_STATUS, FAIL, NOT_CHECKED, CheckReport, LimitOutcome
+from benchctl.limits import BORDERLINE, COMPLETED_STATUS, FAIL, NOT_CHECKED, SUSPECT, CheckReport, LimitOutcome
 
 log = logging.getLogger(__name__)
 
@@ -50,10 +57,11 @@ log = logging.getLogger(__name__)
 MAX_LISTED_VALUES = 50
 
 
-def _fmt(value: float | None, unit: str = "") -> str:
+def _fmt(value: float | None, unit: str = "", u: float | None = None) -> str:
     if value is None:
         return "none"
-    return f"{value:.6g}" + (f" {unit}" if unit else "")
+    text = f"{value:.6g}" + (f" ± {u:.3g}" if u is not None else "")
+    return text + (f" {unit}" if unit else "")
 
 
 def _scope_text(scope: dict) -> str:
@@ -64,9 +72,12 @@ def outcome_message(outcome: LimitOutcome) -> str:
     """One line: status, worst value, margin to the limit and where it was found."""
     lim = outcome.limit
     spec = lim.bounds_text(outcome.unit)
-    if outcome.passed is None:
+    if outcome.status == NOT_CHECKED:
         return f"{lim.quantity} {spec} [{outcome.where}]: not checked: {outcome.reason}"
-    text = (f"{lim.quantity} {spec} [{outcome.where}]: worst {_fmt(outcome.worst_value, outcome.unit)} "
+    label = {BORDERLINE: "borderline: ", SUSPECT: "suspect: "}.get(outcome.status, "")
+    rule = " (guarded acceptance)" if lim.decision == "guarded" else ""
+    text = (f"{label}{lim.quantity} {spec}{rule} [{outcome.where}]: worst "
+            f"{_fmt(outcome.worst_value, outcome.unit, outcome.uncertainty)} "
             f"at {_scope_text(dict(outcome.worst_scope))}")
     if outcome.margin is not None:
         text += f", margin {_fmt(outcome.margin, outcome.unit)}"
@@ -75,16 +86,20 @@ def outcome_message(outcome: LimitOutcome) -> str:
     return f"{text}; {outcome.reason}"
 
 
-def _failure_text(outcome: LimitOutcome) -> str:
+def _failure_text(outcome: LimitOutcome, items=None) -> str:
+    items = outcome.failing if items is None else items
     lines = []
-    for item in outcome.failing[:MAX_LISTED_VALUES]:
+    for item in items[:MAX_LISTED_VALUES]:
         if item.value is None:
             lines.append(f"absent at {_scope_text(dict(item.scope))}: {item.note}")
         else:
-            lines.append(f"{_fmt(item.value, outcome.unit)} at {_scope_text(dict(item.scope))}, "
-                         f"margin {_fmt(item.margin, outcome.unit)}")
-    if len(outcome.failing) > MAX_LISTED_VALUES:
-        lines.append(f"... and {len(outcome.failing) - MAX_LISTED_VALUES} more")
+            line = (f"{_fmt(item.value, outcome.unit, item.uncertainty)} at {_scope_text(dict(item.scope))}, "
+                    f"margin {_fmt(item.margin, outcome.unit)}")
+            if item.status != FAIL:
+                line = f"{item.status}: {line}"
+            lines.append(line + (f": {item.note}" if item.note else ""))
+    if len(items) > MAX_LISTED_VALUES:
+        lines.append(f"... and {len(items) - MAX_LISTED_VALUES} more")
     return "\n".join(lines)
 
 
@@ -113,12 +128,18 @@ def junit_element(report: CheckReport) -> ET.Element:
         elif status == NOT_CHECKED and required:
             errors += 1
             ET.SubElement(case, "error", {"message": message, "type": "not_checked"})
+        elif status in (BORDERLINE, SUSPECT) and required:
+            errors += 1
+            el = ET.SubElement(case, "error", {"message": message, "type": f"limit_{status}"})
+            el.text = _failure_text(outcome, outcome.doubtful)
         elif status == NOT_CHECKED:
             skipped += 1
             ET.SubElement(case, "skipped", {"message": "advisory limit " + message})
         else:
             out = ET.SubElement(case, "system-out")
-            out.text = ("advisory limit not met: " if status == FAIL else "") + message
+            prefix = {FAIL: "advisory limit not met: ", BORDERLINE: "advisory limit borderline: ",
+                      SUSPECT: "advisory limit on suspect data: "}.get(status, "")
+            out.text = prefix + message
         cases.append(case)
     if run.status != COMPLETED_STATUS:
         errors += 1

@@ -1,13 +1,15 @@
 """``benchctl check RUN --limits FILE``: a stored run against spec limits.
 
-Prints a table (limit, where, worst value, margin, PASS/FAIL/NOT CHECKED), optionally
+Prints a table (limit, where, worst value ± U, margin, PASS/FAIL/BORDERLINE/SUSPECT/NOT
+CHECKED; the verdicts are explained in :mod:`benchctl.limits`), optionally
 writes JUnit XML (:mod:`benchctl.junit`) and JSON, and stores the outcome with the run:
 an event ``limit_check`` with the summary and one result ``limit:<limit name>`` per
 limit (value = worst value, details = the outcome, scope = where the worst value is).
 Each check adds new records; a report shows the latest (highest result id).
 Exit code: 0 every required limit passed on a completed run, 1 a required limit
-failed, 4 a required limit could not be checked or the run is not completed (the
-rule is in :mod:`benchctl.limits`), 2 a bad limits file or option.
+failed, 4 a required limit could not be checked or decided (borderline within U under
+guarded acceptance, or suspect data) or the run is not completed (the rule is in
+:mod:`benchctl.limits`), 2 a bad limits file or option.
 """
 
 from __future__ import annotations
@@ -27,8 +29,11 @@ from benchctl.commands.stores import open_existing_store
 from benchctl.errors import ConfigurationError
 from benchctl.junit import write_junit
 from benchctl.limits import (
+    BORDERLINE,
     FAIL,
+    GUARDED,
     PASS,
+    SUSPECT,
     CheckReport,
     LimitOutcome,
     RunContext,
@@ -95,10 +100,10 @@ def record_check(store: Store, report: CheckReport) -> None:
         )
 
 
-def _fmt(value: float | None, unit: str) -> str:
+def _fmt(value: float | None, unit: str, u: float | None = None) -> str:
     if value is None:
         return "—"
-    return f"{value:.5g}" + (f" {unit}" if unit else "")
+    return f"{value:.5g}" + (f" ± {u:.2g}" if u is not None else "") + (f" {unit}" if unit else "")
 
 
 def _status_cell(outcome: LimitOutcome) -> str:
@@ -107,6 +112,10 @@ def _status_cell(outcome: LimitOutcome) -> str:
         return "[bold green]PASS[/]" + advisory
     if outcome.status == FAIL:
         return ("[bold red]FAIL[/]" if outcome.limit.required else "[magenta]FAIL[/]") + advisory
+    if outcome.status == BORDERLINE:
+        return "[bold dark_orange]BORDERLINE[/]" + advisory
+    if outcome.status == SUSPECT:
+        return "[bold magenta]SUSPECT[/]" + advisory
     return "[bold yellow]NOT CHECKED[/]" + advisory
 
 
@@ -123,8 +132,10 @@ def report_table(report: CheckReport) -> Table:
         if o.margin_rel is not None:
             margin += f" ({100 * o.margin_rel:+.3g} %)"
         note = o.reason if o.status != PASS else f"{o.n_values} value(s)"
-        table.add_row(escape(o.limit.name), escape(o.where), escape(o.limit.bounds_text(o.unit)),
-                      escape(_fmt(o.worst_value, o.unit)), escape(margin), _status_cell(o), escape(note))
+        bounds = o.limit.bounds_text(o.unit) + (" (guarded)" if o.limit.decision == GUARDED else "")
+        table.add_row(escape(o.limit.name), escape(o.where), escape(bounds),
+                      escape(_fmt(o.worst_value, o.unit, o.uncertainty)), escape(margin), _status_cell(o),
+                      escape(note))
     return table
 
 
@@ -134,6 +145,9 @@ def print_report(report: CheckReport) -> None:
     out = console()
     out.print(report_table(report))
     colour = "green" if report.passed else "red" if report.count(FAIL) else "yellow"
+    if report.count(BORDERLINE) or report.count(SUSPECT):
+        out.print("borderline: within U (k = 2) of a bound under guarded acceptance; suspect: would pass but taken "
+                  "from an unsettled or unverified point or a flagged result. Neither is a pass (exit code 4).")
     out.print(f"[bold {colour}]{escape(report.summary)}[/]")
     if report.not_applicable:
         out.print(f"limits for other procedures, not evaluated: {escape(', '.join(report.not_applicable))}")

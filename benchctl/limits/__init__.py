@@ -34,6 +34,7 @@ order), so one edit fixes them all. The format::
     required = true                  # false: advisory, shown but never fails the check
     missing = "fail"                 # what a value that is absent (NaN) does: "fail" | "ignore"
     source = "result"                # "result" | "point"; default: result if one exists
+    decision = "guarded"             # "simple" (default) | "guarded": how uncertainty counts
 
 Values. ``quantity`` names a derived result (``store.results``) when the run has a
 result of that name, else a column of the run's points (``store.points``); ``source``
@@ -66,17 +67,46 @@ the limit when ``missing = "fail"``, the default for results, and is skipped whe
 quantities at different points). A limit with no value left to check is *not checked*,
 with the reason.
 
+Decision rules (``decision``), after ILAC-G8:09/2019 section 4.2 (clause numbers from
+memory). Results may carry an expanded uncertainty U (k = 2, JCGM 100:2008 6.2; column
+``expanded_uncertainty`` of ``store.results``):
+
+* ``"simple"`` (the default): simple acceptance, 4.2.1 - the value alone decides, inside
+  (margin >= 0) passes. Values within U of a bound are mentioned in the reason only.
+* ``"guarded"``: guarded acceptance with a guard band w = U, 4.2.2 / 4.2.3 - a value
+  passes only when the whole interval value ± U is inside (margin >= U), fails when the
+  whole interval is outside (margin < -U), and is **borderline** otherwise: proven
+  neither inside nor outside (4.2.3's "conditional" pass and fail, in one word of ours).
+  A value without a stored U cannot be judged this way: the limit is *not checked*,
+  with the reason. Point columns carry no U; use the matching result for them.
+
+Verdicts of a limit, the most severe value deciding: ``fail`` (a value fails, or an absent
+value with ``missing = "fail"``) > ``not_checked`` > ``borderline`` > ``suspect`` >
+``pass``. A value is **suspect** when it would pass but was measured at a point that did
+not settle or whose setpoints were not verified (``settled`` false, ``settle_info``), or
+its result carries a quality flag (``details["flags"]``: clipped, outside_band,
+beyond_standard_range ...): such a value never passes silently. A ``lower_bound`` above
+a max, or an ``upper_bound`` below a min, is a definite fail; any other bound is
+suspect. A quantity that does not exist there (flag ``not_exist``; e.g. no phase
+crossover, so no gain margin) is not a missing value: when its result says it is
+unbounded (``details["unbounded"] = "above" | "below"``) it is compared as +inf / -inf
+(an unbounded gain margin meets any minimum); otherwise it is left out and counted.
+
 Exit code of a check (``benchctl check``), in this order:
 
 1. ``EXIT_FAILED`` (1) when a required limit failed - the measured data violate the
    spec, whatever else is missing;
-2. ``EXIT_NOT_CHECKED`` (4) when a required limit could not be checked, the run's
-   status is not ``completed`` (running, interrupted, tripped, failed: its points are
-   not the whole envelope), or no limit of the file applies to the run's procedure;
+2. ``EXIT_NOT_CHECKED`` (4) when a required limit could not be checked **or decided**
+   (borderline or suspect: conformance is not shown, so 0 would be wrong, and violation
+   is not shown, so 1 would be wrong), the run's status is not ``completed`` (running,
+   interrupted, tripped, failed: its points are not the whole envelope), or no limit of
+   the file applies to the run's procedure;
 3. ``EXIT_OK`` (0) otherwise.
 
-Advisory limits (``required = false``) and limits for other procedures never change it.
-The method is common practice for spec-limit checks; no published standard is followed.
+So 0 means proven conformance under each limit's own rule; reading a borderline as a
+fail gives ILAC-G8's binary guarded rule (4.2.2), reading it as a pass would be simple
+acceptance. Advisory limits (``required = false``) and limits for other procedures never
+change it. The evaluation of margins is common practice for spec-limit checks.
 """
 
 from __future__ import annotations
@@ -84,8 +114,14 @@ from __future__ import annotations
 from .evaluate import check_limits, evaluate_limit, exit_code_for
 from .outcomes import CheckedValue, CheckReport, LimitOutcome, RunContext, RunData
 from .spec import (
+    BORDERLINE,
     COMPLETED_STATUS,
+    DECISIONS,
     FAIL,
+    GUARDED,
+    SIMPLE,
+    STATUSES,
+    SUSPECT,
     LOAD_PCT,
     NOT_CHECKED,
     PASS,
@@ -100,6 +136,7 @@ from .spec import (
 )
 
 __all__ = [
+    "BORDERLINE", "DECISIONS", "GUARDED", "SIMPLE", "STATUSES", "SUSPECT",
     "COMPLETED_STATUS", "FAIL", "LOAD_PCT", "NOT_CHECKED", "PASS", "RATED_CURRENT_PARAMETER", "SOURCE_POINT",
     "SOURCE_RESULT", "CheckReport", "CheckedValue", "Filter", "LimitOutcome", "LimitSpec", "LimitsFile", "RunContext",
     "RunData", "check_limits", "evaluate_limit", "exit_code_for", "load_limits", "parse_limits",

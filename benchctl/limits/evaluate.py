@@ -11,13 +11,14 @@ from typing import Any
 
 import numpy as np
 
+from benchctl.analysis.quality import LOWER_BOUND, NOT_EXIST, UPPER_BOUND, point_flags, result_flags
 from benchctl.cli import EXIT_FAILED, EXIT_NOT_CHECKED, EXIT_OK
 from benchctl.units import unit_from_name
 
 from .outcomes import CheckedValue, CheckReport, LimitOutcome, RunData
 from .spec import (
-    COMPLETED_STATUS, FAIL, FILTER_ABS_TOL, FILTER_REL_TOL, LOAD_PCT, NOT_CHECKED, PASS, RATED_CURRENT_PARAMETER,
-    SOURCE_POINT, SOURCE_RESULT, Filter, LimitsFile, LimitSpec, _num,
+    BORDERLINE, COMPLETED_STATUS, FAIL, FILTER_ABS_TOL, FILTER_REL_TOL, GUARDED, LOAD_PCT, NOT_CHECKED, PASS,
+    RATED_CURRENT_PARAMETER, SOURCE_POINT, SOURCE_RESULT, SUSPECT, Filter, LimitsFile, LimitSpec, _num,
 )
 
 log = logging.getLogger(__name__)
@@ -26,10 +27,26 @@ log = logging.getLogger(__name__)
 # ---------------------------------------------------------------- evaluation
 @dataclass(frozen=True)
 class _Row:
-    value: float          # NaN when absent
+    value: float          # NaN when absent; +/-inf for a quantity that does not exist and is unbounded
     scope: Mapping[str, Any]
     lookup: Mapping[str, Any]   # every key a filter may use
     note: str = ""
+    expanded_u: float = math.nan   # U (k = 2) of the value, NaN when none is stored
+    flags: tuple[str, ...] = ()    # quality flags of the result and of the point it was measured at
+    flag_reasons: str = ""
+    not_exist: bool = False
+
+
+def _point_quality(point: Mapping[str, Any] | None) -> tuple[tuple[str, ...], str]:
+    if not point:
+        return (), ""
+    return point_flags(point.get("settled"), point.get("settle_info"), point.get("settle_reason"))
+
+
+def _merged(a: tuple[tuple[str, ...], str], b: tuple[tuple[str, ...], str]) -> tuple[tuple[str, ...], str]:
+    flags = tuple(dict.fromkeys(a[0] + b[0]))
+    reasons = "; ".join(dict.fromkeys(r for r in (a[1], b[1]) if r))
+    return flags, reasons
 
 
 def _plain(value: Any) -> Any:
@@ -64,17 +81,30 @@ def _result_rows(data: RunData, quantity: str) -> tuple[list[_Row], str]:
         scope = r.get("scope") if isinstance(r.get("scope"), Mapping) else {}
         details = r.get("details")
         lookup: dict[str, Any] = {}
+        point = None
         seq = scope.get("seq")
+        if seq is None and isinstance(details, Mapping):
+            seq = details.get("seq")  # results that name their point in details (the loop-gain margins)
         if isinstance(seq, (int, float)) and not isinstance(seq, bool) and int(seq) in by_seq:
-            lookup.update(by_seq[int(seq)])
+            point = by_seq[int(seq)]
+            lookup.update(point)
         lookup.update(scope)
         value = _as_float(r.get("value"))
+        flags, reasons = _merged(result_flags(details), _point_quality(point))
+        not_exist = NOT_EXIST in flags
         note = ""
-        if math.isnan(value):
+        if math.isnan(value) and not_exist:
+            unbounded = details.get("unbounded") if isinstance(details, Mapping) else None
+            if unbounded in ("above", "below"):
+                value = math.inf if unbounded == "above" else -math.inf
+            note = f"does not exist ({reasons or 'not_exist'})" + (f"; unbounded {unbounded}" if unbounded else "")
+        elif math.isnan(value):
             note = "result stored without a value"
             if isinstance(details, Mapping) and details.get("reason"):
                 note += f": {details['reason']}"
-        rows.append(_Row(value, {k: _plain(v) for k, v in scope.items()}, lookup, note))
+        rows.append(_Row(value, {k: _plain(v) for k, v in scope.items()}, lookup, note,
+                         expanded_u=_as_float(r.get("expanded_uncertainty")),
+                         flags=tuple(f for f in flags if f != NOT_EXIST), flag_reasons=reasons, not_exist=not_exist))
     return rows, units[0] if units else ""
 
 
@@ -91,7 +121,9 @@ def _point_rows(data: RunData, quantity: str) -> tuple[list[_Row], str]:
             if "_set_" in col or col == "tag":
                 scope[col] = _plain(v)
         value = _as_float(rec.get(quantity))
-        rows.append(_Row(value, scope, rec, "not measured at this point" if math.isnan(value) else ""))
+        flags, reasons = _point_quality(rec)
+        rows.append(_Row(value, scope, rec, "not measured at this point" if math.isnan(value) else "",
+                         flags=flags, flag_reasons=reasons))
     return rows, data.units.get(quantity, "")
 
 
@@ -236,25 +268,45 @@ def evaluate_limit(spec: LimitSpec, data: RunData) -> LimitOutcome:
         rows = kept
 
     missing_mode = spec.missing or ("fail" if source == SOURCE_RESULT else "ignore")
-    finite = [r for r in rows if math.isfinite(r.value)]
-    absent = [r for r in rows if not math.isfinite(r.value)]
+    nonexistent = [r for r in rows if r.not_exist and not math.isinf(r.value)]  # no direction: not a value
+    rows = [r for r in rows if r not in nonexistent]
+    finite = [r for r in rows if not math.isnan(r.value)]
+    absent = [r for r in rows if math.isnan(r.value)]
     if not finite and (missing_mode == "ignore" or not absent):
+        if nonexistent:
+            return _not_checked(spec, where, f"{spec.quantity} does not exist at any of the {len(nonexistent)} "
+                                             f"matching value(s) ({nonexistent[0].note}), so there is nothing to "
+                                             "compare with the limit", unit=unit, source=source)
         return _not_checked(spec, where, f"all {len(rows)} matching {spec.quantity} value(s) are absent "
                                          f"({absent[0].note if absent else 'no values'})",
                             unit=unit, source=source, n_missing=len(absent))
 
     failing: list[CheckedValue] = []
-    worst: tuple[float, str, float, _Row] | None = None
+    doubtful: list[CheckedValue] = []
+    # The worst value decides the verdict: the most severe status first, then the smallest
+    # margin (less U under guarded acceptance).
+    worst: tuple[int, float, float, str, float, _Row] | None = None
+    counts = {PASS: 0, FAIL: 0, BORDERLINE: 0, SUSPECT: 0, NOT_CHECKED: 0}
+    within_u_simple = 0
     for r in rows:
-        if not math.isfinite(r.value):
+        if math.isnan(r.value):
             if missing_mode == "fail":
                 failing.append(CheckedValue(None, None, r.scope, r.note))
             continue
-        m, bname, bvalue = _margin(spec, r.value)
-        if worst is None or m < worst[0]:
-            worst = (m, bname, bvalue, r)
-        if m < 0:
-            failing.append(CheckedValue(r.value, m, r.scope))
+        status, m, bname, bvalue, note = _judge(spec, r)
+        counts[status] += 1
+        u = r.expanded_u if math.isfinite(r.expanded_u) else None
+        deciding = m - u if (spec.decision == GUARDED and u is not None and math.isfinite(m)) else m
+        key = (_SEVERITY.index(status), deciding)
+        if worst is None or key < worst[:2]:
+            worst = (key[0], deciding, m, bname, bvalue, r)
+        if spec.decision != GUARDED and u is not None and math.isfinite(m) and abs(m) < u:
+            within_u_simple += 1
+        item = CheckedValue(r.value, m, r.scope, note, status=status, uncertainty=u, flags=r.flags)
+        if status == FAIL:
+            failing.append(item)
+        elif status != PASS:
+            doubtful.append(item)
 
     n_missing = len(absent)
     missing_fail = missing_mode == "fail" and n_missing > 0
@@ -262,27 +314,108 @@ def evaluate_limit(spec: LimitSpec, data: RunData) -> LimitOutcome:
         return LimitOutcome(
             limit=spec, where=where, n_values=0, worst_value=None, worst_scope=dict(absent[0].scope), margin=None,
             passed=False, reason=f"all {n_missing} matching value(s) absent ({absent[0].note})",
-            unit=unit, source=source, n_missing=n_missing, failing=tuple(failing),
+            unit=unit, source=source, n_missing=n_missing, failing=tuple(failing), verdict=FAIL,
+            n_not_exist=len(nonexistent),
         )
-    m, bname, bvalue, wrow = worst
-    rel = None if bvalue == 0 else m / abs(bvalue)
-    passed = m >= 0 and not missing_fail
+    _, _, m, bname, bvalue, wrow = worst
+    rel = None if bvalue == 0 or not math.isfinite(m) else m / abs(bvalue)
+    u_txt = f" {unit}" if unit else ""
+    if counts[FAIL] or missing_fail:
+        verdict = FAIL
+    elif counts[NOT_CHECKED]:
+        verdict = NOT_CHECKED
+    elif counts[BORDERLINE]:
+        verdict = BORDERLINE
+    elif counts[SUSPECT]:
+        verdict = SUSPECT
+    else:
+        verdict = PASS
     reasons = []
-    n_out = sum(1 for f in failing if f.value is not None)
-    if n_out:
+    if counts[FAIL]:
         side = "below min" if bname == "min" else "above max"
-        reasons.append(f"{n_out} of {len(finite)} value(s) outside the limit; worst {_num(wrow.value)} "
-                       f"{side} {_num(bvalue)} by {_num(-m)}{' ' + unit if unit else ''}")
+        wnote = next((f.note for f in failing if f.value is not None and f.scope == wrow.scope and f.note), "")
+        reasons.append(f"{counts[FAIL]} of {len(finite)} value(s) outside the limit"
+                       + (" by more than their U" if spec.decision == GUARDED else "")
+                       + f"; worst {_num(wrow.value)} {side} {_num(bvalue)} by {_num(-m)}{u_txt}"
+                       + (f" ({wnote})" if wnote else ""))
     if missing_fail:
         reasons.append(f"{n_missing} matching value(s) absent ({absent[0].note})")
-    if passed:
-        reasons.append(f"{len(finite)} value(s) within the limit"
-                       + (f"; {n_missing} absent value(s) ignored" if n_missing else ""))
+    if counts[NOT_CHECKED]:
+        reasons.append(f"{counts[NOT_CHECKED]} value(s) have no stored uncertainty, so guarded acceptance cannot "
+                       "be applied to them: give the instruments' accuracy in the station file, or use "
+                       "decision = \"simple\"")
+    if counts[BORDERLINE]:
+        first = next(d for d in doubtful if d.status == BORDERLINE)
+        reasons.append(f"{counts[BORDERLINE]} value(s) borderline: within their expanded uncertainty U of a bound, "
+                       f"so neither proven inside nor outside (guarded acceptance, ILAC-G8:09/2019 4.2.3); "
+                       f"e.g. {first.note}")
+    if counts[SUSPECT]:
+        first = next(d for d in doubtful if d.status == SUSPECT)
+        reasons.append(f"{counts[SUSPECT]} value(s) suspect: inside the limit but {first.note}; re-measure them")
+    if nonexistent:
+        reasons.append(f"{len(nonexistent)} value(s) do not exist and are not compared ({nonexistent[0].note})")
+    n_inf = sum(1 for r in finite if math.isinf(r.value))
+    if n_inf:
+        reasons.append(f"{n_inf} value(s) do not exist and are unbounded, compared as such")
+    if verdict == PASS:
+        text = f"{len(finite)} value(s) within the limit"
+        if spec.decision == GUARDED:
+            text += " with their expanded uncertainty (guarded acceptance)"
+        reasons.insert(0, text + (f"; {n_missing} absent value(s) ignored" if n_missing else ""))
+    if within_u_simple:
+        reasons.append(f"simple acceptance: {within_u_simple} value(s) lie within their expanded uncertainty of a "
+                       "bound (the value alone decides)")
+    passed = True if verdict == PASS else False if verdict == FAIL else None
     return LimitOutcome(
         limit=spec, where=where, n_values=len(finite), worst_value=wrow.value, worst_scope=dict(wrow.scope),
         margin=m, passed=passed, reason="; ".join(reasons), unit=unit, source=source,
         bound=bname, bound_value=bvalue, margin_rel=rel, n_missing=n_missing, failing=tuple(failing),
+        verdict=verdict, uncertainty=wrow.expanded_u if math.isfinite(wrow.expanded_u) else None,
+        doubtful=tuple(doubtful), n_not_exist=len(nonexistent) + n_inf,
     )
+
+
+_SEVERITY = (FAIL, NOT_CHECKED, BORDERLINE, SUSPECT, PASS)
+
+
+def _judge(spec: LimitSpec, row: _Row) -> tuple[str, float, str, float, str]:
+    """One value's verdict: (status, margin, bound name, bound value, note).
+
+    Simple acceptance (ILAC-G8:09/2019 4.2.1): inside (margin >= 0) passes. Guarded
+    acceptance (4.2.2/4.2.3, guard band w = U): margin >= U passes, margin < -U fails,
+    anything between is borderline (the interval value ± U touches or crosses the bound);
+    no stored U: not checked. A flagged value never passes: a lower bound above a max (an
+    upper bound below a min) is a definite fail, any other flagged value that is not
+    failing is suspect.
+    """
+    m, bname, bvalue = _margin(spec, row.value)
+    guarded = spec.decision == GUARDED
+    u = row.expanded_u
+    if guarded and not math.isinf(row.value):
+        if not math.isfinite(u):
+            status, note = NOT_CHECKED, "no uncertainty stored"
+        elif m >= u:
+            status, note = PASS, ""
+        elif m < -u:
+            status, note = FAIL, f"outside by more than U = {_num(u)}"
+        else:
+            status = BORDERLINE
+            note = f"{_num(row.value)} ± {_num(u)} (U, k = 2) reaches {bname} {_num(bvalue)}"
+    else:
+        status, note = (PASS if m >= 0 else FAIL), ""
+    if not row.flags:
+        return status, m, bname, bvalue, note
+    g = u if guarded and math.isfinite(u) else 0.0
+    why = ", ".join(row.flags) + (f" ({row.flag_reasons})" if row.flag_reasons else "")
+    if LOWER_BOUND in row.flags or UPPER_BOUND in row.flags:
+        if LOWER_BOUND in row.flags and spec.maximum is not None and row.value - g > spec.maximum:
+            return FAIL, m, "max", spec.maximum, f"a lower bound above the max: {why}"
+        if UPPER_BOUND in row.flags and spec.minimum is not None and row.value + g < spec.minimum:
+            return FAIL, m, "min", spec.minimum, f"an upper bound below the min: {why}"
+        return SUSPECT, m, bname, bvalue, f"only a bound is known: {why}"
+    if status == FAIL:
+        return FAIL, m, bname, bvalue, (note + "; " if note else "") + f"flagged {why}"
+    return SUSPECT, m, bname, bvalue, f"flagged {why}"
 
 
 def exit_code_for(outcomes: Sequence[LimitOutcome], run_status: str) -> int:
@@ -306,9 +439,14 @@ def check_limits(limits: LimitsFile, data: RunData, *, checked_utc: datetime | N
     n_pass = sum(o.status == PASS for o in outcomes)
     n_fail = sum(o.status == FAIL for o in outcomes)
     n_nc = sum(o.status == NOT_CHECKED for o in outcomes)
-    verdict = {EXIT_OK: "PASSED", EXIT_FAILED: "FAILED", EXIT_NOT_CHECKED: "NOT CHECKED"}[code]
-    summary = (f"run {data.context.run_id} {verdict}: {n_pass} passed, {n_fail} failed, {n_nc} not checked"
-               f" of {len(outcomes)} limit(s)")
+    n_bl = sum(o.status == BORDERLINE for o in outcomes)
+    n_sus = sum(o.status == SUSPECT for o in outcomes)
+    undecided = any(o.limit.required and o.status in (BORDERLINE, SUSPECT) for o in outcomes)
+    verdict = {EXIT_OK: "PASSED", EXIT_FAILED: "FAILED",
+               EXIT_NOT_CHECKED: "NOT DECIDED" if undecided else "NOT CHECKED"}[code]
+    summary = (f"run {data.context.run_id} {verdict}: {n_pass} passed, {n_fail} failed"
+               + (f", {n_bl} borderline" if n_bl else "") + (f", {n_sus} suspect" if n_sus else "")
+               + f", {n_nc} not checked of {len(outcomes)} limit(s)")
     if skipped:
         summary += f"; {len(skipped)} limit(s) for other procedures"
     if not outcomes:

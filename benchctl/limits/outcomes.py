@@ -9,7 +9,7 @@ from typing import Any
 
 import pandas as pd
 
-from .spec import FAIL, NOT_CHECKED, PASS, RATED_CURRENT_PARAMETER, LimitSpec, _is_number
+from .spec import BORDERLINE, FAIL, NOT_CHECKED, PASS, RATED_CURRENT_PARAMETER, SUSPECT, LimitSpec, _is_number
 
 
 # ---------------------------------------------------------------- the run's data
@@ -58,24 +58,42 @@ class RunData:
 # ---------------------------------------------------------------- outcomes
 @dataclass(frozen=True)
 class CheckedValue:
-    """One value that failed a limit (``value`` None: absent, ``note`` says why)."""
+    """One value that did not pass a limit (``value`` None: absent, ``note`` says why).
+
+    ``status`` is that value's own verdict (``fail``, ``borderline``, ``suspect``, or
+    ``not_checked`` when a guarded rule found no uncertainty); ``uncertainty`` its
+    expanded uncertainty U (k = 2) when stored; ``flags`` the quality flags it carries.
+    """
 
     value: float | None
     margin: float | None
     scope: Mapping[str, Any]
     note: str = ""
+    status: str = FAIL
+    uncertainty: float | None = None
+    flags: tuple[str, ...] = ()
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"value": self.value, "margin": self.margin, "scope": dict(self.scope), "note": self.note,
+                "status": self.status, "uncertainty": self.uncertainty, "flags": list(self.flags)}
 
 
 @dataclass(frozen=True)
 class LimitOutcome:
     """The outcome of one limit on one run.
 
-    ``passed`` is True, False, or None when not checked (``reason`` says why).
+    ``passed`` is True (every value passes), False (a value fails) or None when the limit
+    is not decided: not checked, borderline or suspect (``verdict`` says which, ``reason``
+    why).
     ``margin`` is the worst value's signed distance to its nearest bound in ``unit``
     (>= 0 inside); ``margin_rel`` = margin / |bound| (None when the bound is 0).
     ``bound`` names the bound the margin is taken to (``"min"``/``"max"``).
     ``n_values`` counts the finite values checked, ``n_missing`` the absent ones
-    among the matching values. ``failing`` lists the values outside, in stored order.
+    among the matching values. ``failing`` lists the values outside, in stored order;
+    ``doubtful`` the values that are borderline, suspect or lack the uncertainty a guarded
+    rule needs. ``uncertainty`` is the worst value's expanded uncertainty U (k = 2), None
+    when not stored. ``n_not_exist`` counts values of a quantity that does not exist there
+    (``not_exist`` flag; counted as unbounded when the result says which way).
     """
 
     limit: LimitSpec
@@ -93,11 +111,22 @@ class LimitOutcome:
     margin_rel: float | None = None
     n_missing: int = 0
     failing: tuple[CheckedValue, ...] = ()
+    verdict: str = ""
+    uncertainty: float | None = None
+    doubtful: tuple[CheckedValue, ...] = ()
+    n_not_exist: int = 0
 
     @property
     def status(self) -> str:
-        """``pass``, ``fail`` or ``not_checked``."""
+        """``pass``, ``fail``, ``borderline``, ``suspect`` or ``not_checked``."""
+        if self.verdict:
+            return self.verdict
         return NOT_CHECKED if self.passed is None else PASS if self.passed else FAIL
+
+    @property
+    def decided(self) -> bool:
+        """True when the limit passed or failed (not borderline, suspect or not checked)."""
+        return self.passed is not None
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-ready form (stored with the run as a result's details, printed by --json)."""
@@ -108,10 +137,9 @@ class LimitOutcome:
             "worst_value": self.worst_value, "worst_scope": dict(self.worst_scope),
             "bound": self.bound, "bound_value": self.bound_value,
             "margin": self.margin, "margin_rel": self.margin_rel,
-            "failing": [
-                {"value": f.value, "margin": f.margin, "scope": dict(f.scope), "note": f.note}
-                for f in self.failing
-            ],
+            "decision": self.limit.decision, "uncertainty": self.uncertainty, "n_not_exist": self.n_not_exist,
+            "failing": [f.to_dict() for f in self.failing],
+            "doubtful": [f.to_dict() for f in self.doubtful],
         }
 
 
@@ -147,5 +175,6 @@ class CheckReport:
             "limits_sha256": self.limits_sha256, "not_applicable": list(self.not_applicable),
             "checked_utc": self.checked_utc.isoformat() if self.checked_utc else None,
             "n_passed": self.count(PASS), "n_failed": self.count(FAIL), "n_not_checked": self.count(NOT_CHECKED),
+            "n_borderline": self.count(BORDERLINE), "n_suspect": self.count(SUSPECT),
             "outcomes": [o.to_dict() for o in self.outcomes],
         }

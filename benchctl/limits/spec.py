@@ -16,6 +16,20 @@ from benchctl.units import unit_from_name
 PASS = "pass"
 FAIL = "fail"
 NOT_CHECKED = "not_checked"
+#: Guarded acceptance: the value is within its expanded uncertainty U of a bound, so it is
+#: proven neither inside nor outside (ILAC-G8:09/2019 4.2.3, "conditional" pass or fail).
+BORDERLINE = "borderline"
+#: The value would pass, but its point did not settle or was not verified, or its result is
+#: flagged (clipped, only a bound, outside the band ...): it cannot pass silently.
+SUSPECT = "suspect"
+STATUSES = (PASS, FAIL, BORDERLINE, SUSPECT, NOT_CHECKED)
+
+#: Decision rules (ILAC-G8:09/2019 4.2, from memory): the value alone (simple acceptance,
+#: 4.2.1) or the value with its expanded uncertainty U (guarded acceptance, guard band w = U,
+#: 4.2.2/4.2.3).
+SIMPLE = "simple"
+GUARDED = "guarded"
+DECISIONS = (SIMPLE, GUARDED)
 
 SOURCE_RESULT = "result"
 SOURCE_POINT = "point"
@@ -34,6 +48,7 @@ _TOP_KEYS = {"spec", "limit"}
 _SPEC_KEYS = {"name", "description"}
 _LIMIT_KEYS = {
     "name", "quantity", "min", "max", "where", "description", "unit", "required", "missing", "source", "procedure",
+    "decision",
 }
 _RANGE_KEYS = {"min", "max", "at"}
 _AT_CHOICES = ("min", "max", "extremes")
@@ -91,6 +106,8 @@ class LimitSpec:
     fail for results, ignore for point columns). ``source`` is ``None`` (result if the
     run has one of that name, else point column), ``"result"`` or ``"point"``.
     ``procedures`` empty means the limit applies to runs of every procedure.
+    ``decision`` is the decision rule: ``"simple"`` (the value alone) or ``"guarded"``
+    (the value with its expanded uncertainty; see the package docstring).
     """
 
     index: int
@@ -105,6 +122,7 @@ class LimitSpec:
     missing: str | None = None
     source: str | None = None
     procedures: tuple[str, ...] = ()
+    decision: str = SIMPLE
 
     def bounds_text(self, unit: str = "") -> str:
         """``>= 0.86``, ``<= 1 %`` or ``-1 ... 1 %``."""
@@ -130,6 +148,7 @@ class LimitSpec:
             "min": self.minimum, "max": self.maximum, "where": self.where_text(),
             "description": self.description, "unit": self.unit, "required": self.required,
             "missing": self.missing, "source": self.source, "procedures": list(self.procedures),
+            "decision": self.decision,
         }
 
 
@@ -266,13 +285,18 @@ def _parse_limit(index: int, item: Any, problems: list[str], names: dict[str, in
         problems.append(f"{key}.procedure: must be a procedure name or a list of names, got {item.get('procedure')!r}")
         procedure = []
 
+    decision = item.get("decision", SIMPLE)
+    if decision not in DECISIONS:
+        problems.append(f"{key}.decision: {decision!r} must be one of {', '.join(repr(c) for c in DECISIONS)} "
+                        "(the value alone, or the value with its expanded uncertainty)")
+
     if len(problems) > before:
         return None
     return LimitSpec(
         index=index, name=name.strip(), quantity=quantity,
         minimum=None if lo is None else float(lo), maximum=None if hi is None else float(hi),
         where=tuple(filters), description=description, unit=unit, required=required,
-        missing=missing, source=source, procedures=tuple(p.strip() for p in procedure),
+        missing=missing, source=source, procedures=tuple(p.strip() for p in procedure), decision=decision,
     )
 
 
