@@ -40,7 +40,7 @@ from __future__ import annotations
 import logging
 import math
 from dataclasses import dataclass
-from typing import Literal
+from typing import Any, Literal
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
@@ -150,6 +150,31 @@ class LoopMargins:
         """Gain margin closest to 0 dB, in dB, or None (reason in ``worst_gain_margin``)."""
         w = self.worst_gain_margin
         return None if isinstance(w, NotFound) else w.gain_margin_db
+
+    def to_dict(self) -> dict[str, Any]:
+        """Plain values for JSON, the store and reports: the worst margins (None where not found,
+        with the reason under ``not_found``), every crossing, and the notes."""
+        wpm, wgm = self.worst_phase_margin, self.worst_gain_margin
+        return {
+            "crossover_hz": self.crossover_hz,
+            "phase_margin_deg": self.worst_phase_margin_deg,
+            "phase_crossover_hz": None if isinstance(wgm, NotFound) else wgm.freq_hz,
+            "gain_margin_db": self.worst_gain_margin_db,
+            "modulus_margin": self.modulus_margin,
+            "modulus_margin_freq_hz": self.modulus_margin_freq_hz,
+            "not_found": {"phase_margin": wpm.reason if isinstance(wpm, NotFound) else None,
+                          "gain_margin": wgm.reason if isinstance(wgm, NotFound) else None},
+            "gain_crossovers": [{"freq_hz": g.freq_hz, "phase_margin_deg": g.phase_margin_deg,
+                                 "direction": g.direction, "near_band_edge": g.near_band_edge}
+                                for g in self.gain_crossovers],
+            "phase_crossovers": [{"freq_hz": c.freq_hz, "gain_margin_db": c.gain_margin_db,
+                                  "phase_level_deg": c.phase_level_deg, "near_band_edge": c.near_band_edge}
+                                 for c in self.phase_crossovers],
+            "band_min_hz": self.band_min_hz,
+            "band_max_hz": self.band_max_hz,
+            "phase_convention": self.phase_convention,
+            "notes": list(self.notes),
+        }
 
 
 def closed_loop_q(phase_margin_deg: float) -> float:

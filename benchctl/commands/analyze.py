@@ -97,25 +97,7 @@ def _c(z: complex) -> dict[str, float]:
 
 
 def _margins_dict(m: Any) -> dict[str, Any]:
-    from benchctl.analysis.margins import NotFound
-
-    wpm, wgm = m.worst_phase_margin, m.worst_gain_margin
-    return {
-        "crossover_hz": m.crossover_hz,
-        "phase_margin_deg": m.worst_phase_margin_deg,
-        "phase_crossover_hz": None if isinstance(wgm, NotFound) else wgm.freq_hz,
-        "gain_margin_db": m.worst_gain_margin_db,
-        "modulus_margin": m.modulus_margin,
-        "modulus_margin_freq_hz": m.modulus_margin_freq_hz,
-        "not_found": {"phase_margin": wpm.reason if isinstance(wpm, NotFound) else None,
-                      "gain_margin": wgm.reason if isinstance(wgm, NotFound) else None},
-        "gain_crossovers": [{"freq_hz": g.freq_hz, "phase_margin_deg": g.phase_margin_deg, "direction": g.direction,
-                             "near_band_edge": g.near_band_edge} for g in m.gain_crossovers],
-        "phase_crossovers": [{"freq_hz": c.freq_hz, "gain_margin_db": c.gain_margin_db,
-                              "phase_level_deg": c.phase_level_deg, "near_band_edge": c.near_band_edge}
-                             for c in m.phase_crossovers],
-        "notes": list(m.notes),
-    }
+    return m.to_dict()
 
 
 def _fit_dict(fit: Any, origin_poles: int) -> dict[str, Any]:
