@@ -2,9 +2,17 @@
 
 ``bench.source``, ``bench.load``, ``bench.input_meter``, ``bench.output_meter`` (and any
 role by ``bench.role(name)``) are guarded drivers; ``bench.record(...)`` stores one
-point durably before it returns; ``bench.settle(...)`` and ``bench.wait(...)`` wait for
-the DUT (and are cut short by an interlock trip); ``bench.sweep(plan)`` walks the
-planned points with progress reporting; ``bench.log`` is the procedure's logger.
+point durably before it returns; ``bench.settle(...)``, ``bench.settle_readings(...)``,
+``bench.wait_stable(...)`` and ``bench.wait(...)`` wait for the DUT (and are cut short by
+an interlock trip); ``bench.measure_together(...)`` reads several instruments at the same
+moment, N times; ``bench.verify(...)`` checks setpoints against what was measured;
+``bench.sweep(plan)`` walks the planned points with progress reporting; ``bench.log`` is
+the procedure's logger.
+
+A point's settle result travels with it: ``bench.record(values, settle=result,
+readings=readings)`` stores the means, the standard deviations (``pin_sd_w``) and
+``n_readings``, ``settled`` (False when unsettled or unverified) and the ``settle_info``
+dict that says how the point was settled and verified (:meth:`SettleResult.info`).
 """
 
 from __future__ import annotations
@@ -15,8 +23,12 @@ from typing import Any, Callable, Iterable, Iterator, Mapping
 
 from benchctl.errors import ProcedureError
 from benchctl.interlock import Interlock
-from benchctl.settle import SettleResult, settle_adaptive
+from benchctl.readings import Readings, SimultaneousReader
+from benchctl.settle import (SettleResult, disabled_result, fitted_time_constants, settle_adaptive,
+                             settle_exponential)
+from benchctl.stability import StabilityResult, wait_stable
 from benchctl.units import unit_from_name
+from benchctl.verification import Verification, setpoint_tolerance, verify_setpoints
 
 class Bench:
     """What a procedure's ``run(bench, p)`` works with."""
@@ -34,6 +46,7 @@ class Bench:
         clock: Callable[[], float] = time.monotonic,
         log: logging.Logger | None = None,
         skip_points: int = 0,
+        dut_time_constant_s: float | None = None,
     ) -> None:
         self._instruments = dict(instruments)
         self.interlock = interlock
@@ -50,6 +63,13 @@ class Bench:
         self._total = 0
         self._last_values: Mapping[str, float] = {}
         self._plan_index: int | None = None
+        #: The DUT's dominant settling time constant from the station (s), or None (estimated).
+        self.dut_time_constant_s = dut_time_constant_s
+        #: τ the settle fit resolved at earlier points, per quantity (a hint where a point's own
+        #: readings do not show its transient).
+        self.fitted_time_constants: dict[str, float] = {}
+        self._reader = SimultaneousReader(clock)
+        self._changed_at: float | None = None
 
     @property
     def limits(self) -> Any:
@@ -103,6 +123,7 @@ class Bench:
         self.wait(startup_delay_s)
         load.set_input(True)
         self._vin_set_v, self._iout_set_a = vin_v, iout_a
+        self._changed_at = self.clock()
 
     def set_operating_point(self, vin_v: float, iout_a: float) -> None:
         """Move to (line, load), sending only the setpoint that changed."""
@@ -112,6 +133,12 @@ class Bench:
         if iout_a != getattr(self, "_iout_set_a", None):
             self.load.set_current(iout_a)
             self._iout_set_a = iout_a
+        self._changed_at = self.clock()
+
+    def mark_change(self) -> None:
+        """Note that a setpoint just changed (a settle's minimum dwell counts from here);
+        :meth:`power_up` and :meth:`set_operating_point` do it themselves."""
+        self._changed_at = self.clock()
 
     # -- waiting -------------------------------------------------------------------
 
@@ -132,15 +159,125 @@ class Bench:
         window_s: float = 0.0,
         interval_s: float = 0.0,
         timeout_s: float = 10.0,
+        method: str = "exponential_fit",
+        time_constant_s: float | None = None,
+        min_dwell_s: float = 0.0,
+        quantity: str = "reading",
     ) -> SettleResult:
-        """Adaptive settle (see :func:`benchctl.settle.settle_adaptive`); one reading when settling is disabled."""
+        """Settle one quantity read by ``read``; see :mod:`benchctl.settle`.
+
+        ``method="exponential_fit"`` (default): fit the approach and stop when the predicted
+        residual is within max(abs_tol, rel_tol·|x∞|); ``window`` is then the minimum number of
+        readings (at least 8) and ``window_s`` the minimum span of the readings judged (s).
+        ``method="window"``: the trailing-window agreement of :func:`benchctl.settle.settle_adaptive`.
+        ``time_constant_s`` defaults to the station's ``dut_time_constant_s``. When settling is
+        disabled (dry runs) one reading is taken and the result is not settled.
+        """
         if not self.settle_enabled:
-            value = read()
-            return SettleResult(True, 0.0, 0.0, value, max(abs_tol, rel_tol * abs(value)), 1, "settling disabled")
-        return settle_adaptive(
-            read, rel_tol=rel_tol, abs_tol=abs_tol, window=window, window_s=window_s, interval_s=interval_s,
-            timeout_s=timeout_s, clock=self.clock, sleep=self.interlock.wait,
+            return disabled_result(read(), quantity)
+        if method == "window":
+            return settle_adaptive(
+                read, rel_tol=rel_tol, abs_tol=abs_tol, window=window, window_s=window_s, interval_s=interval_s,
+                timeout_s=timeout_s, clock=self.clock, sleep=self.interlock.wait,
+            )
+        if method != "exponential_fit":
+            raise ProcedureError(f"bench.settle: method {method!r} is not one of 'exponential_fit', 'window'")
+        return self.settle_readings({quantity: read}, rel_tol=rel_tol, abs_tol=abs_tol,
+                                    time_constant_s=time_constant_s, min_readings=max(window, 8),
+                                    min_window_s=window_s, min_dwell_s=min_dwell_s, interval_s=interval_s,
+                                    timeout_s=timeout_s)
+
+    def settle_readings(
+        self,
+        readers: Mapping[str, Callable[[], float]],
+        *,
+        settle_on: Iterable[str] | None = None,
+        rel_tol: float | Mapping[str, float] = 1e-3,
+        abs_tol: float | Mapping[str, float] = 1e-3,
+        time_constant_s: float | None = None,
+        min_readings: int = 8,
+        min_window_s: float = 0.0,
+        min_dwell_s: float = 0.0,
+        interval_s: float = 0.0,
+        timeout_s: float = 10.0,
+    ) -> SettleResult:
+        """Settle several quantities read together (one thread per instrument) by fitting each
+        one's approach (:func:`benchctl.settle.settle_exponential`).
+
+        ``settle_on`` (default: every reader) lists the quantities that must be settled, the
+        first being the one the point is for. ``time_constant_s`` defaults to the station's
+        ``dut_time_constant_s``; τ fitted at earlier points is the hint when a point's own
+        readings do not show a transient. ``min_dwell_s`` counts from the last setpoint change.
+        """
+        names = list(readers) if settle_on is None else list(settle_on)
+        if not self.settle_enabled:
+            r = self.measure_together({n: readers[n] for n in names}, n=1)
+            return disabled_result(r.mean(names[0]), names[0])
+        subset = {n: readers[n] for n in names}
+
+        def one_round() -> dict[str, tuple[float, float]]:
+            r = self._reader.read(subset, 1)
+            return {n: (r.times_s[n][0], r.values[n][0]) for n in names}
+
+        tau = self.dut_time_constant_s if time_constant_s is None else time_constant_s
+        result = settle_exponential(
+            one_round, settle_on=names, rel_tol=rel_tol, abs_tol=abs_tol, time_constant_s=tau,
+            tau_memory=self.fitted_time_constants, min_readings=min_readings, min_window_s=min_window_s,
+            min_dwell_s=min_dwell_s, timeout_s=timeout_s, interval_s=interval_s, clock=self.clock,
+            sleep=self.interlock.wait, t_change_s=self._changed_at,
         )
+        self.interlock.raise_if_tripped()
+        self.fitted_time_constants.update(fitted_time_constants(result))
+        return result
+
+    def wait_stable(
+        self,
+        read: Callable[[], float],
+        *,
+        window_s: float,
+        max_change_rel: float,
+        max_change_abs: float = 0.0,
+        interval_s: float = 0.0,
+        timeout_s: float = 600.0,
+    ) -> StabilityResult:
+        """Slow drift: read until the regression change over ``window_s`` is below the limit
+        (:func:`benchctl.stability.wait_stable`, after IEC 62301:2011 5.3). With settling
+        disabled, returns at once as not stable."""
+        if not self.settle_enabled:
+            self.interlock.raise_if_tripped()
+            return StabilityResult(False, 0.0, float("nan"), float("nan"), float("nan"), 0, 0.0,
+                                   "settling disabled (dry run)")
+        return wait_stable(read, window_s=window_s, max_change_rel=max_change_rel, max_change_abs=max_change_abs,
+                           interval_s=interval_s, timeout_s=timeout_s, clock=self.clock, sleep=self.interlock.wait)
+
+    def warm_up(self, read: Callable[[], float], *, duration_s: float, window_s: float, max_change_rel: float,
+                timeout_s: float = 3600.0) -> StabilityResult:
+        """Hold the present operating point ``duration_s``, then wait until ``read`` is stable."""
+        self.wait(duration_s)
+        result = self.wait_stable(read, window_s=window_s, max_change_rel=max_change_rel, timeout_s=timeout_s)
+        self.event("warm_up", f"warm-up {duration_s:g} s, then {'stable' if result.stable else 'NOT stable'}: "
+                   f"change {result.change:.4g} over {result.window_s:.3g} s (limit {result.limit:.4g})",
+                   **result.info())
+        return result
+
+    # -- reading and verifying -----------------------------------------------------
+
+    def measure_together(self, readers: Mapping[str, Callable[[], float]], *, n: int = 1) -> Readings:
+        """Read every quantity ``n`` times, each instrument in its own thread, rounds started
+        together (:mod:`benchctl.readings`); an interlock trip in any reading is raised here."""
+        self.interlock.raise_if_tripped()
+        readings = self._reader.read(readers, n)
+        self.interlock.raise_if_tripped()
+        return readings
+
+    @staticmethod
+    def verify(checks: Mapping[str, tuple[float, float, float]]) -> Verification:
+        """``{name: (setpoint, measured, tol)}`` → a :class:`~benchctl.verification.Verification`."""
+        return verify_setpoints(checks)
+
+    @staticmethod
+    def setpoint_tolerance(setpoint: float, rel_tol: float, abs_tol: float) -> float:
+        return setpoint_tolerance(setpoint, rel_tol, abs_tol)
 
     # -- walking a plan ------------------------------------------------------------
 
@@ -180,21 +317,26 @@ class Bench:
         units: Mapping[str, str] | None = None,
         settle: SettleResult | None = None,
         tag: str | None = None,
+        readings: Readings | None = None,
     ) -> int:
         """Store one point durably (committed before this returns); returns its sequence number.
 
         Units come from the names' suffixes (``vin_v`` → V) unless ``units`` says otherwise.
+        ``readings`` adds their means, standard deviations (``<base>_sd_<unit>``) and
+        ``n_readings``. With ``settle`` the point is stored as settled only when it settled
+        and its setpoints were verified, with the settle's ``settle_info``.
         """
         self.interlock.raise_if_tripped()
-        values = dict(values)
+        values = {**(readings.as_values() if readings is not None else {}), **dict(values)}
         if self._plan_index is not None:
             values.setdefault("plan_index", self._plan_index)
         all_units = {name: unit_from_name(name) for name in values}
         all_units.update(units or {})
         seq = self._recorder(
             values, all_units, tag=tag,
-            settled=None if settle is None else settle.settled,
+            settled=None if settle is None else settle.ok,
             settle_time_s=None if settle is None else settle.settling_time_s,
+            settle_info=None if settle is None else settle.info(),
         )
         self.points_recorded += 1
         if self._plan_index is None:  # outside a sweep each record is a step of its own

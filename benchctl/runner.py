@@ -102,7 +102,8 @@ def execute(
         raise
     if on_begin is not None:
         on_begin(run_id)
-    bench = _bench_for(store, run_id, drivers, interlock, settle_enabled, progress, skip_points)
+    bench = _bench_for(store, run_id, drivers, interlock, settle_enabled, progress, skip_points,
+                       station.dut_time_constant_s)
     _arm_watch(interlock, bench, drivers)
     try:
         status, message = _run_body(procedure, params, bench, drivers, interlock, station, store, run_id)
@@ -174,12 +175,15 @@ def _begin_or_resume(store: Any, start: Any, resume_run_id: int | None) -> tuple
 
 
 def _bench_for(store: Any, run_id: int, drivers: Mapping[str, Any], interlock: Interlock, settle_enabled: bool,
-               progress: Callable[[int, int, Mapping[str, float]], None] | None, skip_points: int) -> Bench:
+               progress: Callable[[int, int, Mapping[str, float]], None] | None, skip_points: int,
+               dut_time_constant_s: float | None = None) -> Bench:
     """The Bench of this run: guarded drivers, and recorders that write into ``run_id``."""
 
-    def record(values: dict, units: dict, *, tag: str | None, settled: bool | None, settle_time_s: float | None) -> int:
+    def record(values: dict, units: dict, *, tag: str | None, settled: bool | None, settle_time_s: float | None,
+               settle_info: dict | None = None) -> int:
         return store.record_point(run_id, values, units=units, tag=tag or "",
-                                  settled=True if settled is None else settled, settle_time_s=settle_time_s)
+                                  settled=True if settled is None else settled, settle_time_s=settle_time_s,
+                                  settle_info=_jsonable(settle_info) if settle_info else None)
 
     def record_array(name: str, columns: dict, units: dict, *, point_seq: int | None, meta: dict) -> None:
         store.record_array(run_id, name, columns, units=units, point_seq=point_seq, meta=meta)
@@ -191,6 +195,7 @@ def _bench_for(store: Any, run_id: int, drivers: Mapping[str, Any], interlock: I
         instruments={role: guard(d, interlock) for role, d in drivers.items()},
         interlock=interlock, recorder=record, array_recorder=record_array, event_recorder=record_event,
         settle_enabled=settle_enabled, progress=progress, skip_points=skip_points,
+        dut_time_constant_s=dut_time_constant_s,
     )
 
 

@@ -8,6 +8,7 @@ key, so one edit fixes them all. The format is documented in the README::
     name = "bench-3"
     watch_period_s = 0.1                     # interlock background watch period
     hazardous_voltage_acknowledged = false   # must be true when a limit exceeds 60 V DC
+    dut_time_constant_s = 0.02               # optional: the DUT's slowest settling time constant
 
     [limits]
     source_voltage_max_v = 60.0
@@ -148,6 +149,7 @@ class Station:
     database: str | None = None
     path: Path | None = None
     text: str = ""
+    dut_time_constant_s: float | None = None  # the DUT's dominant settling time constant, s (settling)
 
     @property
     def accuracy(self) -> dict[str, InstrumentAccuracy]:
@@ -167,7 +169,8 @@ class Station:
 
 
 _LIMIT_KEYS = [f.name for f in fields(StationLimits)]
-_STATION_KEYS = {"name", "description", "watch_period_s", "hazardous_voltage_acknowledged", "database"}
+_STATION_KEYS = {"name", "description", "watch_period_s", "hazardous_voltage_acknowledged", "database",
+                 "dut_time_constant_s"}
 _INSTRUMENT_KEYS = {"driver", "resource", "timeout_s", "options", "commands", "accuracy"}
 _TERM_KEYS = {"pct_of_reading", "offset", "range_max", "distribution", "coverage_factor"}
 
@@ -324,6 +327,10 @@ def parse_station(text: str, *, path: Path | None = None) -> Station:
     database = station.get("database")
     if database is not None and (not isinstance(database, str) or not database.strip()):
         problems.append("station.database: must be a database URL string when given")
+    dut_tau = station.get("dut_time_constant_s")
+    if dut_tau is not None and (not _positive_number(dut_tau) or dut_tau > 3600):
+        problems.append(f"station.dut_time_constant_s: {dut_tau!r} must be a number of seconds in (0, 3600] "
+                        "(the DUT's slowest settling time constant; leave it out to have it estimated)")
 
     limits_table = data.get("limits")
     limit_values: dict[str, float] = {}
@@ -436,6 +443,7 @@ def parse_station(text: str, *, path: Path | None = None) -> Station:
         database=database,
         path=path,
         text=text,
+        dut_time_constant_s=None if dut_tau is None else float(dut_tau),
     )
 
 

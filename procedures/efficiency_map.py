@@ -1,8 +1,22 @@
 """Efficiency and regulation map over the line x load envelope.
 
 For every input voltage, the load current is stepped (ascending, and optionally back down
-for a hysteresis check); at each point the output is settled, then input and output
-voltage, current and power are read with the meters and recorded. Derived results:
+for a hysteresis check). At each point the input and output power are read together (one
+thread per meter) until the fit of their approach predicts both within the settle
+tolerance (:mod:`benchctl.settle`); optionally the input power must also be stable over a
+longer window (slow thermal drift, :mod:`benchctl.stability`; a warm-up at full load can
+precede the first point). Then input and output voltage, current and power and the
+source's read-back are read ``n_readings`` times, every instrument at the same moment, and
+recorded as means with their standard deviations; the load current and the source
+voltage are verified against their setpoints first, and a point that fails either check
+is recorded with ``settled = False`` and the reason.
+
+Rule for the quantities not fitted: input power is the quantity an efficiency point is for
+and the slowest to settle (the input filter sits behind the output, and Pin = Pout/η
+follows every change downstream); output power is settled with it; the voltages and
+currents are read after both, and the load current and source voltage are verified.
+
+Derived results:
 efficiency per point, line and load regulation, output deviation from nominal, the
 four-point average efficiency at 25/50/75/100 % load with the indicative external-supply
 limit, and the no-load input power.
@@ -27,10 +41,29 @@ PARAMETERS = [
     Parameter("descending", "", False, kind="bool", help="also step the load back down (hysteresis)"),
     Parameter("vout_nom_v", "V", 5.0, minimum=0.0, maximum=1500.0, help="nominal output voltage"),
     *power_parameters(startup_delay_s=0.05),
-    Parameter("settle_rel_tol", "", 2e-4, minimum=0.0, maximum=0.1, help="settle: relative agreement of readings"),
-    Parameter("settle_abs_tol_v", "V", 1e-3, minimum=0.0, maximum=1.0, help="settle: absolute agreement of readings"),
-    Parameter("settle_abs_tol_a", "A", 2e-4, minimum=0.0, maximum=10.0, help="settle: absolute agreement of input current readings"),
-    Parameter("settle_timeout_s", "s", 5.0, minimum=0.0, maximum=600.0, help="settle: give up (point unsettled)"),
+    Parameter("settle_rel_tol", "", 2e-4, minimum=0.0, maximum=0.1,
+              help="settle: largest predicted residual of Pin and Pout, relative to the value"),
+    Parameter("settle_abs_tol_w", "W", 1e-3, minimum=0.0, maximum=100.0,
+              help="settle: largest predicted residual of Pin and Pout, absolute (light load)"),
+    Parameter("settle_timeout_s", "s", 10.0, minimum=0.0, maximum=600.0, help="settle: give up (point unsettled)"),
+    Parameter("settle_min_dwell_s", "s", 0.0, minimum=0.0, maximum=3600.0,
+              help="settle: least time at each point after its setpoint changed"),
+    Parameter("dut_time_constant_s", "s", None, minimum=0.0, maximum=3600.0, optional=True,
+              help="the DUT's slowest settling time constant (default: the station's, else fitted from the readings)"),
+    Parameter("n_readings", "", 5, minimum=1, maximum=1000, kind="int",
+              help="readings per quantity and point, taken together and averaged (their sd is stored)"),
+    Parameter("verify_rel_tol", "", 5e-3, minimum=0.0, maximum=0.5,
+              help="verification: load current and source voltage within this fraction of the setpoint ..."),
+    Parameter("verify_abs_tol_a", "A", 1e-3, minimum=0.0, maximum=10.0, help="... plus this for the load current"),
+    Parameter("verify_abs_tol_v", "V", 1e-2, minimum=0.0, maximum=100.0, help="... plus this for the source voltage"),
+    Parameter("drift_window_s", "s", 0.0, minimum=0.0, maximum=3600.0,
+              help="slow drift: window over which Pin must be stable at each point (0: no drift check)"),
+    Parameter("drift_max_change_rel", "", 5e-4, minimum=0.0, maximum=0.1,
+              help="slow drift: largest change of Pin over the window (regression), relative"),
+    Parameter("drift_timeout_s", "s", 600.0, minimum=0.0, maximum=36000.0,
+              help="slow drift: give up waiting (point unsettled)"),
+    Parameter("warmup_s", "s", 0.0, minimum=0.0, maximum=36000.0,
+              help="hold at full load and the first line voltage before the first point (then the drift check)"),
     Parameter("load_regulation_convention", "", "textbook", kind="str", choices=("textbook", "rated"),
               help="denominator of load regulation: V at full load (textbook) or the rated voltage"),
 ]
@@ -57,39 +90,51 @@ def run(bench, p: Parameters) -> None:
     points = plan(p)
     bench.power_up(points[0]["vin_set_v"], points[0]["iout_set_a"],
                    source_current_limit_a=p.source_current_limit_a, startup_delay_s=p.startup_delay_s)
-    vin_now = points[0]["vin_set_v"]
+    if p.warmup_s > 0:
+        _warm_up(bench, p, points[0]["vin_set_v"], max(load_currents(p)))
+    powers = {"pin_w": meter_in.measure_power, "pout_w": meter_out.measure_power}
+    readers = {
+        "vin_v": meter_in.measure_voltage, "iin_a": meter_in.measure_current, "pin_w": meter_in.measure_power,
+        "vout_v": meter_out.measure_voltage, "iout_a": meter_out.measure_current, "pout_w": meter_out.measure_power,
+        "vsrc_v": source.measure_voltage,
+    }
     for point in bench.sweep(points):
-        if point["vin_set_v"] != vin_now:
-            source.set_voltage(point["vin_set_v"])
-            vin_now = point["vin_set_v"]
-        load.set_current(point["iout_set_a"])
-        # Settle the output voltage, then the input current (a load step moves the input
-        # current far more than the regulated output).
-        settled = bench.settle(
-            meter_out.measure_voltage, rel_tol=p.settle_rel_tol, abs_tol=p.settle_abs_tol_v,
-            timeout_s=p.settle_timeout_s,
+        vin_set, iout_set = point["vin_set_v"], point["iout_set_a"]
+        bench.set_operating_point(vin_set, iout_set)
+        settled = bench.settle_readings(
+            powers, settle_on=("pin_w", "pout_w"), rel_tol=p.settle_rel_tol, abs_tol=p.settle_abs_tol_w,
+            time_constant_s=p.dut_time_constant_s, min_dwell_s=p.settle_min_dwell_s, timeout_s=p.settle_timeout_s,
         )
-        if settled.settled:
-            settled = bench.settle(
-                meter_in.measure_current, rel_tol=p.settle_rel_tol, abs_tol=p.settle_abs_tol_a,
-                timeout_s=p.settle_timeout_s,
-            )
-        vin = meter_in.measure_voltage()
-        iin = meter_in.measure_current()
-        pin = meter_in.measure_power()
-        vout = meter_out.measure_voltage()
-        iout = meter_out.measure_current()
-        pout = meter_out.measure_power()
-        bench.record(
-            {
-                "vin_set_v": point["vin_set_v"], "iout_set_a": point["iout_set_a"],
-                "vin_v": vin, "iin_a": iin, "pin_w": pin,
-                "vout_v": vout, "iout_a": iout, "pout_w": pout,
-            },
-            settle=settled, tag=point["tag"],
-        )
+        if p.drift_window_s > 0 and bench.settle_enabled:
+            drift = bench.wait_stable(meter_in.measure_power, window_s=p.drift_window_s,
+                                      max_change_rel=p.drift_max_change_rel, max_change_abs=p.settle_abs_tol_w,
+                                      timeout_s=p.drift_timeout_s)
+            settled = (settled.with_extra(drift=drift.info()) if drift.stable
+                       else settled.unsettled_by(f"input power drifting: {drift.reason}", drift=drift.info()))
+        readings = bench.measure_together(readers, n=p.n_readings)
+        check = bench.verify({
+            "iout_a": (iout_set, readings.mean("iout_a"),
+                       bench.setpoint_tolerance(iout_set, p.verify_rel_tol, p.verify_abs_tol_a)),
+            "vsrc_v": (vin_set, readings.mean("vsrc_v"),
+                       bench.setpoint_tolerance(vin_set, p.verify_rel_tol, p.verify_abs_tol_v)),
+        })
+        settled = settled.with_verification(check.verified, check.as_dict(), check.reason)
+        bench.record({"vin_set_v": vin_set, "iout_set_a": iout_set}, readings=readings, settle=settled,
+                     tag=point["tag"])
     load.set_input(False)
     source.set_output(False)
+
+
+def _warm_up(bench, p: Parameters, vin_v: float, iout_a: float) -> None:
+    """Hold full load at the first line voltage for ``warmup_s``; then, with a drift window, wait
+    until the input power is stable (common practice: characterise a warm converter)."""
+    bench.set_operating_point(vin_v, iout_a)
+    if p.drift_window_s > 0:
+        bench.warm_up(bench.input_meter.measure_power, duration_s=p.warmup_s, window_s=p.drift_window_s,
+                      max_change_rel=p.drift_max_change_rel, timeout_s=p.drift_timeout_s)
+    else:
+        bench.wait(p.warmup_s)
+        bench.event("warm_up", f"warm-up {p.warmup_s:g} s at {vin_v:g} V, {iout_a:g} A (no drift check)")
 
 
 #: The instrument (station role) and the measured quantity each recorded value comes from:

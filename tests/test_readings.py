@@ -1,0 +1,104 @@
+"""Readings taken together: one thread per instrument, rounds started at once, means and sample sd."""
+
+from __future__ import annotations
+
+import statistics
+import threading
+
+import pytest
+
+from benchctl.readings import Readings, SimultaneousReader, sd_name
+
+
+def test_sd_names_keep_the_unit_suffix_last():
+    assert sd_name("pin_w") == "pin_sd_w"
+    assert sd_name("vout_v") == "vout_sd_v"
+    assert sd_name("iin_a") == "iin_sd_a"
+    assert sd_name("efficiency") == "efficiency_sd"
+    assert sd_name("freq_hz") == "freq_sd_hz"
+
+
+def test_mean_and_sample_sd_match_the_standard_library():
+    # Reference: Python's statistics.mean / statistics.stdev (sample sd, N - 1; GUM 4.2.2).
+    v = (3.01, 2.99, 3.02, 2.98, 3.00, 3.005)
+    r = Readings({"pin_w": v}, {"pin_w": tuple(range(6))}, 0.0, 1.0)
+    assert r.mean("pin_w") == pytest.approx(statistics.mean(v), rel=1e-15)
+    assert r.sd("pin_w") == pytest.approx(statistics.stdev(v), rel=1e-12)
+    values = r.as_values()
+    assert values == {"pin_w": pytest.approx(statistics.mean(v)), "pin_sd_w": pytest.approx(statistics.stdev(v)),
+                      "n_readings": 6.0}
+
+
+def test_one_reading_has_no_sd_column():
+    r = Readings({"pin_w": (3.0,)}, {"pin_w": (0.0,)}, 0.0, 0.0)
+    assert r.as_values() == {"pin_w": 3.0, "n_readings": 1.0}
+
+
+class Instrument:
+    """An instrument answering one query at a time (its own lock, as the drivers have).
+
+    ``meet`` makes every reading wait until the partner instrument is inside a reading of the same
+    round too: read one after the other, the two could never meet and the wait would time out.
+    """
+
+    def __init__(self, name, values, meet=None):
+        self.name, self.values, self.meet = name, list(values), meet
+        self._lock = threading.Lock()
+        self.threads = set()
+        self.calls = 0
+
+    def measure(self):
+        with self._lock:
+            self.threads.add(threading.get_ident())
+            self.calls += 1
+            if self.meet is not None:
+                self.meet.wait(timeout=10.0)  # raises BrokenBarrierError if the partner never comes
+            return self.values.pop(0)
+
+    def measure_other(self):
+        with self._lock:
+            return 0.5
+
+
+def test_instruments_are_read_at_the_same_moment_each_round():
+    meet = threading.Barrier(2)
+    a = Instrument("input_meter", [1.0, 1.1, 1.2], meet)
+    b = Instrument("output_meter", [2.0, 2.1, 2.2], meet)
+    reader = SimultaneousReader()
+    try:
+        r = reader.read({"pin_w": a.measure, "pout_w": b.measure}, n=3)
+    finally:
+        reader.close()
+    assert r.values == {"pin_w": (1.0, 1.1, 1.2), "pout_w": (2.0, 2.1, 2.2)}
+    assert not meet.broken  # every round met: the two were inside a reading together
+    assert a.threads.isdisjoint(b.threads)  # one thread per instrument
+
+
+def test_quantities_of_one_instrument_share_its_thread_in_order():
+    a = Instrument("input_meter", [1.0, 1.1])
+    groups = SimultaneousReader.groups({"pin_w": a.measure, "vin_v": a.measure_other, "x": lambda: 0.0})
+    assert [[n for n, _ in g] for g in groups] == [["pin_w", "vin_v"], ["x"]]
+
+
+def test_an_error_in_one_instrument_is_raised_and_nothing_hangs():
+    class Broken(Exception):
+        pass
+
+    def fail():
+        raise Broken("no answer")
+
+    b = Instrument("output_meter", [2.0] * 5)
+    reader = SimultaneousReader()
+    try:
+        with pytest.raises(Broken, match="no answer"):
+            reader.read({"pin_w": fail, "pout_w": b.measure}, n=5)
+    finally:
+        reader.close()
+    assert b.calls <= 1  # the other instrument stopped at the next round
+
+
+def test_bad_counts_are_refused():
+    with pytest.raises(ValueError, match=">= 1"):
+        SimultaneousReader().read({"x": lambda: 1.0}, n=0)
+    with pytest.raises(ValueError, match="no quantity"):
+        SimultaneousReader().read({}, n=1)
