@@ -1,24 +1,109 @@
-"""Run summaries for the terminal: an efficiency grid and the derived results."""
+"""Run summaries for the terminal: data quality, an efficiency grid and the derived results.
+
+Figures are shown with their expanded uncertainty, ``value ± U`` (k = 2, JCGM 100:2008
+6.2.1) when the run stored one. Points that did not settle or whose setpoints were not
+verified are counted and listed, and marked ``*`` in the grid; results whose number may
+be wrong (``details["flags"]``) are counted and marked ``*`` with their flags.
+"""
 
 from __future__ import annotations
 
 import math
 
+from rich.markup import escape
 from rich.table import Table
 
+from benchctl.analysis.quality import UNVERIFIED, point_flags, result_flags
 from benchctl.commands.console import console
 
+#: Points listed by name at most in the data-quality lines (the rest are counted).
+MAX_LISTED = 8
 
-def _fmt(value, unit: str) -> str:
+
+def _fmt(value, unit: str, u=None) -> str:
     if value is None or (isinstance(value, float) and math.isnan(value)):
         return "—"
-    if unit == "":
-        return f"{value:.4g}"
-    return f"{value:.4g} {unit}"
+    text = f"{value:.4g}"
+    if u is not None and isinstance(u, float) and math.isfinite(u):
+        text += f" ± {u:.2g}"
+    return text if unit == "" else f"{text} {unit}"
 
 
-def efficiency_grid(points) -> Table | None:
-    """Efficiency in % by load (rows) and line (columns), from a run's wide points."""
+def _finite(x) -> float | None:
+    try:
+        v = float(x)
+    except (TypeError, ValueError):
+        return None
+    return v if math.isfinite(v) else None
+
+
+def point_quality(points) -> list[tuple[int, float, float, tuple[str, ...], str]]:
+    """(seq, vin_set_v, iout_set_a, flags, reason) of every unsettled or unverified point."""
+    if points.empty or "settled" not in points.columns:
+        return []
+    out = []
+    for rec in points.to_dict("records"):
+        flags, reason = point_flags(rec.get("settled"), rec.get("settle_info"), rec.get("settle_reason"))
+        if flags:
+            vin, iout = _finite(rec.get("vin_set_v")), _finite(rec.get("iout_set_a"))
+            out.append((int(rec.get("seq", 0)), math.nan if vin is None else vin,
+                        math.nan if iout is None else iout, flags, reason))
+    return out
+
+
+def flagged_results(results) -> list[tuple[str, dict, tuple[str, ...], str]]:
+    """(name, scope, flags, reasons) of every derived result that carries quality flags."""
+    if results is None or results.empty or "details" not in results.columns:
+        return []
+    out = []
+    for _, r in results.iterrows():
+        if str(r["name"]).startswith("limit:"):
+            continue
+        flags, reasons = result_flags(r.get("details"))
+        if flags:
+            out.append((str(r["name"]), r.get("scope") if isinstance(r.get("scope"), dict) else {}, flags, reasons))
+    return out
+
+
+def quality_lines(points, results) -> list[str]:
+    """Plain-text lines on the run's data quality (empty when every point settled and no result is flagged)."""
+    lines = []
+    bad = point_quality(points)
+    if bad:
+        n_unver = sum(1 for b in bad if UNVERIFIED in b[3])
+        shown = "; ".join(f"{b[1]:g} V, {b[2]:g} A: {', '.join(b[3])}" + (f" ({b[4]})" if b[4] else "")
+                          for b in bad[:MAX_LISTED])
+        more = f"; … and {len(bad) - MAX_LISTED} more" if len(bad) > MAX_LISTED else ""
+        lines.append(f"{len(bad)} of {len(points)} point(s) not trustworthy: {len(bad) - n_unver} unsettled, "
+                     f"{n_unver} unverified — {shown}{more}")
+    flagged = flagged_results(results)
+    if flagged:
+        names = sorted({f[0] for f in flagged})
+        kinds = sorted({k for f in flagged for k in f[2]})
+        lines.append(f"{len(flagged)} derived result(s) flagged ({', '.join(kinds)}): {', '.join(names)}; "
+                     "marked * below, limits cannot pass on them")
+    return lines
+
+
+def _efficiency_u(results) -> dict[tuple[float, float], float]:
+    """(iout_set_a, vin_set_v) -> the largest expanded uncertainty of the efficiency there."""
+    out: dict[tuple[float, float], float] = {}
+    if results is None or results.empty or "expanded_uncertainty" not in results.columns:
+        return out
+    sel = results[results["name"] == "efficiency"]
+    for _, r in sel.iterrows():
+        scope = r.get("scope") if isinstance(r.get("scope"), dict) else {}
+        u = _finite(r.get("expanded_uncertainty"))
+        vin, iout = _finite(scope.get("vin_set_v")), _finite(scope.get("iout_set_a"))
+        if u is None or vin is None or iout is None:
+            continue
+        out[(iout, vin)] = max(u, out.get((iout, vin), 0.0))
+    return out
+
+
+def efficiency_grid(points, results=None) -> Table | None:
+    """Efficiency in % by load (rows) and line (columns), from a run's wide points, with ± U
+    (k = 2) from the efficiency results when stored; * marks an unsettled or unverified point."""
     needed = {"vin_set_v", "iout_set_a", "pin_w", "pout_w"}
     if points.empty or not needed <= set(points.columns):
         return None
@@ -26,20 +111,36 @@ def efficiency_grid(points) -> Table | None:
     loaded = (points["iout_set_a"] > 0) & (points["pin_w"] > 0)
     frame = points.assign(eff=(points["pout_w"] / points["pin_w"]).where(loaded))
     grid = frame.pivot_table(index="iout_set_a", columns="vin_set_v", values="eff", aggfunc="mean")
-    table = Table(title="efficiency (%) by load and line (no-load row: input power)")
+    u_at = _efficiency_u(results)
+    doubtful = {(b[2], b[1]) for b in point_quality(points)}
+    title = "efficiency (%) by load and line (no-load row: input power)"
+    if u_at:
+        title += "; ± expanded uncertainty U (k = 2)"
+    if doubtful:
+        title += "; * unsettled or unverified"
+    table = Table(title=title)
     table.add_column("load (A)", justify="right")
     for vin in grid.columns:
         table.add_column(f"{vin:g} V", justify="right")
     if (points["iout_set_a"] == 0).any():
         noload = points[points["iout_set_a"] == 0].groupby("vin_set_v")["pin_w"].mean()
-        table.add_row("0 (Pin)", *[f"{noload.get(v, float('nan')):.3f} W" for v in grid.columns])
+        cells = []
+        for v in grid.columns:
+            mark = "*" if (0.0, float(v)) in doubtful else ""
+            cells.append(f"{noload.get(v, float('nan')):.3f} W{mark}")
+        table.add_row("0 (Pin)", *cells)
     for iout, row in grid.iterrows():
         if row.isna().all():
             continue
         cells = []
         best = row.max()
-        for v in row:
+        for vin, v in row.items():
             text = "—" if math.isnan(v) else f"{100 * v:.2f}"
+            u = u_at.get((float(iout), float(vin)))
+            if u is not None and not math.isnan(v):
+                text += f" ±{100 * u:.2f}"
+            if (float(iout), float(vin)) in doubtful:
+                text += "*"
             cells.append(f"[bold]{text}[/]" if v == best and not math.isnan(v) else text)
         table.add_row(f"{iout:g}", *cells)
     return table
@@ -60,22 +161,32 @@ def _scope_text(scope) -> str:
 def _note(details) -> str:
     if not isinstance(details, dict):
         return ""
+    notes = []
+    flags, reasons = result_flags(details)
+    if flags:
+        notes.append(f"* {', '.join(flags)}" + (f": {reasons}" if reasons else ""))
     if "limit_efficiency" in details:
         if not details.get("found", True):
-            return str(details.get("reason", ""))
-        verdict = "meets" if details.get("meets_indicative_limit") else "below"
-        return f"{verdict} {details['limit_efficiency']:.4f} (indicative)"
-    if "indicative_limit_w" in details:
-        return f"limit {details['indicative_limit_w']:g} W (indicative)"
-    return ""
+            notes.append(str(details.get("reason", "")))
+        else:
+            verdict = "meets" if details.get("meets_indicative_limit") else "below"
+            notes.append(f"{verdict} {details['limit_efficiency']:.4f} (indicative)")
+    elif "indicative_limit_w" in details:
+        notes.append(f"limit {details['indicative_limit_w']:g} W (indicative)")
+    return "; ".join(notes)
 
 
 def results_table(results) -> Table | None:
-    """One line per derived result name (per-point results left out): the value, or for a
-    result found at several operating points the worst (largest magnitude) with where it was."""
+    """One line per derived result name (per-point results left out): the value ± U (k = 2)
+    when stored, or for a result found at several operating points the worst (largest
+    magnitude) with where it was; flagged results are marked * with their flags."""
     if results.empty:
         return None
-    table = Table(title="derived results (worst case where a result has several operating points)")
+    has_u = "expanded_uncertainty" in results.columns and results["expanded_uncertainty"].notna().any()
+    title = "derived results (worst case where a result has several operating points)"
+    if has_u:
+        title += "; ± expanded uncertainty U (k = 2)"
+    table = Table(title=title)
     has_notes = any(_note(d) for d in results["details"])
     table.add_column("result", no_wrap=True)
     for col in ("value", "where", "range") + (("note",) if has_notes else ()):
@@ -95,22 +206,30 @@ def results_table(results) -> Table | None:
             else:
                 k = int(abs(group["value"]).fillna(-1).to_numpy().argmax())
             rng = f"{_fmt(float(min(values)), unit)} … {_fmt(float(max(values)), unit)}"
-        cells = [str(name), _fmt(float(values[k]), unit), _scope_text(scopes[k]), rng]
+        u = _finite(group["expanded_uncertainty"].iloc[k]) if has_u else None
+        details = group["details"].iloc[k]
+        value_text = _fmt(float(values[k]), unit, u)
+        if result_flags(details)[0]:
+            value_text += " *"
+        cells = [str(name), value_text, _scope_text(scopes[k]), rng]
         if has_notes:
-            cells.append(_note(group["details"].iloc[k]))
-        table.add_row(*cells)
+            cells.append(_note(details))
+        table.add_row(*[escape(c) for c in cells])
     return table
 
 
 def print_run_summary(store, run_id: int) -> None:
     out = console()
     points = store.points(run_id)
-    grid = efficiency_grid(points)
+    results = store.results(run_id)
+    grid = efficiency_grid(points, results)
     if grid is not None:
         out.print(grid)
-    table = results_table(store.results(run_id))
+    table = results_table(results)
     if table is not None and table.row_count:
         out.print(table)
+    for line in quality_lines(points, results):
+        out.print(f"[bold yellow]{escape(line)}[/]")
     events = store.events(run_id)
     if not events.empty:
         ev = Table(title="events")

@@ -19,7 +19,7 @@ import pandas as pd
 
 from . import style
 from .limit_marks import LimitMark
-from .result_summary import ResultLine, result_lines
+from .result_summary import ResultLine, result_lines, scope_text
 from .run_data import RunData
 
 ALERT_EVENT_KINDS = frozenset({"interlock_trip", "interlock_refusal", "error", "interrupted"})
@@ -78,7 +78,10 @@ h2 {{ font-size: 18px; margin: 34px 0 10px; padding-bottom: 4px; border-bottom: 
         color: #fff; background: var(--muted); }}
 .pill.completed, .pill.pass {{ background: var(--pass); }}
 .pill.failed, .pill.tripped, .pill.fail {{ background: var(--fail); }}
-.pill.interrupted, .pill.running, .pill.undecided {{ background: var(--warn); }}
+.pill.interrupted, .pill.running, .pill.undecided, .pill.not_checked {{ background: var(--warn); }}
+.pill.borderline {{ background: #a34700; }}
+.pill.suspect {{ background: #6b2f7a; }}
+tr.doubtful td {{ background: #fbf5e8; }}
 table {{ border-collapse: collapse; width: 100%; font-size: 14px; }}
 th, td {{ text-align: left; vertical-align: top; padding: 5px 8px; border-bottom: 1px solid var(--rule); }}
 th {{ font-size: 12px; font-weight: 600; color: var(--muted); text-transform: lowercase; }}
@@ -118,23 +121,67 @@ def _kv(rows: Sequence[tuple[str, str]]) -> str:
     return '<table class="kv"><tbody>' + "".join(f"<tr><th>{esc(k)}</th><td>{v}</td></tr>" for k, v in rows) + "</tbody></table>"
 
 
+_LIMIT_LABELS = {"pass": "pass", "fail": "FAIL", "borderline": "BORDERLINE", "suspect": "SUSPECT",
+                 "not_checked": "not checked"}
+
+
 def _limit_section(limits: Sequence[LimitMark]) -> str:
     if not limits:
         return ""
     rows, classes = [], []
     for m in limits:
-        state = "undecided" if m.passed is None else ("pass" if m.passed else "fail")
-        label = {"pass": "pass", "fail": "FAIL", "undecided": "not decided"}[state]
+        state = m.status if m.status in _LIMIT_LABELS else "not_checked"
+        label = _LIMIT_LABELS[state]
         worst = "—" if m.worst_value is None else f"{m.worst_value:.6g}"
-        rows.append([esc(m.name), esc(m.quantity), esc(m.bound_text), esc(m.where or "every point"), esc(worst),
+        if m.worst_value is not None and m.uncertainty is not None:
+            worst += f" ± {m.uncertainty:.2g}"
+        bound = m.bound_text + (" (guarded)" if m.decision == "guarded" else "")
+        rows.append([esc(m.name), esc(m.quantity), esc(bound), esc(m.where or "every point"), esc(worst),
                      f'<span class="pill {state}">{esc(label)}</span>', esc(m.note)])
-        classes.append("alert" if state == "fail" else "")
-    n_fail = sum(1 for m in limits if m.passed is False)
-    n_pass = sum(1 for m in limits if m.passed is True)
-    summary = f'<p class="note">{n_pass} passed, {n_fail} failed, {len(limits) - n_pass - n_fail} not decided.</p>'
+        classes.append("alert" if state == "fail" else "doubtful" if state in ("borderline", "suspect") else "")
+    counts = {k: sum(1 for m in limits if m.status == k) for k in _LIMIT_LABELS}
+    undecided = len(limits) - counts["pass"] - counts["fail"]
+    detail = [f"{counts[k]} {k.replace('_', ' ')}" for k in ("borderline", "suspect", "not_checked") if counts[k]]
+    summary = (f'<p class="note">{counts["pass"]} passed, {counts["fail"]} failed, {undecided} not decided'
+               + (f" ({', '.join(detail)})" if counts["borderline"] or counts["suspect"] else "") + ".</p>")
+    if counts["borderline"] or counts["suspect"]:
+        summary += ('<p class="note">Borderline: a value within its expanded uncertainty U (k = 2) of a bound '
+                    "under guarded acceptance, proven neither inside nor outside. Suspect: a value that would pass "
+                    "but was measured at a point that did not settle or had a setpoint off, or whose result is "
+                    "flagged. Neither counts as a pass.</p>")
     return ("<h2>Limit checks</h2>" + summary
             + _table(["limit", "quantity", "bound", "where", "worst value", "outcome", "note"], rows,
                      row_classes=classes, numeric=(4,)))
+
+
+def _quality_section(run: RunData) -> str:
+    """Points that did not settle or were not verified, and flagged results (empty when none)."""
+    from benchctl.analysis.quality import point_flags, result_flags
+
+    rows = []
+    if not run.points.empty and "settled" in run.points.columns:
+        for rec in run.points.to_dict("records"):
+            flags, reason = point_flags(rec.get("settled"), rec.get("settle_info"), rec.get("settle_reason"))
+            if flags:
+                where = ", ".join(f"{k} = {rec[k]:g}" for k in ("vin_set_v", "iout_set_a")
+                                  if isinstance(rec.get(k), (int, float)))
+                rows.append([esc(f"point {rec.get('seq', '')}"), esc(where), esc(", ".join(flags)), esc(reason)])
+    n_points = len(rows)
+    if not run.results.empty and "details" in run.results.columns:
+        for _, r in run.results.iterrows():
+            if str(r["name"]).startswith("limit:"):
+                continue
+            flags, reason = result_flags(r.get("details"))
+            if flags:
+                rows.append([esc(f"result {r['name']}"), esc(scope_text(r.get("scope"))), esc(", ".join(flags)),
+                             esc(reason)])
+    if not rows:
+        return ""
+    note = (f'<p class="note">{n_points} point(s) did not settle or had a setpoint off; {len(rows) - n_points} '
+            "derived result(s) are flagged. Their numbers may be wrong: they are drawn hollow and ringed in the "
+            "plots and no limit passes on them.</p>")
+    return "<h2>Data quality</h2>" + note + _table(["what", "where", "flags", "reason"], rows,
+                                                   row_classes=["doubtful"] * len(rows))
 
 
 def _figures_section(images: Sequence[EmbeddedImage], notes: Sequence[str], has_points: bool) -> str:
@@ -230,14 +277,17 @@ def render_html(
     i = run.info
     dut = " ".join(x for x in (i.dut_part, f"rev {i.dut_revision}" if i.dut_revision else "",
                                 f"serial {i.dut_serial}" if i.dut_serial else "") if x) or "DUT not named"
-    n_fail = sum(1 for m in run.limits if m.passed is False)
+    n_pass = sum(1 for m in run.limits if m.status == "pass")
     limit_fact = ("none stored" if not run.limits
-                  else f"{len(run.limits) - n_fail} of {len(run.limits)} passed" if n_fail
-                  else f"all {len(run.limits)} passed")
+                  else f"all {len(run.limits)} passed" if n_pass == len(run.limits)
+                  else f"{n_pass} of {len(run.limits)} passed")
+    from .plots import doubtful_points
+
+    n_doubtful = int(doubtful_points(run.points).sum())
     n_alert = 0 if run.events.empty else int(run.events["kind"].astype(str).isin(ALERT_EVENT_KINDS).sum())
     facts = [
         ("status", f'<span class="pill {esc(i.status)}">{esc(i.status)}</span>'),
-        ("points", esc(i.n_points)),
+        ("points", esc(i.n_points) + (f" ({esc(n_doubtful)} unsettled or unverified)" if n_doubtful else "")),
         ("duration", esc(_duration(i.started_utc, i.ended_utc))),
         ("limits", esc(limit_fact)),
         ("trips / errors", esc(n_alert)),
@@ -254,6 +304,7 @@ def render_html(
         facts_html,
         status_note,
         _limit_section(run.limits),
+        _quality_section(run),
         _figures_section(images, notes, has_points=not run.points.empty),
         _results_section(result_lines(run.results)),
         _events_section(run.events),

@@ -36,8 +36,12 @@ class LimitMark:
     ``quantity`` is the name of the bounded quantity as stored (``efficiency`` is a
     fraction 0..1, ``vout_v`` in V). ``min_value`` / ``max_value`` are ``None`` when
     that side is unbounded. ``passed`` is ``None`` when the check could not decide
-    (no data where the limit applies); ``note`` then says why. ``where`` is a
-    readable form of the scope the limit applies to ("" = every point).
+    (no data where the limit applies, a borderline value under guarded acceptance,
+    suspect data); ``note`` then says why and ``status`` which (``pass``, ``fail``,
+    ``borderline``, ``suspect``, ``not_checked``). ``where`` is a readable form of the
+    scope the limit applies to ("" = every point). ``uncertainty`` is the worst value's
+    expanded uncertainty U (k = 2) when stored; ``decision`` the rule (``simple`` /
+    ``guarded``).
     """
 
     name: str
@@ -49,6 +53,14 @@ class LimitMark:
     worst_value: float | None
     passed: bool | None
     note: str
+    status: str = ""
+    uncertainty: float | None = None
+    decision: str = "simple"
+
+    def __post_init__(self) -> None:
+        if not self.status:
+            object.__setattr__(self, "status", "not_checked" if self.passed is None
+                               else "pass" if self.passed else "fail")
 
     @property
     def bound_text(self) -> str:
@@ -111,6 +123,8 @@ def _mark(row: pd.Series) -> LimitMark:
         value = row.get("value")
         worst = value if value is not None and not _is_nan(value) else None
     note = pick(("reason", "note", "message"))
+    status = pick(("status",))
+    decision = pick(("decision",))
     return LimitMark(
         name=name,
         quantity=quantity,
@@ -121,7 +135,13 @@ def _mark(row: pd.Series) -> LimitMark:
         worst_value=_number(worst),
         passed=_passed(pick(_PASSED_KEYS), pick(("outcome", "status", "result_text"))),
         note="" if note is None else str(note),
+        status=str(status) if status in _STATUSES else "",
+        uncertainty=_number(pick(("uncertainty",))),
+        decision=str(decision) if decision in ("simple", "guarded") else "simple",
     )
+
+
+_STATUSES = ("pass", "fail", "borderline", "suspect", "not_checked")
 
 
 def _is_nan(x: Any) -> bool:

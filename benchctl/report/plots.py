@@ -12,6 +12,13 @@ points hollow markers on a dotted line of the same colour.
 
 Efficiency is Pout/Pin and loss Pin - Pout (common practice; see
 :mod:`benchctl.analysis.efficiency`); efficiency is shown in percent.
+
+Given the run's results frame (``results=``), the per-point figures are drawn with error
+bars of their expanded uncertainty U (k = 2, JCGM 100:2008 6.2.1), taken from the
+results of the same point (``scope["seq"]``): ``efficiency``, ``loss_w`` and, for the
+output voltage, ``vout_deviation_pct`` (U in % of the nominal voltage). Points that did
+not settle or whose setpoints were not verified (``settled`` false) are drawn hollow and
+ringed, with a legend entry that counts them.
 """
 
 from __future__ import annotations
@@ -29,6 +36,7 @@ from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
 
 from benchctl.analysis.efficiency import efficiency, loss_w
+from benchctl.analysis.quality import point_flags
 
 from . import style
 from .limit_marks import LimitMark
@@ -95,6 +103,63 @@ def _amps(a: float) -> str:
     return f"{a:.3g} A"
 
 
+def point_uncertainty(results: pd.DataFrame | None, name: str, points: pd.DataFrame, scale: float = 1.0) -> pd.Series:
+    """The expanded uncertainty U (k = 2) of result ``name`` at every point (index of
+    ``points``), times ``scale``; NaN where none is stored."""
+    out = pd.Series(np.nan, index=points.index, dtype=float)
+    if (results is None or results.empty or "expanded_uncertainty" not in results.columns
+            or "seq" not in points.columns):
+        return out
+    sel = results[(results["name"] == name) & results["expanded_uncertainty"].notna()]
+    by_seq: dict[int, float] = {}
+    for _, r in sel.iterrows():
+        scope = r.get("scope")
+        if isinstance(scope, Mapping) and "seq" in scope:
+            by_seq[int(scope["seq"])] = float(r["expanded_uncertainty"]) * scale
+    if by_seq:
+        out = pd.Series([by_seq.get(int(q), np.nan) for q in points["seq"]], index=points.index, dtype=float)
+    return out
+
+
+def doubtful_points(points: pd.DataFrame) -> pd.Series:
+    """True for every point that did not settle or whose setpoints were not verified."""
+    if points.empty or "settled" not in points.columns:
+        return pd.Series(False, index=points.index, dtype=bool)
+    info = points["settle_info"] if "settle_info" in points.columns else pd.Series(None, index=points.index)
+    reason = points["settle_reason"] if "settle_reason" in points.columns else pd.Series("", index=points.index)
+    return pd.Series([bool(point_flags(s, i, r)[0]) for s, i, r in zip(points["settled"], info, reason)],
+                     index=points.index, dtype=bool)
+
+
+def _mark_doubtful(ax: Axes, points: pd.DataFrame, x: pd.Series, y: pd.Series, colours: Mapping[float, str]) -> int:
+    """Draw unsettled/unverified points hollow, ringed; returns how many were drawn."""
+    bad = doubtful_points(points) & x.notna() & y.notna()
+    if not bad.any():
+        return 0
+    key = _line_key(points)
+    for idx in points.index[bad]:
+        colour = colours.get(float(key[idx]), style.MUTED_INK)
+        ax.plot([x[idx]], [y[idx]], linestyle="none", marker="o", markersize=style.MARKER_SIZE_PT,
+                markerfacecolor=style.BACKGROUND, markeredgecolor=colour, markeredgewidth=1.2, label="_nolegend_",
+                zorder=4)
+    ax.plot(x[bad].to_numpy(float), y[bad].to_numpy(float), color=style.DOUBTFUL_INK, label="_nolegend_", zorder=5,
+            **style.DOUBTFUL_RING)
+    return int(bad.sum())
+
+
+def _quality_handles(n_doubtful: int, has_error_bars: bool) -> tuple[list[Line2D], list[str]]:
+    handles: list[Line2D] = []
+    labels: list[str] = []
+    if has_error_bars:
+        handles.append(Line2D([], [], color=style.MUTED_INK, linewidth=style.ERRORBAR_WIDTH_PT, marker="|",
+                              markersize=8, linestyle="-"))
+        labels.append("error bar: ±U (k = 2)")
+    if n_doubtful:
+        handles.append(Line2D([], [], color=style.DOUBTFUL_INK, **style.DOUBTFUL_RING))
+        labels.append(f"unsettled or unverified ({n_doubtful})")
+    return handles, labels
+
+
 def _pass_legend(ax: Axes, extra_handles: list[Line2D], extra_labels: list[str], has_descending: bool, title: str) -> None:
     handles, labels = ax.get_legend_handles_labels()
     handles, labels = list(handles) + extra_handles, list(labels) + extra_labels
@@ -119,9 +184,10 @@ def _draw_by_line(
     *,
     label_prefix: str = "",
     linestyle: Any = None,
+    yerr: pd.Series | None = None,
 ) -> bool:
-    """Draw one curve per line voltage (ascending and descending passes apart).
-    Returns True when descending-pass points were drawn."""
+    """Draw one curve per line voltage (ascending and descending passes apart), with error
+    bars ``yerr`` (same index; NaN: none). Returns True when descending-pass points were drawn."""
     key = _line_key(points)
     tags = _tags(points)
     drew_descending = False
@@ -141,6 +207,12 @@ def _draw_by_line(
                 color=colour, linewidth=style.LINE_WIDTH_PT if tag == ASCENDING else 1.2,
                 markersize=style.MARKER_SIZE_PT, markeredgewidth=1.2, label=label, **kwargs,
             )
+            if yerr is not None:
+                bars = sel & yerr.notna()
+                if bars.any():
+                    ax.errorbar(x[bars].to_numpy(float), y[bars].to_numpy(float), yerr=yerr[bars].to_numpy(float),
+                                fmt="none", ecolor=colour, elinewidth=style.ERRORBAR_WIDTH_PT,
+                                capsize=style.ERRORBAR_CAPSIZE_PT, label="_nolegend_")
             drew_descending |= tag == DESCENDING
     return drew_descending
 
@@ -213,8 +285,12 @@ def efficiency_vs_load(
     run_id: int | None = None,
     other_points: pd.DataFrame | None = None,
     other_run_id: int | None = None,
+    results: pd.DataFrame | None = None,
 ) -> Figure:
     """Efficiency (%) against output current (A), one curve per line voltage.
+
+    With ``results`` the efficiency's U (k = 2) is drawn as error bars; unsettled or
+    unverified points are hollow and ringed.
 
     ``other_points`` (a second run's point frame) is drawn dashed in the same colours,
     its curves labelled with ``other_run_id``; the first run's curves are then labelled
@@ -227,7 +303,9 @@ def efficiency_vs_load(
     colours = _colours_for(vins)
     kept, eta = _efficiency_pct(points)
     prefix = f"run {run_id} · " if comparing and run_id is not None else ("this run · " if comparing else "")
-    has_desc = _draw_by_line(ax, kept, _load_x(kept), eta, colours, label_prefix=prefix)
+    u = point_uncertainty(results, "efficiency", kept, 100.0)
+    has_desc = _draw_by_line(ax, kept, _load_x(kept), eta, colours, label_prefix=prefix, yerr=u)
+    n_bad = _mark_doubtful(ax, kept, _load_x(kept), eta, colours)
     if comparing:
         o_kept, o_eta = _efficiency_pct(other_points)
         o_prefix = f"run {other_run_id} · " if other_run_id is not None else "other run · "
@@ -238,25 +316,28 @@ def efficiency_vs_load(
     ax.set_xlim(left=0)
     draw_limits(ax, limits, {"efficiency": 100.0, "efficiency_pct": 1.0}, " %")
     style.set_title(ax, "Efficiency against load", _subtitle(run_id, other_run_id if comparing else None))
-    _pass_legend(ax, [], [], has_desc, "line voltage")
+    _pass_legend(ax, *_quality_handles(n_bad, bool(u.notna().any())), has_desc, "line voltage")
     return fig
 
 
 @_styled
-def loss_vs_load(points: pd.DataFrame, *, limits: Sequence[LimitMark] = (), run_id: int | None = None) -> Figure:
+def loss_vs_load(points: pd.DataFrame, *, limits: Sequence[LimitMark] = (), run_id: int | None = None,
+                 results: pd.DataFrame | None = None) -> Figure:
     """Power loss Pin - Pout (W) against output current (A), one curve per line voltage.
-    Limits on ``loss_w`` are drawn."""
+    Limits on ``loss_w`` are drawn; with ``results`` its U (k = 2) as error bars."""
     fig, (ax,) = style.new_figure()
     colours = _colours_for(line_voltages_v(points))
     loss = pd.Series(loss_w(points["pout_w"], points["pin_w"]), index=points.index)
-    has_desc = _draw_by_line(ax, points, _load_x(points), loss, colours)
+    u = point_uncertainty(results, "loss_w", points)
+    has_desc = _draw_by_line(ax, points, _load_x(points), loss, colours, yerr=u)
+    n_bad = _mark_doubtful(ax, points, _load_x(points), loss, colours)
     ax.set_xlabel("output current (A)")
     ax.set_ylabel("loss, Pin − Pout (W)")
     ax.set_xlim(left=0)
     ax.set_ylim(bottom=min(0.0, float(np.nanmin(loss.to_numpy(float))) if loss.notna().any() else 0.0))
     draw_limits(ax, limits, {"loss_w": 1.0}, " W")
     style.set_title(ax, "Loss against load", _subtitle(run_id))
-    _pass_legend(ax, [], [], has_desc, "line voltage")
+    _pass_legend(ax, *_quality_handles(n_bad, bool(u.notna().any())), has_desc, "line voltage")
     return fig
 
 
@@ -267,14 +348,18 @@ def vout_vs_load(
     limits: Sequence[LimitMark] = (),
     vout_nom_v: float | None = None,
     run_id: int | None = None,
+    results: pd.DataFrame | None = None,
 ) -> Figure:
     """Output voltage (V) against output current (A), one curve per line voltage (load
-    regulation). ``vout_nom_v`` is drawn as a thin grey reference; limits on ``vout_v``."""
+    regulation). ``vout_nom_v`` is drawn as a thin grey reference; limits on ``vout_v``;
+    with ``results`` and ``vout_nom_v`` the U of ``vout_deviation_pct`` as error bars (V)."""
     fig, (ax,) = style.new_figure()
     colours = _colours_for(line_voltages_v(points))
-    has_desc = _draw_by_line(ax, points, _load_x(points), points["vout_v"].astype(float), colours)
-    extra_h: list[Line2D] = []
-    extra_l: list[str] = []
+    vout = points["vout_v"].astype(float)
+    u = point_uncertainty(results, "vout_deviation_pct", points, (vout_nom_v or 0.0) / 100.0)
+    has_desc = _draw_by_line(ax, points, _load_x(points), vout, colours, yerr=u if vout_nom_v else None)
+    n_bad = _mark_doubtful(ax, points, _load_x(points), vout, colours)
+    extra_h, extra_l = _quality_handles(n_bad, bool(vout_nom_v) and bool(u.notna().any()))
     if vout_nom_v is not None:
         ax.axhline(vout_nom_v, color=style.REFERENCE_INK, linewidth=1.0, linestyle=(0, (2, 2)), label="_nolegend_")
         extra_h.append(Line2D([], [], color=style.REFERENCE_INK, linewidth=1.0, linestyle=(0, (2, 2))))
@@ -308,15 +393,18 @@ def vout_vs_line(
     limits: Sequence[LimitMark] = (),
     vout_nom_v: float | None = None,
     run_id: int | None = None,
+    results: pd.DataFrame | None = None,
 ) -> Figure:
     """Output voltage (V) against input voltage (V) at up to five load setpoints (line
-    regulation), darker for heavier load. Descending-pass points are hollow."""
+    regulation), darker for heavier load. Descending-pass points are hollow; unsettled or
+    unverified points hollow and ringed; with ``results`` and ``vout_nom_v`` error bars of U."""
     fig, (ax,) = style.new_figure()
     loads = representative_loads_a(points)
     x = _line_x(points)
     y = points["vout_v"].astype(float)
     tags = _tags(points)
     has_desc = False
+    u = point_uncertainty(results, "vout_deviation_pct", points, (vout_nom_v or 0.0) / 100.0)
     ramp = LOAD_RAMP[-len(loads):] if loads else ()
     for k, (colour, iout) in enumerate(zip(ramp, loads)):
         for tag, pass_style in ((ASCENDING, style.ASCENDING_STYLE), (DESCENDING, style.DESCENDING_STYLE)):
@@ -328,9 +416,15 @@ def vout_vs_line(
             ax.plot(x[sel].to_numpy(float)[order], y[sel].to_numpy(float)[order], color=colour,
                     linewidth=style.LINE_WIDTH_PT if tag == ASCENDING else 1.2, markersize=style.MARKER_SIZE_PT,
                     markeredgewidth=1.2, label=_amps(iout) if tag == ASCENDING else "_nolegend_", **kwargs)
+            bars = sel & u.notna()
+            if vout_nom_v and bars.any():
+                ax.errorbar(x[bars].to_numpy(float), y[bars].to_numpy(float), yerr=u[bars].to_numpy(float), fmt="none",
+                            ecolor=colour, elinewidth=style.ERRORBAR_WIDTH_PT, capsize=style.ERRORBAR_CAPSIZE_PT,
+                            label="_nolegend_")
             has_desc |= tag == DESCENDING
-    extra_h: list[Line2D] = []
-    extra_l: list[str] = []
+    shown = points["iout_set_a"].astype(float).isin(loads)
+    n_bad = _mark_doubtful(ax, points[shown], x[shown], y[shown], {})
+    extra_h, extra_l = _quality_handles(n_bad, bool(vout_nom_v) and bool(u[shown].notna().any()))
     if vout_nom_v is not None:
         ax.axhline(vout_nom_v, color=style.REFERENCE_INK, linewidth=1.0, linestyle=(0, (2, 2)), label="_nolegend_")
         extra_h.append(Line2D([], [], color=style.REFERENCE_INK, linewidth=1.0, linestyle=(0, (2, 2))))

@@ -21,13 +21,17 @@ from .limit_marks import LIMIT_PREFIX
 @dataclass(frozen=True)
 class ResultLine:
     """One line of the results table. ``value_text`` is ``"not found"`` (with ``note``
-    giving the stored reason) when the result has no value."""
+    giving the stored reason) when the result has no value, and carries ``± U`` (the
+    expanded uncertainty, k = 2) when one is stored; a per-point series shows the largest
+    U of its points. ``flags`` are the quality flags of the result (or of any point of a
+    series), the note saying why."""
 
     name: str
     value_text: str
     unit: str
     scope_text: str
     note: str
+    flags: tuple[str, ...] = ()
 
 
 def format_value(value: float | None, unit: str = "") -> str:
@@ -48,6 +52,9 @@ def _note(details: Any) -> str:
     if not isinstance(details, Mapping):
         return "" if details is None else str(details)
     parts = []
+    if details.get("flags"):
+        parts.append(f"flagged {', '.join(str(f) for f in details['flags'])}"
+                     + (f": {details['flag_reasons']}" if details.get("flag_reasons") else ""))
     for key in ("reason", "definition", "note", "source"):
         if details.get(key):
             parts.append(str(details[key]))
@@ -60,6 +67,8 @@ def result_lines(results: pd.DataFrame) -> list[ResultLine]:
         return []
     lines: list[ResultLine] = []
     per_point: dict[str, list[float]] = {}
+    per_point_u: dict[str, list[float]] = {}
+    per_point_flags: dict[str, int] = {}
     per_point_unit: dict[str, str] = {}
     order: list[tuple[str, int]] = []  # ("series", name) or ("row", index)
     for idx, row in results.iterrows():
@@ -70,9 +79,14 @@ def result_lines(results: pd.DataFrame) -> list[ResultLine]:
         if isinstance(scope, Mapping) and "seq" in scope:
             if name not in per_point:
                 per_point[name] = []
+                per_point_u[name] = []
+                per_point_flags[name] = 0
                 per_point_unit[name] = str(row.get("unit", "") or "")
                 order.append((name, -1))
             per_point[name].append(float(row["value"]))
+            per_point_u[name].append(_u(row))
+            details = row.get("details")
+            per_point_flags[name] += bool(isinstance(details, Mapping) and details.get("flags"))
         else:
             order.append((name, int(idx)))
     for name, idx in order:
@@ -83,11 +97,32 @@ def result_lines(results: pd.DataFrame) -> list[ResultLine]:
                 text = f"{finite.min():.6g} … {finite.max():.6g}"
             else:
                 text = "not found"
+            us = np.asarray(per_point_u[name], dtype=float)
+            if np.isfinite(us).any():
+                text += f" (U ≤ {np.nanmax(us):.2g})"
+            notes = [] if finite.size == values.size else [f"{values.size - finite.size} points without a value"]
+            if per_point_flags[name]:
+                notes.append(f"{per_point_flags[name]} point(s) flagged unsettled or unverified")
             lines.append(ResultLine(name, text, per_point_unit[name], f"per point ({values.size} points): min … max",
-                                    "" if finite.size == values.size else f"{values.size - finite.size} points without a value"))
+                                    "; ".join(notes), ("flagged",) if per_point_flags[name] else ()))
             continue
         row = results.loc[idx]
         value = row["value"]
-        lines.append(ResultLine(name, format_value(None if pd.isna(value) else float(value)),
-                                str(row.get("unit", "") or ""), scope_text(row.get("scope")), _note(row.get("details"))))
+        text = format_value(None if pd.isna(value) else float(value))
+        u = _u(row)
+        if math.isfinite(u) and not pd.isna(value):
+            text += f" ± {u:.2g}"
+        details = row.get("details")
+        flags = tuple(details.get("flags") or ()) if isinstance(details, Mapping) else ()
+        lines.append(ResultLine(name, text, str(row.get("unit", "") or ""), scope_text(row.get("scope")),
+                                _note(details), flags))
     return lines
+
+
+def _u(row: Any) -> float:
+    """The expanded uncertainty U (k = 2) of a result row, NaN when none."""
+    try:
+        u = float(row.get("expanded_uncertainty"))
+    except (TypeError, ValueError):
+        return math.nan
+    return u if math.isfinite(u) else math.nan

@@ -54,6 +54,15 @@ ASCENDING_STYLE: Final = {"linestyle": "-", "marker": "o", "fillstyle": "full"}
 DESCENDING_STYLE: Final = {"linestyle": ":", "marker": "D", "fillstyle": "none"}
 COMPARE_LINESTYLE: Final = (0, (5, 3))  # second run of a comparison: dashed
 
+# Points that did not settle or whose setpoints were not verified: the data marker is drawn
+# hollow and ringed in a dark amber (6:1 against white, WCAG 2.1 1.4.11), never the limit ink.
+DOUBTFUL_INK: Final = "#8a5a00"
+DOUBTFUL_RING: Final = {"linestyle": "none", "marker": "o", "fillstyle": "none", "markersize": 12.0,
+                        "markeredgewidth": 1.5}
+# Error bars: the expanded uncertainty U (k = 2) of the plotted figure.
+ERRORBAR_WIDTH_PT: Final = 1.0
+ERRORBAR_CAPSIZE_PT: Final = 2.5
+
 _RC: Final = {
     "font.family": FONT_FAMILY,
     "font.size": LABEL_SIZE_PT,
