@@ -67,7 +67,11 @@ def build_parser() -> argparse.ArgumentParser:
                    help="bundled procedure name (see `benchctl procedures`) or a .py path (not with --resume)")
     p.add_argument("--station", required=True, metavar="FILE", help="station file (TOML)")
     p.add_argument("--resume", metavar="RUN", default=None,
-                   help="continue an interrupted or tripped run from its last committed point, into the same run")
+                   help="continue an interrupted or tripped run from its last committed point, into the same run "
+                        "(its parameters and DUT stay as recorded; the station must be the one it began on)")
+    p.add_argument("--accept-station-change", action="store_true",
+                   help="with --resume: go on although the station (limits, watch period, instruments) differs from "
+                        "the run's record; the change is stored with the run")
     p.add_argument("--list", action="store_true",
                    help="list the planned operating points and the estimated duration; touch no instrument")
     p.add_argument("--limits", metavar="FILE", default=None, help="check the run against these spec limits at the end")
@@ -118,6 +122,21 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--station", dest="station_name", default=None, help="only runs on this station")
     p.add_argument("--limit", type=int, default=50, help="at most this many (newest first)")
     p.add_argument("--json", action="store_true")
+
+    p = sub.add_parser("mark-interrupted",
+                       help="mark a run left 'running' by a process that is gone (another host, a renamed machine, "
+                            "a removed container) as interrupted, so it can be resumed or exported",
+                       description="Marks a run interrupted when all of these hold: it is not a live process of this "
+                                   "host; nothing of it (no point, no event) was stored for --silent-min minutes; on "
+                                   "a shared PostgreSQL database its station's lock is not held (and, with --station, "
+                                   "its lock file is not held). Asks for a confirmation unless --yes; stores an event.")
+    p.add_argument("run", help="run id or 'latest'")
+    _add_db(p)
+    p.add_argument("--station", dest="lock_station", default=None, metavar="FILE",
+                   help="the run's station file: its lock file is checked too, and its station.database used")
+    p.add_argument("--silent-min", type=float, default=10.0, metavar="MINUTES",
+                   help="how long the run must have stored nothing (default 10 minutes)")
+    p.add_argument("--yes", action="store_true", help="do not ask for a confirmation (scripts)")
 
     p = sub.add_parser("show", help="show one run: provenance, events, results")
     p.add_argument("run", help="run id or 'latest'")

@@ -11,7 +11,8 @@ the boundary where they happen, and chained with ``raise ... from exc``.
     ├── ConfigurationError          station, plan, limits, parameter files and values
     │   ├── StationFileError
     │   ├── ParameterError
-    │   └── LimitsFileError
+    │   ├── LimitsFileError
+    │   └── StationChangedError     a resume on a station other than the run's record
     ├── InstrumentError             anything an instrument did or failed to do
     │   ├── InstrumentConnectionError   resource unreachable, connection dropped
     │   ├── InstrumentTimeout           no answer within the timeout
@@ -22,7 +23,10 @@ the boundary where they happen, and chained with ``raise ... from exc``.
     │   ├── SetpointRefused             a setpoint outside the station limits (not sent)
     │   └── InterlockTrip               a reading crossed a limit; outputs were turned off
     ├── StoreError
-    │   └── SchemaVersionError
+    │   ├── SchemaVersionError
+    │   ├── StoreFullError          the disk (or the database's size limit) is full
+    │   └── StoreReadOnlyError      a write to a store opened read-only
+    ├── StationBusyError            the station is held by another run (nothing was opened)
     ├── ProcedureError              a procedure script that cannot be loaded or run
     └── AnalysisInputError          data given to analysis that cannot be used (CSV files)
 """
@@ -54,6 +58,10 @@ class ParameterError(ConfigurationError):
 
 class LimitsFileError(ConfigurationError):
     """A spec-limits file cannot be used."""
+
+
+class StationChangedError(ConfigurationError):
+    """A resume was asked on a station whose limits or instruments differ from the run's record."""
 
 
 class InstrumentError(BenchctlError):
@@ -126,6 +134,22 @@ class StoreError(BenchctlError):
 
 class SchemaVersionError(StoreError):
     """The database was written by a different schema version."""
+
+
+class StoreFullError(StoreError):
+    """A write failed because the disk holding the database (or its size limit) is full."""
+
+
+class StoreReadOnlyError(StoreError):
+    """A write was asked of a store opened read-only (a read-only medium or file)."""
+
+
+class StationBusyError(BenchctlError):
+    """Another run (or job) holds the station; ``holder`` says who. Nothing was opened or switched."""
+
+    def __init__(self, message: str, *, holder: object = None) -> None:
+        self.holder = holder
+        super().__init__(message)
 
 
 class ProcedureError(BenchctlError):

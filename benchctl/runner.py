@@ -24,6 +24,7 @@ from benchctl.guarded import guard
 from benchctl.interlock import Interlock
 from benchctl.procedure import Parameters, Procedure
 from benchctl.station import Station
+from benchctl.station_lock import one_run_per_station
 
 logger = logging.getLogger(__name__)
 
@@ -69,6 +70,7 @@ def _program_protection(drivers: Mapping[str, Any], station: Station) -> None:
         load.set_power_protection(lim.load_power_max_w)
 
 
+@one_run_per_station  # a second run on this station is refused before any instrument is opened
 def execute(
     procedure: Procedure,
     params: Parameters,
@@ -82,6 +84,7 @@ def execute(
     on_begin: Callable[[int], None] | None = None,
     job_id: int | None = None,
     resume_run_id: int | None = None,
+    accept_station_change: bool = False,
 ) -> RunOutcome:
     """Run ``procedure`` on ``station`` into ``store`` and return how it ended.
 
@@ -91,12 +94,14 @@ def execute(
     """
     station.require_roles(procedure.roles, needed_by=f"procedure {procedure.name}")
     started = time.monotonic()
+    if resume_run_id is not None and _resume_is_complete(store, procedure, params, resume_run_id):
+        return _finish_complete_resume(store, procedure, params, resume_run_id, started)
     drivers = _open_instruments(station, procedure.roles)
     interlock = Interlock(station.limits, watch_period_s=station.watch_period_s)
     interlock.attach_outputs(drivers.get("source"), drivers.get("load"))
     try:
         start = _run_start(procedure, params, station, drivers, dut, operator, job_id)
-        run_id, skip_points = _begin_or_resume(store, start, resume_run_id)
+        run_id, skip_points = _begin_or_resume(store, start, resume_run_id, accept_station_change)
     except BaseException:
         _close_all(drivers)
         raise
@@ -160,18 +165,64 @@ def _run_start(procedure: Procedure, params: Parameters, station: Station, drive
     )
 
 
-def _begin_or_resume(store: Any, start: Any, resume_run_id: int | None) -> tuple[int, int]:
-    """(run id, committed points to skip): a new run, or the resumed one reopened with a gap event."""
+def _begin_or_resume(store: Any, start: Any, resume_run_id: int | None,
+                     accept_station_change: bool = False) -> tuple[int, int]:
+    """(run id, committed points to skip): a new run, or the resumed one reopened with a gap event.
+
+    A resume first compares the station it runs on with the run's record
+    (:mod:`benchctl.resume_check`) - before any instrument is reset or switched - and refuses
+    a difference unless ``accept_station_change``; an accepted change is stored with the run.
+    """
     if resume_run_id is None:
         return store.begin_run(start), 0
-    points = store.points(resume_run_id)
-    if "plan_index" in points.columns and points["plan_index"].notna().any():
-        skip_points = int(points["plan_index"].max()) + 1  # planned points done (several records each, maybe)
-    else:
-        skip_points = len(points)
+    from benchctl.errors import StationChangedError
+    from benchctl.resume_check import station_differences
+
+    info = store.run(resume_run_id)
+    changes = station_differences(info.station_text, info.instruments, start.station_text, start.instruments)
+    if changes and not accept_station_change:
+        raise StationChangedError(
+            f"run {resume_run_id} cannot be resumed on station {start.station_name!r} as it is now: it differs from "
+            f"the station the run began on ({len(changes)} difference(s)); nothing was reset or switched. Put the "
+            "station back as it was, or resume with --accept-station-change (accept_station_change=True) to go on "
+            "with the change stored as part of the run", [c.text() for c in changes])
+    skip_points = _planned_points_done(store, resume_run_id)
     store.reopen_run(resume_run_id, f"resumed after {skip_points} committed points; instruments re-identified: "
                      + "; ".join(f"{i.role}={i.identity}" for i in start.instruments))
+    if changes:
+        store.record_station_change(resume_run_id, start, [c.as_dict() for c in changes])
     return resume_run_id, skip_points
+
+
+def _planned_points_done(store: Any, run_id: int) -> int:
+    """How many planned points of ``run_id`` are committed (the first planned point not yet measured)."""
+    points = store.points(run_id)
+    if "plan_index" in points.columns and points["plan_index"].notna().any():
+        return int(points["plan_index"].max()) + 1  # planned points done (several records each, maybe)
+    return len(points)
+
+
+def _resume_is_complete(store: Any, procedure: Procedure, params: Parameters, run_id: int) -> bool:
+    """True when every planned point of the run to resume is already committed."""
+    return _planned_points_done(store, run_id) >= len(procedure.plan(params))
+
+
+def _finish_complete_resume(store: Any, procedure: Procedure, params: Parameters, run_id: int,
+                            started: float) -> RunOutcome:
+    """Resume a run whose planned points are all committed: its analysis is finished and the run
+    completed, without opening any instrument (nothing is reset, nothing switched on)."""
+    planned = len(procedure.plan(params))
+    message = (f"all {planned} planned points were already committed; the analysis was finished without "
+               "opening any instrument")
+    store.reopen_run(run_id, message)
+    if procedure.analyse is not None:
+        try:
+            store_results(store, run_id, procedure, params)
+        except Exception as exc:
+            logger.exception("analysis of run %s failed", run_id)
+            store.record_event(run_id, "error", f"analysis failed: {type(exc).__name__}: {exc}", {})
+    store.end_run(run_id, "completed", "")
+    return RunOutcome(run_id, "completed", message, store.run(run_id).n_points, time.monotonic() - started)
 
 
 def _bench_for(store: Any, run_id: int, drivers: Mapping[str, Any], interlock: Interlock, settle_enabled: bool,

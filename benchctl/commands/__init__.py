@@ -19,6 +19,7 @@ _MODULES = {
     "procedures": "benchctl.commands.run",
     "runs": "benchctl.commands.data",
     "show": "benchctl.commands.data",
+    "mark-interrupted": "benchctl.commands.data",
     "export": "benchctl.commands.data",
     "report": "benchctl.commands.report",
     "check": "benchctl.commands.check",

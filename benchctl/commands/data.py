@@ -11,7 +11,7 @@ from pathlib import Path
 from rich.markup import escape
 from rich.table import Table
 
-from benchctl.cli import EXIT_OK
+from benchctl.cli import EXIT_FAILED, EXIT_OK
 from benchctl.commands.stores import open_existing_store as _open
 from benchctl.commands.console import Column, console, fitted_table, print_fitted
 from benchctl.commands.summary import print_run_summary
@@ -157,4 +157,95 @@ def cmd_export(args: argparse.Namespace) -> int:
             console().print(f"wrote {what} of run {run_id} to {args.out}")
         else:
             sys.stdout.write(text)
+    return EXIT_OK
+
+
+def _age(seconds: float) -> str:
+    if seconds < 120:
+        return f"{seconds:.0f} s"
+    if seconds < 7200:
+        return f"{seconds / 60:.0f} min"
+    return f"{seconds / 3600:.1f} h"
+
+
+def _lock_holder_of_other_run(holder, run_id: int) -> bool:
+    """True when a station lock is held by a run other than ``run_id`` (so ``run_id`` is not running)."""
+    other = getattr(holder, "run_id", None)
+    return other is not None and int(other) != int(run_id)
+
+
+def cmd_mark_interrupted(args: argparse.Namespace) -> int:
+    """``benchctl mark-interrupted RUN``: the rule is in the command's description (cli.py)."""
+    import getpass
+    import socket
+
+    from benchctl.commands.stores import existing_store_url
+    from benchctl.errors import ConfigurationError, StationBusyError
+    from benchctl.locations import default_db
+    from benchctl.store import Store
+
+    station = None
+    if args.lock_station:
+        from benchctl.station import load_station
+
+        station = load_station(args.lock_station)
+    url = existing_store_url(args.db or (station.database if station is not None else None) or default_db())
+    with Store.open(url) as store:
+        run_id = store.resolve_run(args.run)
+        live = store.run_liveness(run_id)
+        if live.status != "running":
+            how = " when the store was just opened (its process on this host is gone)" \
+                if run_id in store.recovered_runs else ""
+            raise ConfigurationError(f"run {run_id} is {live.status}{how}, not running; nothing to mark. "
+                                     + ("Resume it with `benchctl run --resume "
+                                        f"{run_id} --station FILE`" if live.status in ("interrupted", "tripped") else ""))
+        where = f"host {live.host}, pid {live.pid}"
+        if live.this_host and live.process_alive:
+            raise ConfigurationError(
+                f"run {run_id} is running: its process ({where}) is alive on this host. Stop it where it runs "
+                f"(Ctrl-C in its terminal, or `kill -TERM {live.pid}`); it then ends as interrupted by itself")
+        holder = store.station_lock_holder(live.station_name)
+        if holder is not None and not _lock_holder_of_other_run(holder, run_id):
+            raise ConfigurationError(
+                f"run {run_id} may still be running: the lock of station {live.station_name!r} in {store.url} is held "
+                f"(database session {holder.session_pid}, {holder.label or 'no label'}); a live run holds it for its "
+                "whole life. Stop that run where it runs, or wait until its session is gone")
+        if station is not None:
+            from benchctl.station_lock import hold_station
+
+            try:
+                hold_station(station, None, what="a check by mark-interrupted").release()
+            except StationBusyError as exc:
+                if not _lock_holder_of_other_run(exc.holder, run_id):
+                    raise ConfigurationError(f"run {run_id} may still be running: {exc}") from exc
+        if live.silent_s < args.silent_min * 60:
+            raise ConfigurationError(
+                f"run {run_id} ({where}) stored its last point or event {_age(live.silent_s)} ago, less than "
+                f"--silent-min {args.silent_min:g} min: it may still be running there. If you know its process is "
+                "gone, give a shorter --silent-min")
+        checked = "alive: no" if live.this_host else f"not checked (host {live.host} is not this host)"
+        summary = (f"run {run_id} on station {live.station_name!r} ({where}): still marked running, nothing stored "
+                   f"for {_age(live.silent_s)}; its process: {checked}")
+        console().print(escape(summary))
+        if not args.yes:
+            if not sys.stdin.isatty():
+                raise ConfigurationError(f"run {run_id} not marked: give --yes to confirm without a terminal")
+            answer = input(f"mark run {run_id} interrupted? [y/N] ").strip().lower()
+            if answer not in ("y", "yes"):
+                console().print("nothing changed")
+                return EXIT_FAILED
+        try:
+            operator = getpass.getuser()
+        except (KeyError, OSError):
+            operator = ""
+        reason = (f"marked by {operator or '?'}@{socket.gethostname()}: no point or event for {_age(live.silent_s)} "
+                  f"(rule: at least {args.silent_min:g} min), process {where} "
+                  + ("gone" if live.this_host else "on another host, not checked"))
+        store.mark_interrupted(run_id, reason=reason, expected_last_activity_utc_s=live.last_activity_utc_s, details={
+            "marked_by": "benchctl mark-interrupted", "operator": operator, "marked_on_host": socket.gethostname(),
+            "run_host": live.host, "run_pid": live.pid, "silent_s": round(live.silent_s, 3),
+            "silent_min_rule": args.silent_min, "process_alive": live.process_alive,
+            "confirmed": "--yes" if args.yes else "at the terminal"})
+        console().print(f"run {run_id} marked interrupted; resume it with `benchctl run --resume {run_id} "
+                        "--station FILE`, or export it")
     return EXIT_OK

@@ -37,6 +37,7 @@ def cmd_job(args: argparse.Namespace) -> int:
             load_limits(step.limits_file)
         prepared.append((step, procedure, params))
     store = open_store(args.db or station.database)
+    hold = None
     try:
         if args.list:
             total = 0.0
@@ -50,6 +51,10 @@ def cmd_job(args: argparse.Namespace) -> int:
             console().print(f"job {job.name!r}: {len(prepared)} step(s); estimated total "
                             + ("unknown for some steps; known part " if unknown else "") + f"{total:.0f} s")
             return EXIT_OK
+        from benchctl.station_lock import hold_station
+
+        # The job holds its station for all its steps: no other run slips in between two of them.
+        hold = hold_station(station, store, what=f"job {job.name}")
         job_id = store.begin_job(job.name, station.name)  # the database assigns it: unique across stations
         dut = DutInfo(job.dut_part, job.dut_revision, job.dut_serial)
         rows = []
@@ -85,4 +90,6 @@ def cmd_job(args: argparse.Namespace) -> int:
             codes.append(EXIT_INTERRUPTED)
         return next(c for c in _SEVERITY if c in codes) if codes else EXIT_OK
     finally:
+        if hold is not None:
+            hold.release()
         store.close()

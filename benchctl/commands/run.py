@@ -71,7 +71,8 @@ class _ProgressView:
 
 
 def run_procedure(procedure, params, station, store, *, dut, operator: str | None = None, settle: bool = True,
-                  quiet: bool = False, job_id: int | None = None, resume_run_id: int | None = None):
+                  quiet: bool = False, job_id: int | None = None, resume_run_id: int | None = None,
+                  accept_station_change: bool = False):
     """Check roles, show the caution when the station is hazardous, then execute with a progress view."""
     from benchctl.runner import execute
 
@@ -80,6 +81,8 @@ def run_procedure(procedure, params, station, store, *, dut, operator: str | Non
         print_caution(f"Station {station.name!r} allows up to {station.limits.source_voltage_max_v:g} V; "
                       "its file acknowledges hazardous voltage.")
     kwargs = dict(dut=dut, operator=operator, settle_enabled=settle, job_id=job_id, resume_run_id=resume_run_id)
+    if accept_station_change:
+        kwargs["accept_station_change"] = True
     if quiet:
         return execute(procedure, params, station, store, **kwargs)
     with _ProgressView(f"{procedure.name} on {station.name}") as view:
@@ -130,12 +133,38 @@ def print_plan(procedure, params, station_name: str, store) -> None:
                         f"median of {est.basis_runs} earlier run(s) on station {station_name})")
 
 
+def _check_resume_options(args) -> None:
+    """A resume keeps the parameters and DUT the run began with: options that would change them
+    are refused (they would otherwise be silently ignored); --accept-station-change needs --resume."""
+    from benchctl.errors import ConfigurationError
+
+    if not args.resume:
+        if getattr(args, "accept_station_change", False):
+            raise ConfigurationError("--accept-station-change goes with --resume RUN only")
+        return
+    given = [name for name, value in (("--set", args.sets), ("--params", args.params), ("--dut-part", args.dut_part),
+                                      ("--dut-rev", args.dut_rev), ("--dut-serial", args.dut_serial)) if value]
+    if given:
+        raise ConfigurationError(
+            f"{', '.join(given)} cannot be given with --resume: a resumed run keeps the parameters and DUT it began "
+            f"with (stored with run {args.resume}; `benchctl show {args.resume}` lists them). Start a new run to "
+            "measure with other values")
+
+
 def _resume_target(args, store):
     from benchctl.errors import ConfigurationError
     from benchctl.procedure import load_procedure
 
     run_id = store.resolve_run(args.resume)
     info = store.run(run_id)
+    if info.status == "running":
+        from benchctl.store.transfer import running_refusal
+
+        live = store.run_liveness(run_id)
+        raise ConfigurationError(
+            f"run {run_id} cannot be resumed: " + running_refusal(
+                run_id, info.host, info.pid, f"its last point or event was stored {live.silent_s:.0f} s ago; if it "
+                "is really running, wait for it to end") + ", then resume it")
     if info.status not in ("interrupted", "tripped"):
         raise ConfigurationError(f"run {run_id} is {info.status}; only interrupted or tripped runs can be resumed")
     procedure = load_procedure(args.procedure or info.procedure)
@@ -156,6 +185,7 @@ def cmd_run(args: argparse.Namespace) -> int:
     station = load_station(args.station)
     if not args.resume and not args.procedure:
         raise ConfigurationError("give a procedure to run, or --resume RUN to continue one")
+    _check_resume_options(args)
     store = open_store(args.db or station.database)
     try:
         if args.resume:
@@ -177,7 +207,8 @@ def cmd_run(args: argparse.Namespace) -> int:
 
             load_limits(args.limits)
         outcome = run_procedure(procedure, params, station, store, dut=dut, operator=args.operator,
-                                settle=not args.no_settle, quiet=args.json, resume_run_id=run_id)
+                                settle=not args.no_settle, quiet=args.json, resume_run_id=run_id,
+                                accept_station_change=args.accept_station_change)
         _report_outcome(outcome, store, args.json)
         if not args.json:
             console().print(f"data: {store.url}")

@@ -17,6 +17,11 @@ run stays ``running`` until that process ends (or ``stale_after_s`` applies).
 Each recovered run gets status ``interrupted``, ``ended_utc_s`` = its last sign of
 life, and an event of kind ``interrupted`` with the reason. Points already committed
 are untouched.
+
+A run of another host (or of this host under an earlier name, or of a container that is
+gone) is marked by hand: :func:`run_liveness` says what is known of it and
+:func:`mark_interrupted` marks it (``benchctl mark-interrupted RUN`` states the rule it
+applies and asks for a confirmation).
 """
 
 from __future__ import annotations
@@ -24,10 +29,13 @@ from __future__ import annotations
 import logging
 import os
 from collections.abc import Callable
+from dataclasses import dataclass
 from pathlib import Path
 
 from sqlalchemy import func, insert, select, update
 from sqlalchemy.engine import Connection
+
+from benchctl.errors import StoreError
 
 from . import schema as s
 from .codec import to_json
@@ -119,3 +127,76 @@ def recover_interrupted(
         log.warning("run %d marked interrupted: %s", run.id, reason)
         recovered.append(int(run.id))
     return recovered
+
+
+# ----------------------------------------------------------------------------- by hand
+@dataclass(frozen=True)
+class RunLiveness:
+    """What the store can tell of whether a run marked ``running`` still runs.
+
+    ``process_alive`` is known only for a run of this host (``None``: another host, or a host
+    under another name, so it cannot be checked from here). ``silent_s`` is the time since
+    the run's last sign of life (its start, last point or last event).
+    """
+
+    run_id: int
+    status: str
+    station_name: str
+    host: str
+    pid: int
+    last_activity_utc_s: float
+    silent_s: float
+    this_host: bool
+    process_alive: bool | None
+
+
+def run_liveness(conn: Connection, run_id: int, *, host: str, now_utc_s: float,
+                 is_alive: Callable[[int], bool] = pid_alive) -> RunLiveness:
+    """Read a run's last sign of life and, on this host, whether its process exists."""
+    row = conn.execute(
+        select(s.runs.c.id, s.runs.c.status, s.runs.c.host, s.runs.c.pid, s.runs.c.started_utc_s,
+               s.stations.c.name.label("station_name"))
+        .select_from(s.runs.join(s.stations, s.runs.c.station_id == s.stations.c.id))
+        .where(s.runs.c.id == run_id)
+    ).first()
+    if row is None:
+        raise StoreError(f"the store has no run {run_id}; list the runs with `benchctl runs`")
+    last = last_activity_utc_s(conn, run_id, row.started_utc_s)
+    same = row.host == host
+    return RunLiveness(
+        run_id=int(row.id), status=str(row.status), station_name=str(row.station_name), host=str(row.host),
+        pid=int(row.pid), last_activity_utc_s=float(last), silent_s=max(0.0, now_utc_s - last), this_host=same,
+        process_alive=is_alive(int(row.pid)) if same else None,
+    )
+
+
+def mark_interrupted(conn: Connection, run_id: int, *, reason: str, details: dict, now_utc_s: float,
+                     expected_last_activity_utc_s: float) -> None:
+    """Mark a ``running`` run interrupted by hand (in ``conn``'s transaction), with an event.
+
+    Refused (StoreError) when the run is no longer running or showed a sign of life after
+    ``expected_last_activity_utc_s`` (what the person confirming was shown).
+    """
+    row = conn.execute(select(s.runs.c.status, s.runs.c.started_utc_s).where(s.runs.c.id == run_id)).first()
+    if row is None:
+        raise StoreError(f"the store has no run {run_id}; list the runs with `benchctl runs`")
+    if row.status != RUNNING:
+        raise StoreError(f"run {run_id} is {row.status}, not running; nothing to mark")
+    last = last_activity_utc_s(conn, run_id, row.started_utc_s)
+    if last > expected_last_activity_utc_s:
+        raise StoreError(f"run {run_id} stored something new while it was being marked (its process may be alive); "
+                         "nothing was changed - look again with `benchctl show` before marking it")
+    changed = conn.execute(
+        update(s.runs).where(s.runs.c.id == run_id, s.runs.c.status == RUNNING)
+        .values(status=INTERRUPTED, ended_utc_s=last, message=f"interrupted: {reason}")
+    ).rowcount
+    if changed != 1:
+        raise StoreError(f"run {run_id} changed while it was being marked; nothing was changed")
+    last_seq = conn.execute(select(func.max(s.points.c.seq)).where(s.points.c.run_id == run_id)).scalar()
+    conn.execute(insert(s.events).values(
+        run_id=run_id, t_utc_s=now_utc_s, kind=EVENT_INTERRUPTED,
+        message=f"run marked interrupted by hand: {reason}",
+        details_json=to_json("marking details", {**details, "last_point_seq": last_seq, "last_activity_utc_s": last}),
+        point_seq=last_seq,
+    ))
+    log.warning("run %d marked interrupted by hand: %s", run_id, reason)

@@ -145,6 +145,15 @@ class Store:
         return self._url_masked
 
     @property
+    def sqlite_path(self) -> str | None:
+        """The file of a SQLite store (``None`` for an in-memory one or another engine)."""
+        from .url import is_sqlite
+
+        if not is_sqlite(self._url) or is_sqlite_memory(self._url):
+            return None
+        return str(self._url.database)
+
+    @property
     def closed(self) -> bool:
         return self._engine is None
 
@@ -236,6 +245,14 @@ class Store:
         self._require_open()
         self._writer.reopen_run(run_id, message)
 
+    def record_station_change(self, run_id: int, start: RunStart, differences: Sequence[Mapping[str, Any]]) -> None:
+        """Store that a resumed run goes on on a changed station: ``start`` (its station text,
+        description and instruments) becomes the run's provenance, and an event
+        ``station_changed`` keeps the differences and the previous station (text, hash,
+        instruments)."""
+        self._require_open()
+        self._writer.record_station_change(run_id, start, differences)
+
     def record_results(self, run_id: int, results: Any) -> int:
         """Store many derived results in one transaction; items are mappings with name,
         value and optionally unit, details, scope. Returns how many were stored."""
@@ -260,6 +277,45 @@ class Store:
         """End a running run with ``completed``, ``failed``, ``tripped`` or ``interrupted``."""
         self._require_open()
         self._writer.end_run(run_id, status, message)
+
+    # ------------------------------------------------------------ runs left running
+    def run_liveness(self, run_id: int) -> Any:
+        """What is known of whether run ``run_id`` still runs
+        (:class:`~benchctl.store.recovery.RunLiveness`: last sign of life, host, process)."""
+        from .recovery import run_liveness
+
+        return self._read(run_liveness, run_id, host=socket.gethostname(), now_utc_s=self._clock())
+
+    def mark_interrupted(self, run_id: int, *, reason: str, details: Mapping[str, Any],
+                         expected_last_activity_utc_s: float) -> None:
+        """Mark a run left ``running`` interrupted, with an event saying who did it and why;
+        refused if it showed a sign of life after ``expected_last_activity_utc_s``."""
+        from .recovery import mark_interrupted
+
+        self._require_open()
+        with self._writer.transaction(f"marking run {run_id} interrupted") as conn:
+            mark_interrupted(conn, run_id, reason=reason, details=dict(details), now_utc_s=self._clock(),
+                             expected_last_activity_utc_s=expected_last_activity_utc_s)
+
+    # ------------------------------------------------------------ station locks
+    def lock_station(self, station_name: str, label: str) -> Any:
+        """Take the station's lock in a shared database (PostgreSQL advisory lock, held on a
+        connection of its own until released): the held lock, a
+        :class:`~benchctl.store.station_locks.DatabaseLockHolder` when another session holds
+        it, or ``None`` when this engine has no such lock (SQLite)."""
+        from .station_locks import try_lock_station
+
+        return try_lock_station(self._require_open(), station_name, label, self._url_masked)
+
+    def station_lock_holder(self, station_name: str) -> Any:
+        """Who holds the station's lock in a shared database now (``None``: nobody, or SQLite)."""
+        from .station_locks import station_lock_holder
+
+        try:
+            return station_lock_holder(self._require_open(), station_name)
+        except SQLAlchemyError as exc:
+            raise StoreError(f"cannot read the station locks of {self._url_masked}: "
+                             f"{scrub(str(getattr(exc, 'orig', None) or exc), self._url)}") from exc
 
     # ------------------------------------------------------------ reading
     def resolve_run(self, ref: int | str) -> int:

@@ -268,6 +268,45 @@ class Writer:
         self._open_runs.pop(run_id, None)
         log.info("run %d resumed (was %s)", run_id, row.status)
 
+    def record_station_change(self, run_id: int, start: RunStart, differences: Any) -> None:
+        """The run's station becomes ``start``'s (text, description, instruments); the previous
+        one and the differences are kept in a ``station_changed`` event. One transaction."""
+        station_sha = _station_sha(start)
+        with self._transaction(f"storing the changed station of run {run_id}") as conn:
+            row = conn.execute(
+                select(s.runs.c.station_id, s.stations.c.station_text, s.stations.c.station_sha256,
+                       s.stations.c.description)
+                .select_from(s.runs.join(s.stations, s.runs.c.station_id == s.stations.c.id))
+                .where(s.runs.c.id == run_id)
+            ).first()
+            if row is None:
+                raise StoreError(f"store {self._where} has no run {run_id}; nothing to change")
+            before = [dict(r._mapping) for r in conn.execute(
+                select(s.instruments.c.role, s.instruments.c.driver, s.instruments.c.resource,
+                       s.instruments.c.identity).where(s.instruments.c.run_id == run_id).order_by(s.instruments.c.id))]
+            station_id = _station_id(conn, start, station_sha)
+            conn.execute(update(s.runs).where(s.runs.c.id == run_id).values(station_id=station_id))
+            conn.execute(s.instruments.delete().where(s.instruments.c.run_id == run_id))
+            if start.instruments:
+                conn.execute(insert(s.instruments), [
+                    {"run_id": run_id, "station_id": station_id, "role": i.role, "driver": i.driver,
+                     "resource": i.resource, "identity": i.identity} for i in start.instruments])
+            details = {
+                "differences": list(differences),
+                "previous_station_sha256": row.station_sha256,
+                "previous_station_description": row.description,
+                "previous_station_text": row.station_text,
+                "previous_instruments": before,
+                "station_sha256": station_sha,
+            }
+            conn.execute(insert(s.events).values(
+                run_id=run_id, t_utc_s=self._clock(), kind="station_changed",
+                message=f"resumed on a changed station ({len(differences)} difference(s)), accepted: "
+                        + "; ".join(str(d.get("key")) for d in differences),
+                details_json=to_json("station change", details),
+            ))
+        log.info("run %d: station change stored (%d differences)", run_id, len(differences))
+
     # ---------------------------------------------------------------- points
     def record_point(
         self,
