@@ -108,3 +108,14 @@ def test_stored_station_text_gives_the_accuracy_without_drivers():
     assert station_accuracy_from_text(BASE) == {}
     with pytest.raises(StationFileError, match="instruments.input_meter.accuracy.voltage.offset"):
         station_accuracy_from_text(BASE + "[instruments.input_meter.accuracy]\nvoltage = { pct_of_reading = 1 }\n")
+
+
+def test_the_readme_accuracy_example_is_valid():
+    import re
+    from pathlib import Path
+
+    readme = (Path(__file__).resolve().parents[1] / "README.md").read_text(encoding="utf-8")
+    block = next(b for b in re.findall(r"```toml\n(.*?)```", readme, flags=re.S)
+                 if b.startswith("[instruments.input_meter.accuracy]"))
+    acc = parse_station(BASE + block).accuracy["input_meter"].quantities
+    assert set(acc) == {"voltage", "current", "power"} and len(acc["current"].terms) == 2
