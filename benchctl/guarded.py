@@ -270,7 +270,8 @@ class GuardedScope(Guarded):
 
     def __getattr__(self, name: str) -> Any:
         allowed = {
-            "set_channel_enabled", "set_scale", "scale", "set_offset", "set_coupling", "set_bandwidth_limit",
+            "set_channel_enabled", "set_scale", "scale", "set_offset", "offset", "screen", "set_coupling",
+            "set_bandwidth_limit",
             "bandwidth_limit_hz", "set_timebase", "set_record", "sample_interval_s", "set_trigger", "arm",
             "abort", "wait_acquired", "single", "set_data_format", "preamble", "fetch_waveform",
             "set_fixture_capacitance",

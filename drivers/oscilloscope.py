@@ -72,8 +72,11 @@ class WaveformPreamble:
 class ScopeWaveform:
     """One channel's record: times from the trigger (s) and values (``unit``: V or A).
 
-    ``clipped_samples`` counts samples at the ends of the ADC range (over-range);
-    non-zero means the vertical scale or offset cut the signal.
+    ``clipped_samples`` counts samples at the limits of the screen (the ends of the ADC
+    range, or for float transfers the screen edges read back from the scope); non-zero
+    means the vertical scale or offset cut the signal. ``clipped_high_samples`` /
+    ``clipped_low_samples`` split it by edge; ``screen_low`` / ``screen_high`` are the
+    values at the bottom and top of the screen (None when unknown).
     """
 
     channel: int
@@ -83,6 +86,15 @@ class ScopeWaveform:
     sample_interval_s: float
     clipped_samples: int
     preamble: WaveformPreamble
+    clipped_high_samples: int = 0
+    clipped_low_samples: int = 0
+    screen_low: float | None = None
+    screen_high: float | None = None
+
+    @property
+    def clipped(self) -> bool:
+        """True when any sample sits at a screen limit."""
+        return self.clipped_samples > 0
 
 
 def _large_socket_reads(session: Any, size: int = 1 << 20) -> None:
@@ -206,6 +218,7 @@ class Oscilloscope(ScpiDriver):
         "set_range": "SENS{channel}:VOLT:RANG {value:.6g}",
         "get_range": "SENS{channel}:VOLT:RANG?",
         "set_offset": "SENS{channel}:VOLT:OFFS {value:.6g}",
+        "get_offset": "SENS{channel}:VOLT:OFFS?",
         "set_record_time": "SENS:SWE:TIME {value:.9g}",
         "set_points": "SENS:SWE:POIN {value:d}",
         "set_time_offset": "SENS:SWE:OFFS:TIME {value:.9g}",
@@ -259,6 +272,15 @@ class Oscilloscope(ScpiDriver):
     def set_offset(self, channel: int, offset: float) -> None:
         """Value at the centre of the screen (V or A)."""
         self.write("set_offset", channel=self._channel(channel), value=offset)
+
+    def offset(self, channel: int) -> float:
+        """Value at the centre of the screen (V or A), read back."""
+        return self.query_float("get_offset", channel=self._channel(channel))
+
+    def screen(self, channel: int) -> tuple[float, float]:
+        """(bottom, top) of the screen in the channel's unit: offset -/+ 5 divisions, read back."""
+        centre, per_div = self.offset(channel), self.scale(channel)
+        return centre - per_div * DIVISIONS / 2, centre + per_div * DIVISIONS / 2
 
     def set_coupling(self, channel: int, coupling: Coupling) -> None:
         if coupling not in ("AC", "DC"):
@@ -488,11 +510,20 @@ class Oscilloscope(ScpiDriver):
                 instrument=self.name, command=self.command("get_data", channel=ch))
         t_s, values = _scale(codes, pre)
         if pre.dtype == "float32":
-            clipped = 0
+            # float samples carry no ADC code: the screen edges read back tell where the trace was cut
+            low, high = self.screen(ch)
+            tol = 1e-6 * (high - low)
+            n_high = int(np.count_nonzero(values >= high - tol))
+            n_low = int(np.count_nonzero(values <= low + tol))
         else:
             info = np.iinfo(pre.dtype)
-            clipped = int(np.count_nonzero((codes == info.min) | (codes == info.max)))
-        return ScopeWaveform(ch, t_s, values, pre.unit, pre.x_increment_s, clipped, pre)
+            n_high = int(np.count_nonzero(codes == info.max))
+            n_low = int(np.count_nonzero(codes == info.min))
+            low = pre.y_origin + (info.min - pre.y_reference) * pre.y_increment
+            high = pre.y_origin + (info.max - pre.y_reference) * pre.y_increment
+        return ScopeWaveform(ch, t_s, values, pre.unit, pre.x_increment_s, n_high + n_low, pre,
+                             clipped_high_samples=n_high, clipped_low_samples=n_low,
+                             screen_low=float(low), screen_high=float(high))
 
     # -- simulated fixture -------------------------------------------------------------
 

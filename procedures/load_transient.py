@@ -7,6 +7,13 @@ coupled) and the load current are captured, stored as a waveform with the point,
 measured: peak deviation from the pre-step value, recovery time into a band around the
 pre-step value, settling time into the same band around the final value
 (:func:`benchctl.analysis.transient.load_step_metrics`, common practice).
+
+A capture whose output (or load-current) trace touches the screen's limits is taken again
+with a taller screen after the load is brought back to the step's starting level
+(:func:`benchctl.acquire.acquire_unclipped`, at most ``max_reacquisitions`` times). If the
+output still clips, the metrics are stored with the flag ``clipped``, the peak deviation as a
+bound when the clipped edge is on the side of the peak (a lower bound of an overshoot, an
+upper bound of a signed undershoot), and a warning event says so.
 """
 
 from __future__ import annotations
@@ -44,6 +51,8 @@ PARAMETERS = [
     *power_parameters(startup_delay_s=0.1),
     Parameter("settle_s", "s", 0.05, minimum=0.0, maximum=60.0, help="wait before each step"),
     Parameter("acquire_timeout_s", "s", 10.0, minimum=0.1, maximum=600.0, help="longest wait for one capture"),
+    Parameter("max_reacquisitions", "", 3, minimum=0, maximum=10, kind="int",
+              help="re-captures of a step with a twice taller screen while a trace clips"),
 ]
 
 
@@ -85,6 +94,7 @@ def _setup_scope(scope, p: Parameters) -> None:
 
 
 def run(bench, p: Parameters) -> None:
+    from benchctl.acquire import acquire_unclipped, report_clipping
     from benchctl.analysis.transient import load_step_metrics, switching_period_average
 
     source, load, scope = bench.source, bench.load, bench.role("scope")
@@ -111,11 +121,22 @@ def run(bench, p: Parameters) -> None:
                 scope.set_scale(p.iout_channel, max(hi - lo, 1e-3) / 4.0)
                 scope.set_offset(p.iout_channel, 0.5 * (lo + hi))
         bench.wait(p.settle_s)
-        scope.arm()
-        load.trigger_step()
-        scope.wait_acquired(p.acquire_timeout_s)
-        vout = scope.fetch_waveform(p.vout_channel)
-        iout = scope.fetch_waveform(p.iout_channel) if p.iout_channel else None
+
+        def capture(attempt: int) -> None:
+            if attempt:  # the last capture stepped the load: step it back (unwatched), let it settle
+                load.trigger_step()
+                bench.wait(p.settle_s)
+            scope.arm()
+            load.trigger_step()
+            scope.wait_acquired(p.acquire_timeout_s)
+
+        channels = [p.vout_channel] + ([p.iout_channel] if p.iout_channel else [])
+        watch = {p.vout_channel: "output channel"}
+        if p.iout_channel:
+            watch[p.iout_channel] = "load-current channel"
+        acq = acquire_unclipped(scope, capture, channels, watch=watch, max_retries=p.max_reacquisitions)
+        vout = acq.waveform(p.vout_channel)
+        iout = acq.waveform(p.iout_channel) if p.iout_channel else None
         vout_v = switching_period_average(vout.t_s, vout.values, p.fsw_hz) if p.fsw_hz else vout.values
         metrics = load_step_metrics(vout.t_s, vout_v, step_time_s=None if iout is not None else 0.0,
                                     iout_a=None if iout is None else iout.values, band_v=p.band_v,
@@ -132,7 +153,12 @@ def run(bench, p: Parameters) -> None:
             "settling_s": metrics.settling_after_step_s if metrics.settled else math.nan,
             "band_v": metrics.band_v,
             "clipped_samples": float(vout.clipped_samples),
-        }, units={"slew_a_per_s": "A/s", "step_up": "", "clipped_samples": ""}, tag=point["load_step"])
+            "clipped_high": 1.0 if vout.clipped_high_samples else 0.0,
+            "clipped_low": 1.0 if vout.clipped_low_samples else 0.0,
+            "iout_clipped_samples": float(iout.clipped_samples) if iout is not None else 0.0,
+            "captures": float(acq.attempts),
+        }, units={"slew_a_per_s": "A/s", "step_up": "", "clipped_samples": "", "clipped_high": "", "clipped_low": "",
+                  "iout_clipped_samples": "", "captures": ""}, tag=point["load_step"])
         columns = {"t_s": vout.t_s, "vout_ac_v": vout.values}
         if p.fsw_hz:
             columns["vout_avg_v"] = vout_v
@@ -145,11 +171,10 @@ def run(bench, p: Parameters) -> None:
             "band_v": metrics.band_v, "recovery_reason": metrics.recovery_reason,
             "averaged_over_switching_period": bool(p.fsw_hz),
             "settling_reason": metrics.settling_reason, "step_time_s": metrics.step_time_s,
+            "acquisition": acq.meta(),
         })
-        if vout.clipped_samples:
-            bench.event("warning", f"output channel clipped {vout.clipped_samples} samples at "
-                        f"{point['vin_set_v']:g} V, {point['iout_from_a']:g} -> {point['iout_set_a']:g} A; "
-                        "raise vout_scale_v_per_div", seq=seq)
+        report_clipping(bench, acq, f"{point['vin_set_v']:g} V, {point['iout_from_a']:g} -> {point['iout_set_a']:g} A",
+                        seq=seq, remedy="raise vout_scale_v_per_div or max_reacquisitions")
     load.set_transient_enabled(False)
     load.set_input(False)
     source.set_output(False)
@@ -159,16 +184,36 @@ def analyse(points, p: Parameters) -> list[Result]:
     """Peak deviation, recovery and settling per step, and the worst cases."""
     import numpy as np
 
+    from benchctl.acquire import clip_flags
+
     results: list[Result] = []
     if points.empty:
         return results
     method = "peak from the pre-step value; recovery/settling into +/-band (common practice)"
+
+    def flag(row, name: str) -> bool:
+        value = row.get(name)
+        return value is not None and value == value and bool(value)
+
+    any_peak_bound = any_clipped = False
     for _, row in points.iterrows():
+        up = bool(row["step_up"])
         scope = {"seq": int(row["seq"]), "vin_set_v": float(row["vin_set_v"]), "iout_set_a": float(row["iout_set_a"]),
                  "iout_from_a": float(row["iout_from_a"]), "slew_a_per_s": float(row["slew_a_per_s"]),
-                 "load_step": "increase" if row["step_up"] else "decrease"}
+                 "load_step": "increase" if up else "decrease"}
+        high, low = flag(row, "clipped_high"), flag(row, "clipped_low")
+        clipped = high or low or flag(row, "clipped_samples")
+        any_clipped |= clipped
+        # an undershoot (load increase) is cut at the bottom, an overshoot at the top: then the true
+        # deviation lies beyond the stored one (below a negative value, above a positive one)
+        peak_side = low if up else high
+        any_peak_bound |= peak_side
+        bound = ("upper_bound" if up else "lower_bound") if peak_side else None
         results.append(Result("transient_peak_deviation_v", float(row["vout_peak_deviation_v"]), "V",
-                              details={"method": method}, scope=scope))
+                              details={"method": method, **clip_flags(
+                                  clipped, bound=bound, reason="the output trace still touched the screen's limits "
+                                  "after the re-captures" + ("; the peak lies beyond the screen" if bound else ""))},
+                              scope=scope))
         for name, col in (("transient_recovery_s", "recovery_s"), ("transient_settling_s", "settling_s")):
             value = row.get(col)
             found = value is not None and np.isfinite(value)
@@ -176,15 +221,19 @@ def analyse(points, p: Parameters) -> list[Result]:
                 "found": bool(found), "band_v": float(row["band_v"]),
                 "reason": "entered the band and stayed" if found else
                 "the output did not stay inside the band before the end of the record; "
-                "lengthen record_s or widen band_v"}))
+                "lengthen record_s or widen band_v",
+                **clip_flags(clipped, reason="read from an output trace that touched the screen's limits")}))
     dev = points["vout_peak_deviation_v"].abs().to_numpy(float)
     k = int(np.argmax(dev))
     results.append(Result("max_abs_transient_deviation_v", float(dev[k]), "V",
+                          details=clip_flags(any_clipped, bound="lower_bound" if any_peak_bound else None,
+                                             reason="at least one output trace still clipped"),
                           scope={"vin_set_v": float(points["vin_set_v"].iloc[k]),
                                  "iout_set_a": float(points["iout_set_a"].iloc[k])}))
     rec = points["recovery_s"].to_numpy(float)
     if np.isfinite(rec).all():
-        results.append(Result("max_recovery_s", float(np.max(rec)), "s"))
+        results.append(Result("max_recovery_s", float(np.max(rec)), "s",
+                              details=clip_flags(any_clipped, reason="at least one output trace still clipped")))
     else:
         results.append(Result("max_recovery_s", None, "s",
                               details={"reason": f"{int(np.sum(~np.isfinite(rec)))} step(s) did not recover"}))

@@ -45,6 +45,8 @@ PARAMETERS = [
     *power_parameters(startup_delay_s=0.1),
     Parameter("settle_s", "s", 0.02, minimum=0.0, maximum=60.0, help="wait after each change"),
     Parameter("acquire_timeout_s", "s", 10.0, minimum=0.1, maximum=600.0, help="longest wait for one capture"),
+    Parameter("max_reacquisitions", "", 3, minimum=0, maximum=10, kind="int",
+              help="re-captures with a twice taller screen while the drain trace clips"),
 ]
 
 
@@ -55,6 +57,7 @@ def plan(p: Parameters) -> list[dict]:
 def run(bench, p: Parameters) -> None:
     from benchctl.analysis.ringing import fit_ringing, parasitics_from_two_frequencies, rc_snubber
     from benchctl.analysis.ringing import ring_start_index
+    from benchctl.acquire import acquire_unclipped, report_clipping
 
     source, load, scope = bench.source, bench.load, bench.role("scope")
     ch = p.drain_channel
@@ -72,10 +75,11 @@ def run(bench, p: Parameters) -> None:
 
     def capture(vin: float):
         scope.set_trigger(ch, level=p.trigger_level_fraction * vin, slope="rising", holdoff_s=p.trigger_holdoff_s)
-        scope.single(p.acquire_timeout_s)
-        wf = scope.fetch_waveform(ch)
+        acq = acquire_unclipped(scope, lambda attempt: scope.single(p.acquire_timeout_s), [ch],
+                                watch={ch: "drain channel"}, max_retries=p.max_reacquisitions)
+        wf = acq.waveform(ch)
         fit = fit_ringing(wf.t_s, wf.values, start_index=ring_start_index(wf.values))
-        return wf, fit
+        return wf, fit, acq
 
     vin_now = points[0]["vin_set_v"]
     for point in bench.sweep(points):
@@ -85,34 +89,43 @@ def run(bench, p: Parameters) -> None:
             vin_now = vin
         load.set_current(point["iout_set_a"])
         bench.wait(p.settle_s)
-        wf, fit = capture(vin)
+        wf, fit, acq = capture(vin)
         values = {
             "vin_set_v": vin, "iout_set_a": point["iout_set_a"],
             "drain_peak_v": float(np.max(wf.values)), "drain_settled_v": fit.offset_v,
             "ring_freq_hz": fit.f_ring_hz, "ring_natural_freq_hz": fit.f_natural_hz,
             "ring_damping_ratio": fit.damping_ratio, "ring_q": fit.q_factor, "ring_fit_ok": 1.0 if fit.fit_ok else 0.0,
-            "clipped_samples": float(wf.clipped_samples),
+            "clipped_samples": float(wf.clipped_samples), "clipped_high": 1.0 if wf.clipped_high_samples else 0.0,
+            "clipped_low": 1.0 if wf.clipped_low_samples else 0.0, "captures": float(acq.attempts),
         }
         extra: dict[str, float] = {}
+        acq2 = None
         if p.c_add_f > 0:
             scope.set_fixture_capacitance(p.c_add_f)
             try:
                 bench.wait(p.settle_s)
-                _, fit2 = capture(vin)
+                _, fit2, acq2 = capture(vin)
             finally:
                 scope.set_fixture_capacitance(0.0)
             extra["ring_natural_freq_cadd_hz"] = fit2.f_natural_hz
             extra["c_add_f"] = p.c_add_f
+            extra["clipped_cadd"] = 1.0 if acq2.clipped else 0.0
             lc = parasitics_from_two_frequencies(fit.f_natural_hz, fit2.f_natural_hz, p.c_add_f)
             sn = rc_snubber(lc.c_par_f, lc.l_par_h, v_switch_v=fit.offset_v, fsw_hz=p.fsw_hz,
                             c_multiple=p.snubber_c_multiple)
             extra.update({"c_par_f": lc.c_par_f, "l_par_h": lc.l_par_h, "z0_ohm": lc.z0_ohm,
                           "snubber_r_ohm": sn.r_ohm, "snubber_c_f": sn.c_f, "snubber_loss_w": sn.loss_w})
         seq = bench.record({**values, **extra},
-                           units={"ring_damping_ratio": "", "ring_q": "", "ring_fit_ok": "", "clipped_samples": ""})
+                           units={"ring_damping_ratio": "", "ring_q": "", "ring_fit_ok": "", "clipped_samples": "",
+                                  "clipped_high": "", "clipped_low": "", "captures": "", "clipped_cadd": ""})
+        where = f"{vin:g} V, {point['iout_set_a']:g} A"
+        report_clipping(bench, acq, where, seq=seq, remedy="raise drain_scale_v_per_div or max_reacquisitions")
+        if acq2 is not None:
+            report_clipping(bench, acq2, f"{where} with c_add_f", seq=seq,
+                            remedy="raise drain_scale_v_per_div or max_reacquisitions")
         bench.record_array("waveform", {"t_s": wf.t_s, "v_drain_v": wf.values}, point_seq=seq, meta={
             "kind": "switch_node", "vin_set_v": vin, "iout_set_a": point["iout_set_a"], "coupling": "DC",
-            "bandwidth_limit_hz": None, "fit": {
+            "bandwidth_limit_hz": None, "acquisition": acq.meta(), "fit": {
                 "f_ring_hz": fit.f_ring_hz, "decay_rate_per_s": fit.decay_rate_per_s,
                 "amplitude_v": fit.amplitude_v, "phase_rad": fit.phase_rad, "offset_v": fit.offset_v,
                 "start_time_s": fit.start_time_s, "samples_used": fit.samples_used, "fit_ok": fit.fit_ok,
@@ -123,28 +136,51 @@ def run(bench, p: Parameters) -> None:
     source.set_output(False)
 
 
+def _flag(row, name: str) -> bool:
+    value = row.get(name) if hasattr(row, "get") else None
+    return value is not None and value == value and bool(value)
+
+
 def analyse(points, p: Parameters) -> list[Result]:
+    from benchctl.acquire import clip_flags, merge_flags
+
     results: list[Result] = []
     if points.empty:
         return results
+    any_high = False
     for _, row in points.iterrows():
         scope = {"seq": int(row["seq"]), "vin_set_v": float(row["vin_set_v"]), "iout_set_a": float(row["iout_set_a"])}
-        results.append(Result("drain_peak_v", float(row["drain_peak_v"]), "V", scope=scope))
+        high, low = _flag(row, "clipped_high"), _flag(row, "clipped_low")
+        any_high |= high
+        clipped = high or low or bool(row.get("clipped_samples", 0) or 0)
+        peak_flags = clip_flags(clipped, bound="lower_bound" if high else None,
+                                reason="the drain trace still touched the top of the screen after the re-captures: "
+                                       "the true peak is at least this" if high else
+                                       "the drain trace touched the bottom of the screen")
+        results.append(Result("drain_peak_v", float(row["drain_peak_v"]), "V", details=peak_flags, scope=scope))
         fit_note = {"method": "damped-sinusoid least-squares fit (scipy.optimize.least_squares)",
                     "fit_ok": bool(row["ring_fit_ok"])}
+        fit_note = merge_flags(fit_note, clip_flags(clipped, reason="the ring was fitted to a clipped trace"))
         results.append(Result("ring_freq_hz", float(row["ring_freq_hz"]), "Hz", details=fit_note, scope=scope))
         results.append(Result("ring_damping_ratio", float(row["ring_damping_ratio"]), "", details=fit_note, scope=scope))
         if "c_par_f" in row and row["c_par_f"] == row["c_par_f"]:
             src = "two-capacitor method (Severns, Design of Snubbers for Power Circuits, from memory)"
-            results.append(Result("parasitic_c_f", float(row["c_par_f"]), "F", details={"method": src}, scope=scope))
-            results.append(Result("parasitic_l_h", float(row["l_par_h"]), "H", details={"method": src}, scope=scope))
+            lc_flags = clip_flags(clipped or _flag(row, "clipped_cadd"),
+                                  reason="a ring used by the two-capacitor method was fitted to a clipped trace")
+            results.append(Result("parasitic_c_f", float(row["c_par_f"]), "F",
+                                  details={"method": src, **lc_flags}, scope=scope))
+            results.append(Result("parasitic_l_h", float(row["l_par_h"]), "H",
+                                  details={"method": src, **lc_flags}, scope=scope))
             results.append(Result("snubber_r_ohm", float(row["snubber_r_ohm"]), "ohm", scope=scope, details={
                 "c_f": float(row["snubber_c_f"]), "loss_w": float(row["snubber_loss_w"]),
                 "method": "R = sqrt(L/C), C = k x C_par, P = C V^2 fs (Mohan, Undeland & Robbins 3rd ed. ch. 27, "
-                          "from memory)"}))
+                          "from memory)", **lc_flags}))
     if len(points):
         k = int(points["drain_peak_v"].to_numpy(float).argmax())
+        # a clipped point's true peak is at least its stored value, so the maximum is then a lower bound
         results.append(Result("max_drain_peak_v", float(points["drain_peak_v"].iloc[k]), "V",
+                              details=clip_flags(any_high, bound="lower_bound",
+                                                 reason="at least one drain trace still clipped at the top"),
                               scope={"vin_set_v": float(points["vin_set_v"].iloc[k]),
                                      "iout_set_a": float(points["iout_set_a"].iloc[k])}))
     return results

@@ -74,7 +74,7 @@ def test_ccm_start_current_is_valley_with_gate_and_spike():
     assert res.ratio == pytest.approx(res.start_current_a / res.peak_current_a)
     # the record starts inside the first on-time, which therefore has no turn-on edge
     assert res.cycles_used == PERIODS - 1
-    assert "threshold" in res.reason
+    assert "detection limit" in res.reason and res.rule == "detection" and res.threshold_ratio is None
 
 
 def test_ccm_found_from_current_edges_only():

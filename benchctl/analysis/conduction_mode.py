@@ -1,12 +1,22 @@
 """Continuous vs discontinuous conduction (CCM / DCM) from measured waveforms, and the
 textbook boundary between them.
 
-Waveform method (common practice): in CCM the switch current starts each on-time at a
-value clearly above zero (the inductor valley current, I_avg − ΔI/2 for a buck); in DCM
-it ramps up from zero. The start current is read a blanking time after the turn-on
-edge, past the leading-edge spike, and extrapolated back to the edge with a straight
-line fitted to the ramp. A second method looks at an inductor current: in DCM it sits
-at zero for an idle interval before the next on-time.
+Waveform method (common practice): in CCM the switch current steps at turn-on from zero to
+the inductor valley current (I_avg − ΔI/2 for a buck) and ramps on from there; in DCM it
+ramps up from zero, with no step. The start current is that step: the straight line fitted
+to the ramp (from a blanking time after the edge, past the leading-edge spike) and
+extrapolated back, minus the current just before the on-time (see
+:func:`classify_conduction_mode`). A second method looks at an inductor current: in DCM it
+sits at zero for an idle interval before the next on-time.
+
+Deciding. By default a cycle train is CCM when its start current lies above zero by more
+than ``DETECTION_SIGMAS`` standard uncertainties of its own estimate (a detection limit
+from the measurement's noise: common practice). A DCM start current is zero, so the label
+then follows the physical boundary up to that limit, a fraction of a percent of the peak
+on a clean record. The older rule, CCM when start / peak exceeds a ``threshold_ratio`` r, is
+kept on request; it moves the detected boundary to where valley / peak = r, i.e.
+(1 + r)/(1 − r) times the textbook boundary, and labels light-load CCM cycles with a start
+current below r × peak as DCM.
 
 Boundary (Erickson & Maksimović, Fundamentals of Power Electronics, 2nd ed., ch. 5 —
 from memory): K = 2L/(R·Ts); the converter runs in DCM when K < K_crit, with
@@ -32,18 +42,27 @@ CCM = "CCM"
 DCM = "DCM"
 
 DEFAULT_CCM_THRESHOLD = 0.1
-"""Start current above this fraction of the peak current counts as CCM (common practice)."""
+"""The start/peak ratio of the older threshold rule, when one is asked for (common practice)."""
+
+DETECTION_SIGMAS = 3.0
+"""A start current counts as above zero beyond this many standard uncertainties (common practice)."""
+
+RULE_DETECTION = "detection"
+RULE_THRESHOLD = "threshold"
 
 
 @dataclass(frozen=True)
 class ConductionModeResult:
     """Conduction mode found from a waveform.
 
-    ``mode`` is "CCM" or "DCM". ``start_current_a`` and ``peak_current_a`` are medians
-    over the ``cycles_used`` complete cycles; ``ratio`` = start / peak;
-    ``threshold_ratio`` is the ratio above which the mode counts as CCM.
-    ``idle_fraction`` is the median zero-current fraction of the period when the idle
-    interval method was used, otherwise None. ``reason`` says how the decision was made.
+    ``mode`` is "CCM" or "DCM". ``start_current_a`` (the step of the current at turn-on) and
+    ``peak_current_a`` are medians over the ``cycles_used`` complete cycles; ``ratio`` =
+    start / peak. ``rule`` is "detection" (CCM when the start current exceeds
+    ``detection_limit_a`` = ``DETECTION_SIGMAS`` x ``start_uncertainty_a``, its standard
+    uncertainty) or "threshold" (CCM when ``ratio`` > ``threshold_ratio``; None under the
+    detection rule). ``idle_fraction`` is the median zero-current fraction of the period
+    when the idle interval method was used, otherwise None. ``reason`` says how the decision
+    was made.
     """
 
     mode: str
@@ -52,8 +71,11 @@ class ConductionModeResult:
     ratio: float
     cycles_used: int
     reason: str
-    threshold_ratio: float = DEFAULT_CCM_THRESHOLD
+    threshold_ratio: float | None = DEFAULT_CCM_THRESHOLD
     idle_fraction: float | None = None
+    rule: str = RULE_THRESHOLD
+    start_uncertainty_a: float | None = None
+    detection_limit_a: float | None = None
 
 
 @dataclass(frozen=True)
@@ -114,6 +136,33 @@ def _edges(
     return rising, at_level(k_fall, down)
 
 
+def _line_fit(x: NDArray[np.float64], y: NDArray[np.float64]) -> tuple[float, float, float, float, float, int]:
+    """Least-squares line y = a + b*x: (a, b, residual sd, mean x, Sxx, n) (any statistics text)."""
+    n = x.size
+    xm = float(x.mean())
+    dx = x - xm
+    sxx = float(np.dot(dx, dx))
+    b = float(np.dot(dx, y - y.mean()) / sxx) if sxx > 0 else 0.0
+    a = float(y.mean() - b * xm)
+    resid = y - (a + b * x)
+    sd = float(np.sqrt(np.dot(resid, resid) / (n - 2))) if n > 2 else 0.0
+    return a, b, sd, xm, sxx, n
+
+
+def _end_of_spike(t: NDArray[np.float64], i: NDArray[np.float64], te: float, k0: int, k1: int,
+                  floor_a: float) -> int:
+    """First index of the fit window once the leading-edge spike has died away: the ramp line is
+    fitted to the later half of [k0, k1), and the window starts after the last earlier sample
+    lying more than 3 residual sd (at least ``floor_a``) above that line."""
+    mid = k0 + (k1 - k0) // 2
+    if k1 - mid < 3:
+        return k0
+    a, b, sd, _, _, _ = _line_fit(t[mid:k1] - te, i[mid:k1])
+    excess = i[k0:mid] - (a + b * (t[k0:mid] - te))
+    above = np.flatnonzero(excess > 3.0 * max(sd, floor_a))
+    return k0 if above.size == 0 else k0 + int(above[-1]) + 1
+
+
 def classify_conduction_mode(
     t_s: ArrayLike,
     i_switch_a: ArrayLike,
@@ -121,23 +170,41 @@ def classify_conduction_mode(
     v_gate_v: ArrayLike | None = None,
     fsw_hz: float | None = None,
     blanking_s: float | None = None,
-    threshold_ratio: float = DEFAULT_CCM_THRESHOLD,
+    threshold_ratio: float | None = None,
     zero_band_frac: float = 0.05,
+    detection_sigmas: float = DETECTION_SIGMAS,
 ) -> ConductionModeResult:
     """Classify CCM/DCM from a switch-current waveform (amperes vs seconds).
 
     On-time starts are the rising edges of ``v_gate_v`` (at half its swing) when given,
     otherwise where the switch current rises out of a band of ``zero_band_frac`` × peak
-    around zero (in DCM the start then reads at most about that band, well below the
-    threshold). ``fsw_hz``, if given, rejects edges closer than half a period.
-    ``blanking_s`` (default 10 % of each on-time) skips the leading-edge spike; the
-    ramp from there to 90 % of the on-time is fitted with a straight line and
-    extrapolated back to the edge. CCM when median start / median peak >
-    ``threshold_ratio``. Common practice.
+    around zero. ``fsw_hz``, if given, rejects edges closer than half a period.
+    ``blanking_s`` skips the leading-edge spike; the ramp from there to 90 % of the on-time
+    is fitted with a straight line. By default the blanking is at least 10 % of each on-time
+    and lasts until the spike's tail has fallen within 3 residual sd (or 0.1 % of the peak)
+    of the line through the later half of the ramp, so the tail does not lift the intercept.
+
+    Start current of a cycle (the step at turn-on): with a gate channel, the line at the gate
+    edge minus the off-state current (the median of the samples below half the zero band;
+    the probe's offset). Without one, the line minus the measured current at the last sample
+    below half the zero band before the edge: in CCM that sample is still off, so the
+    difference is the step; in DCM it already lies on the ramp (or just before it), so the
+    difference is zero within noise and one sample's worth of ramp. Its standard uncertainty
+    combines the off-state noise (robust sd: 1.4826 × MAD), the line's standard error at that
+    time and one sample's worth of ramp as a rectangular spread (b·dt/√12); the median over cycles has the standard uncertainty 1.2533 × sd/√n
+    (median of normal data, from memory), taken from the cycles' scatter or the noise,
+    whichever is larger.
+
+    Decision: with ``threshold_ratio`` None (the default) CCM when the median start current
+    exceeds ``detection_sigmas`` standard uncertainties; with a ratio r, CCM when median
+    start / median peak > r (biased: see the module docstring). Common practice.
     """
     t, i = as_series(t_s, i_switch_a, "i_switch_a", 16)
-    if not 0 < threshold_ratio < 1:
-        raise AnalysisInputError(f"threshold_ratio must lie between 0 and 1, got {threshold_ratio!r}")
+    if threshold_ratio is not None and not 0 < threshold_ratio < 1:
+        raise AnalysisInputError(f"threshold_ratio must lie between 0 and 1 (or be None for the detection rule), "
+                                 f"got {threshold_ratio!r}")
+    if not detection_sigmas > 0:
+        raise AnalysisInputError(f"detection_sigmas must be positive, got {detection_sigmas!r}")
     holdoff = 0.0
     if fsw_hz is not None:
         if not fsw_hz > 0:
@@ -146,6 +213,14 @@ def classify_conduction_mode(
     peak_all = float(np.percentile(i, 99.5))
     if peak_all <= 0:
         raise AnalysisInputError("i_switch_a never rises above zero; check the probe polarity and channel")
+    band = zero_band_frac * peak_all
+    low_level = 0.5 * band
+    off = i < low_level
+    if np.count_nonzero(off) >= 4:
+        base = float(np.median(i[off]))
+        noise = 1.4826 * float(np.median(np.abs(i[off] - base)))
+    else:  # the current never rests near zero (no off-state samples): no offset to correct
+        base, noise = 0.0, 0.0
 
     if v_gate_v is not None:
         _, g = as_series(t_s, v_gate_v, "v_gate_v", 16)
@@ -156,11 +231,11 @@ def classify_conduction_mode(
         rising, falling = _edges(t, g, g_lo + 0.3 * swing, g_lo + 0.7 * swing, g_lo + 0.5 * swing, holdoff)
         edge_source = "gate rising edges"
     else:
-        band = zero_band_frac * peak_all
-        rising, falling = _edges(t, i, 0.5 * band, band, band, holdoff)
+        rising, falling = _edges(t, i, low_level, band, band, holdoff)
         edge_source = f"switch current rising out of the +/-{band:.3g} A zero band"
 
     starts: list[float] = []
+    uncertainties: list[float] = []
     peaks: list[float] = []
     skipped = 0
     falling_arr = np.asarray(falling)
@@ -177,35 +252,72 @@ def classify_conduction_mode(
         k0 = int(np.searchsorted(t, te + blank, side="left"))
         k1 = int(np.searchsorted(t, te + 0.9 * t_on, side="right"))
         k_end = int(np.searchsorted(t, tf, side="right"))
-        if k1 - k0 < 2:
+        if k1 - k0 < 3:
             skipped += 1
             continue
-        _slope, intercept = np.polyfit(t[k0:k1] - te, i[k0:k1], 1)
-        starts.append(float(intercept))
-        peaks.append(float(np.max(i[k0:k_end])))
+        if blanking_s is None:
+            k0 = _end_of_spike(t, i, te, k0, k1, max(noise, 1e-3 * peak_all))
+        a, b, sd, xm, sxx, n = _line_fit(t[k0:k1] - te, i[k0:k1])
+        if v_gate_v is not None:
+            x_ref, i_ref, u_ref = 0.0, base, 0.0
+        else:
+            k_e = int(np.searchsorted(t, te, side="right"))
+            before = np.flatnonzero(i[:k_e] < low_level)
+            if before.size == 0:
+                skipped += 1
+                continue  # the record starts inside this rise: no sample before the on-time
+            kb = int(before[-1])
+            x_ref, i_ref, u_ref = float(t[kb] - te), float(i[kb]), noise
+        line_se = sd * math.sqrt(1.0 / n + (x_ref - xm) ** 2 / sxx) if sxx > 0 else sd
+        # the turn-on lies somewhere within one sample interval of the reference: a rectangular
+        # spread of one sample's worth of ramp, standard uncertainty b*dt/sqrt(12) (GUM 4.3.7)
+        dt_here = float(t[min(k0 + 1, t.size - 1)] - t[k0])
+        u_sample = abs(b) * dt_here / math.sqrt(12.0)
+        starts.append(a + b * x_ref - i_ref)
+        uncertainties.append(math.sqrt(line_se ** 2 + u_ref ** 2 + u_sample ** 2))
+        peaks.append(float(np.max(i[k0:k_end])) - base)
     if not starts:
         raise AnalysisInputError(
             f"no complete on-time with enough samples found ({len(rising)} turn-on edges from {edge_source}, "
-            f"{skipped} skipped for too few samples after blanking); sample faster, shorten blanking_s "
-            "or capture several switching periods"
+            f"{skipped} skipped for too few samples after blanking or none before the edge); sample faster, "
+            "shorten blanking_s or capture several switching periods"
         )
-    start = float(np.median(starts))
+    starts_arr = np.asarray(starts)
+    start = float(np.median(starts_arr))
     peak = float(np.median(peaks))
     ratio = start / peak if peak > 0 else 0.0
-    n_ccm = int(np.sum(np.asarray(starts) > threshold_ratio * np.asarray(peaks)))
+    n_cyc = starts_arr.size
+    scatter = float(np.std(starts_arr, ddof=1)) if n_cyc > 1 else 0.0
+    rms_u = float(np.sqrt(np.mean(np.square(uncertainties))))
+    u_start = 1.2533 * max(scatter, rms_u) / math.sqrt(n_cyc)
+    if threshold_ratio is None:
+        limit = detection_sigmas * u_start
+        mode = CCM if start > limit else DCM
+        n_ccm = int(np.sum(starts_arr > detection_sigmas * np.asarray(uncertainties)))
+        reason = (
+            f"start current {start:.4g} A {'>' if mode == CCM else '<='} detection limit {limit:.3g} A "
+            f"({detection_sigmas:g} x its standard uncertainty {u_start:.3g} A; start/peak = {ratio:.3f}; "
+            f"median over {n_cyc} cycles, {n_ccm} of them above their own limit; on-times from {edge_source})"
+        )
+        return ConductionModeResult(mode=mode, start_current_a=start, peak_current_a=peak, ratio=ratio,
+                                    cycles_used=n_cyc, reason=reason, threshold_ratio=None, rule=RULE_DETECTION,
+                                    start_uncertainty_a=u_start, detection_limit_a=limit)
+    n_ccm = int(np.sum(starts_arr > threshold_ratio * np.asarray(peaks)))
     mode = CCM if ratio > threshold_ratio else DCM
     reason = (
         f"start/peak = {ratio:.3f} {'>' if mode == CCM else '<='} threshold {threshold_ratio:.3f} "
-        f"(median over {len(starts)} cycles, {n_ccm} of them above the threshold; on-times from {edge_source})"
+        f"(median over {n_cyc} cycles, {n_ccm} of them above the threshold; on-times from {edge_source})"
     )
     return ConductionModeResult(
         mode=mode,
         start_current_a=start,
         peak_current_a=peak,
         ratio=ratio,
-        cycles_used=len(starts),
+        cycles_used=n_cyc,
         reason=reason,
         threshold_ratio=float(threshold_ratio),
+        rule=RULE_THRESHOLD,
+        start_uncertainty_a=u_start,
     )
 
 

@@ -36,7 +36,10 @@ capacitance at the switch node for the two-capacitor method::
 
 Scaling of integer samples: value = y_origin + (code − y_reference)·y_increment,
 time = x_origin + (i − x_reference)·x_increment (common practice). Noise is seeded;
-the front end has a 500 MHz first-order analog bandwidth.
+the front end has a 500 MHz first-order analog bandwidth (the bandwidth limit is a
+first-order pole too, both applied as :func:`first_order_low_pass`). Samples beyond the
+screen (offset +/- 5 divisions) are held at its edge, as an ADC's end codes hold an
+over-range input: INT transfers then carry the extreme codes, REAL transfers the edge value.
 """
 
 from __future__ import annotations
@@ -45,7 +48,7 @@ import logging
 import math
 
 import numpy as np
-from scipy.signal import lfilter
+from scipy.signal import lfilter, lfilter_zi
 
 from ..scpi import Boolean, Choice, Identity, Numeric, ScpiInstrument
 from ..scpi.errors import ScpiExecutionError
@@ -55,6 +58,20 @@ logger = logging.getLogger(__name__)
 
 _PROBE_WORDS = {"VOUT": "vout", "DRA": "drain", "ISW": "switch_current", "IOUT": "output_current", "GATE": "gate"}
 _DEFAULT_PROBES = {1: "vout", 2: "drain", 3: "switch_current", 4: "output_current"}
+
+
+def first_order_low_pass(v: np.ndarray, cutoff_hz: float, dt_s: float) -> np.ndarray:
+    """The analog pole 1/(1 + s/(2*pi*cutoff_hz)) applied to samples ``dt_s`` apart, exact for a
+    signal that is linear between samples (first-order-hold equivalent of the pole; e.g.
+    Franklin, Powell & Workman, Digital Control of Dynamic Systems, 3rd ed., ch. 6, from memory):
+    y[n] = a*y[n-1] + b0*x[n] + b1*x[n-1], a = exp(-wc*dt), g = (1 - a)/(wc*dt), b0 = 1 - g,
+    b1 = g - a. Starts in the steady state of the first sample."""
+    wc_dt = 2 * math.pi * cutoff_hz * dt_s
+    a = math.exp(-wc_dt)
+    g = -math.expm1(-wc_dt) / wc_dt
+    b, den = [1.0 - g, g - a], [1.0, -a]
+    y, _ = lfilter(b, den, v, zi=lfilter_zi(b, den) * v[0])
+    return y
 
 
 class _Channel:
@@ -316,8 +333,7 @@ class SimulatedOscilloscope(ScpiInstrument):
                 v = v - synth.dc_level(ch.signal)
             bw = min(self.ANALOG_BANDWIDTH_HZ, ch.bw_freq_hz) if ch.bw_limit else self.ANALOG_BANDWIDTH_HZ
             if bw < 0.5 * fs:
-                a = math.exp(-2 * math.pi * bw * dt)
-                v, _ = lfilter([1 - a], [1, -a], v, zi=[a * v[0]])
+                v = first_order_low_pass(v, bw, dt)
             scale = ch.range_v / 10.0
             v = v + self._rng.normal(0.0, self.NOISE_DIV_RMS * scale, v.size)
             record[n] = self._encode(v, ch, dt)
