@@ -151,3 +151,31 @@ def test_html_report_has_a_data_quality_section_and_plus_minus(run):
     results = page.split("<h2>Results</h2>")[1].split("<h2>")[0]
     assert "±" in results and "U ≤" in results
     assert "Error bars: expanded uncertainty U (k = 2" in page
+
+
+def test_run_summary_and_check_table_print_plus_minus_and_the_new_verdicts(run, tmp_path, capsys):
+    from benchctl.commands.check import check_run
+    from benchctl.cli import EXIT_NOT_CHECKED
+
+    store, run_id, _ = run
+    summary.print_run_summary(store, run_id)
+    out = capsys.readouterr().out
+    assert "±" in out and "2 of 10 point(s) not trustworthy" in out
+    res = store.results(run_id)
+    eff = res[(res["name"] == "efficiency")]
+    one = next(r for _, r in eff.iterrows() if r["scope"]["vin_set_v"] == 75.0 and r["scope"]["iout_set_a"] == 3.75)
+    # A guarded minimum U/2 below a settled point's value: that value is borderline (ILAC-G8:09/2019
+    # 4.2.3); a loose maximum on the loss passes every value except those of the two doubtful points: suspect.
+    limits = tmp_path / "lim.toml"
+    limits.write_text(
+        f'[[limit]]\nname = "one efficiency"\nquantity = "efficiency"\n'
+        f'min = {float(one["value"] - one["expanded_uncertainty"] / 2)!r}\n'
+        'decision = "guarded"\nwhere.vin_set_v = 75.0\nwhere.iout_set_a = 3.75\n\n'
+        '[[limit]]\nname = "loss"\nquantity = "loss_w"\nmax = 100.0\n', encoding="utf-8")
+    report = check_run(store, run_id, limits, junit_path=tmp_path / "c.xml", record=False)
+    out = capsys.readouterr().out
+    assert [o.status for o in report.outcomes] == ["borderline", "suspect"]
+    assert report.exit_code == EXIT_NOT_CHECKED
+    assert "BORDERLINE" in out and "SUSPECT" in out and "(guarded)" in out and "±" in out
+    xml = (tmp_path / "c.xml").read_text(encoding="utf-8")
+    assert 'type="limit_borderline"' in xml and 'type="limit_suspect"' in xml and 'failures="0"' in xml

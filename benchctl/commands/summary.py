@@ -81,7 +81,7 @@ def quality_lines(points, results) -> list[str]:
         names = sorted({f[0] for f in flagged})
         kinds = sorted({k for f in flagged for k in f[2]})
         lines.append(f"{len(flagged)} derived result(s) flagged ({', '.join(kinds)}): {', '.join(names)}; "
-                     "marked * below, limits cannot pass on them")
+                     "marked * in the tables, limits cannot pass on them")
     return lines
 
 
@@ -209,11 +209,18 @@ def results_table(results) -> Table | None:
         u = _finite(group["expanded_uncertainty"].iloc[k]) if has_u else None
         details = group["details"].iloc[k]
         value_text = _fmt(float(values[k]), unit, u)
+        n_flagged = sum(1 for d in group["details"] if result_flags(d)[0])
+        note = _note(details)
         if result_flags(details)[0]:
             value_text += " *"
+        elif n_flagged:
+            note = "; ".join(x for x in (f"* {n_flagged} of {len(group)} at other operating points flagged", note) if x)
         cells = [str(name), value_text, _scope_text(scopes[k]), rng]
-        if has_notes:
-            cells.append(_note(details))
+        if has_notes or n_flagged:
+            if not has_notes:
+                table.add_column("note", overflow="fold")
+                has_notes = True
+            cells.append(note)
         table.add_row(*[escape(c) for c in cells])
     return table
 
@@ -222,14 +229,14 @@ def print_run_summary(store, run_id: int) -> None:
     out = console()
     points = store.points(run_id)
     results = store.results(run_id)
+    for line in quality_lines(points, results):
+        out.print(f"[bold yellow]{escape(line)}[/]")
     grid = efficiency_grid(points, results)
     if grid is not None:
         out.print(grid)
     table = results_table(results)
     if table is not None and table.row_count:
         out.print(table)
-    for line in quality_lines(points, results):
-        out.print(f"[bold yellow]{escape(line)}[/]")
     events = store.events(run_id)
     if not events.empty:
         ev = Table(title="events")
