@@ -269,7 +269,7 @@ def evaluate_limit(spec: LimitSpec, data: RunData) -> LimitOutcome:
 
     missing_mode = spec.missing or ("fail" if source == SOURCE_RESULT else "ignore")
     nonexistent = [r for r in rows if r.not_exist and not math.isinf(r.value)]  # no direction: not a value
-    rows = [r for r in rows if r not in nonexistent]
+    rows = [r for r in rows if not (r.not_exist and not math.isinf(r.value))]
     finite = [r for r in rows if not math.isnan(r.value)]
     absent = [r for r in rows if math.isnan(r.value)]
     if not finite and (missing_mode == "ignore" or not absent):
