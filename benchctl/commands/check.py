@@ -191,7 +191,13 @@ def check_run(
 def cmd_check(args: argparse.Namespace) -> int:
     """``benchctl check``: returns the check's exit code."""
     with open_existing_store(args.db) as store:
-        report = check_run(store, args.run, args.limits, junit_path=args.junit, print_table=not args.json)
+        report = check_run(store, args.run, args.limits, junit_path=args.junit, print_table=not args.json,
+                           record=not store.read_only)  # a read-only store is checked, the outcome not stored
+        if store.read_only:
+            from benchctl.commands.console import error_console
+
+            error_console().print("note: the check's outcome was not stored with the run (the store is read-only)",
+                                  style="yellow", markup=False, highlight=False)
     if args.json:
         print(json.dumps(_json_ready(report.to_dict()), indent=2))
     return report.exit_code

@@ -50,9 +50,13 @@ def resolve_db(args: argparse.Namespace) -> str:
 
 
 def _open(url: str):  # -> Store
+    """An existing store to read (read-only when it cannot be written, with a note saying so)."""
+    from benchctl.commands.stores import print_store_notes
     from benchctl.store import Store
 
-    return Store.open(_existing(url))
+    store = Store.open(_existing(url), read_only=None)
+    print_store_notes(store)
+    return store
 
 
 def _print_json(payload: Any) -> None:

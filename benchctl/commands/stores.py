@@ -26,12 +26,26 @@ def existing_store_url(url: str) -> str:
 
 
 def open_existing_store(db: str | None) -> Any:
-    """The store at ``db`` (default: :func:`benchctl.locations.default_db`), which must exist."""
+    """The store at ``db`` (default: :func:`benchctl.locations.default_db`), which must exist.
+
+    A store on a read-only medium (or a file one may not write) is opened read-only, and the
+    command says so: nothing is written to it and nothing was recovered.
+    """
     from benchctl.store import Store
 
     url = existing_store_url(db or default_db())
     _announce(url)
-    return Store.open(url)
+    store = Store.open(url, read_only=None)
+    print_store_notes(store)
+    return store
+
+
+def print_store_notes(store: Any) -> None:
+    """What the person should know of how ``store`` was opened (read-only ...), on standard error."""
+    from benchctl.commands.console import error_console
+
+    for note in getattr(store, "notes", ()):
+        error_console().print(f"note: {note}", style="yellow", markup=False, highlight=False)
 
 
 def open_store(db: str | None) -> Any:

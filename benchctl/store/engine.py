@@ -25,6 +25,13 @@ holds a transaction-level advisory lock, so stations starting together do it one
 
 Any other SQLAlchemy URL is used as given; all SQL outside the SQLite connect hook is
 built from the Core tables with bound parameters, so it is portable.
+
+Read-only (a database on a read-only medium, a file one may not write): SQLite is opened
+through a URI with ``mode=ro`` - it reads a write-ahead log whose ``-shm`` file exists - or,
+where that cannot open (no ``-shm``, and it cannot be created), ``immutable=1``, which reads
+the main file alone (SQLite docs, "Uniform Resource Identifiers", query parameters ``mode``
+and ``immutable``; "Write-Ahead Logging" §5, "Read-Only Databases"). Such a connection
+sets no journal mode and runs ``PRAGMA query_only``.
 """
 
 from __future__ import annotations
@@ -75,9 +82,20 @@ def lock_schema(conn: Connection) -> None:
         conn.execute(text("SELECT pg_advisory_xact_lock(:key)"), {"key": SCHEMA_LOCK_KEY})
 
 
-def make_engine(url: URL, busy_timeout_s: float) -> Engine:
+def sqlite_read_only_url(path: str, how: str) -> URL:
+    """A SQLite URI URL reading ``path`` without writing: ``how`` is ``"ro"`` (``mode=ro``)
+    or ``"immutable"`` (``immutable=1``)."""
+    from urllib.parse import quote
+
+    query = {"mode": "ro"} if how == "ro" else {"immutable": "1"}
+    return URL.create("sqlite", database="file:" + quote(path), query={**query, "uri": "true"})
+
+
+def make_engine(url: URL, busy_timeout_s: float, *, read_only: bool = False) -> Engine:
     """Engine for ``url`` with the settings above; ``busy_timeout_s`` bounds lock waits
-    (SQLite busy timeout; PostgreSQL ``lock_timeout``, and the connect timeout)."""
+    (SQLite busy timeout; PostgreSQL ``lock_timeout``, and the connect timeout).
+    ``read_only``: no journal-mode change and ``query_only`` on SQLite (give a URL of
+    :func:`sqlite_read_only_url`); read-only transactions by default on PostgreSQL."""
     where = mask_url(url)
     try:
         if is_postgresql(url) and url.get_driver_name() == "psycopg":
@@ -90,7 +108,8 @@ def make_engine(url: URL, busy_timeout_s: float) -> Engine:
                     "application_name": "benchctl",
                     # keep options given in the URL (e.g. ?options=-csearch_path%3Dbench)
                     "options": " ".join(
-                        o for o in (str(url.query.get("options") or ""), f"-c lock_timeout={timeout_ms}") if o
+                        o for o in (str(url.query.get("options") or ""), f"-c lock_timeout={timeout_ms}",
+                                    "-c default_transaction_read_only=on" if read_only else "") if o
                     ),
                 },
             )
@@ -118,7 +137,9 @@ def make_engine(url: URL, busy_timeout_s: float) -> Engine:
         cur = dbapi_conn.cursor()
         try:
             cur.execute("PRAGMA foreign_keys=ON")
-            if not memory:
+            if read_only:
+                cur.execute("PRAGMA query_only=1")
+            elif not memory:
                 mode = cur.execute("PRAGMA journal_mode=WAL").fetchone()[0]
                 if str(mode).lower() != "wal":
                     log.warning("store %s: SQLite refused WAL mode (journal_mode=%s)", where, mode)

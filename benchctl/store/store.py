@@ -14,6 +14,7 @@ import logging
 import os
 import socket
 import time
+from pathlib import Path
 from collections.abc import Callable, Mapping, Sequence
 from datetime import datetime
 from types import TracebackType
@@ -24,16 +25,16 @@ from sqlalchemy.engine import URL, Connection, Engine
 from sqlalchemy.exc import SQLAlchemyError
 
 import benchctl
-from benchctl.errors import StoreError
+from benchctl.errors import StoreError, StoreReadOnlyError
 
 from . import history, queries
 from . import schema as s
-from .engine import WRITE_OPTIONS, lock_schema, make_engine, read_options
+from .engine import WRITE_OPTIONS, lock_schema, make_engine, read_options, sqlite_read_only_url
 from .migrate import CURRENT, EMPTY, read_schema_state, refusal
 from .recovery import recover_interrupted
 from .records import ArrayData, RunInfo, RunStart
 from .transfer import CopyReport, copy_runs
-from .url import is_sqlite_memory, mask_url, normalize_url, scrub
+from .url import is_sqlite, is_sqlite_memory, mask_url, normalize_url, scrub
 from .writer import Writer
 
 log = logging.getLogger(__name__)
@@ -42,15 +43,19 @@ log = logging.getLogger(__name__)
 class Store:
     """A benchctl measurement database. Create with :meth:`Store.open`; use as a context manager."""
 
-    def __init__(self, engine: Engine, url: URL, clock: Callable[[], float]) -> None:
+    def __init__(self, engine: Engine, url: URL, clock: Callable[[], float], *, read_only: bool = False) -> None:
         """Internal; use :meth:`Store.open`."""
         self._engine: Engine | None = engine
         self._url = url  # kept for scrubbing driver messages; never shown as such
         self._url_masked = mask_url(url)
         self._clock = clock
-        self._writer = Writer(engine, clock, self._url_masked)
+        self._writer = Writer(engine, clock, self._url_masked, _disk_of(url))
         self.recovered_runs: tuple[int, ...] = ()
         """Ids of runs this open marked ``interrupted``."""
+        self.read_only = read_only
+        """True when the store was opened read-only: nothing is written, nothing was recovered."""
+        self.notes: tuple[str, ...] = ()
+        """What a person reading this store should know (how it was opened)."""
 
     # ------------------------------------------------------------ open / close
     @classmethod
@@ -62,6 +67,7 @@ class Store:
         busy_timeout_s: float = 10.0,
         clock: Callable[[], float] = time.time,
         recover: bool = True,
+        read_only: bool | None = False,
     ) -> Store:
         """Open (and, if empty, create) a store.
 
@@ -73,9 +79,28 @@ class Store:
         runs whose process is gone as interrupted (see :mod:`benchctl.store.recovery`;
         ``stale_after_s`` extends that to runs of other hosts silent that long).
         ``clock`` returns UTC seconds since the epoch for every stored time.
+
+        ``read_only=True`` reads the store without writing anything: no schema is created
+        or checked by a write, no run is recovered, every write method raises
+        :class:`~benchctl.errors.StoreReadOnlyError` (``notes`` says so). ``read_only=None``
+        decides: read-only when the SQLite file is on a read-only medium or may not be
+        written (or opening it for writing fails for that reason), else as ``False``.
         """
         url = normalize_url(url_or_path)
         where = mask_url(url)
+        if read_only is None:
+            read_only = cannot_write(url)
+            if not read_only:
+                try:
+                    return cls.open(url_or_path, stale_after_s=stale_after_s, busy_timeout_s=busy_timeout_s,
+                                    clock=clock, recover=recover, read_only=False)
+                except StoreError as exc:
+                    if not (is_sqlite(url) and _read_only_failure(exc)):
+                        raise
+                    log.info("store %s cannot be written (%s); opening it read-only", where, exc)
+            return cls._open_read_only(url, busy_timeout_s=busy_timeout_s, clock=clock)
+        if read_only:
+            return cls._open_read_only(url, busy_timeout_s=busy_timeout_s, clock=clock)
         engine = make_engine(url, busy_timeout_s)
         store = cls(engine, url, clock)
         try:
@@ -85,6 +110,72 @@ class Store:
             raise
         log.info("store opened: %s", where)
         return store
+
+    @classmethod
+    def _open_read_only(cls, url: URL, *, busy_timeout_s: float, clock: Callable[[], float]) -> Store:
+        where = mask_url(url)
+        note = ("opened read-only: nothing is written to it, and runs left 'running' were not checked or marked "
+                "interrupted (nothing was recovered)")
+        if not is_sqlite(url) or is_sqlite_memory(url):
+            engine = make_engine(url, busy_timeout_s, read_only=True)
+            store = cls(engine, url, clock, read_only=True)
+            try:
+                store._prepare_read_only()
+            except BaseException:
+                store.close()
+                raise
+            store.notes = (note,)
+            return store
+        path = str(url.database)
+        wal = Path(path + "-wal")
+        failure: StoreError | None = None
+        for how in ("ro", "immutable"):  # mode=ro reads the write-ahead log; immutable the main file alone
+            engine = make_engine(sqlite_read_only_url(path, how), busy_timeout_s, read_only=True)
+            store = cls(engine, url, clock, read_only=True)
+            try:
+                store._prepare_read_only()
+            except StoreError as exc:
+                store.close()
+                failure = failure or exc
+                continue
+            except BaseException:
+                store.close()
+                raise
+            notes = [note]
+            if how == "immutable" and wal.exists() and wal.stat().st_size > 0:
+                notes.append(f"its write-ahead log {wal} cannot be read here (no {path}-shm on a read-only medium): "
+                             "commits after the last checkpoint are not shown; copy the database with its -wal "
+                             "file to a writable disk to see them")
+            store.notes = tuple(notes)
+            log.info("store opened read-only (%s): %s", how, where)
+            return store
+        assert failure is not None
+        raise failure
+
+    def _prepare_read_only(self) -> None:
+        engine = self._require_open()
+        try:
+            with engine.connect().execution_options(**read_options(engine)) as conn, conn.begin():
+                state = read_schema_state(conn, self._url_masked)
+        except SQLAlchemyError as exc:
+            raise StoreError(
+                f"cannot read store {self._url_masked} (opened read-only): "
+                f"{scrub(str(getattr(exc, 'orig', None) or exc), self._url)}"
+            ) from exc
+        if state.status == EMPTY:
+            raise StoreError(f"{self._url_masked} holds no benchctl database (it was opened read-only, so none was "
+                             "created); check the path or URL")
+        if state.status != CURRENT:
+            raise refusal(state)
+
+    def _require_writable(self, doing: str) -> Engine:
+        engine = self._require_open()
+        if self.read_only:
+            raise StoreReadOnlyError(
+                f"store {self._url_masked} is open read-only (a read-only medium or a file that may not be written), "
+                f"so it cannot be written ({doing}); nothing was changed. Copy the database to a writable disk to "
+                "change it")
+        return engine
 
     def _prepare(self, *, recover: bool, stale_after_s: float | None) -> None:
         engine = self._require_open()
@@ -175,7 +266,7 @@ class Store:
     # ------------------------------------------------------------ writing
     def begin_run(self, start: RunStart) -> int:
         """Store a new run (status ``running``) with its provenance; returns the run id."""
-        self._require_open()
+        self._require_writable("begin run")
         return self._writer.begin_run(start)
 
     def record_point(
@@ -199,7 +290,7 @@ class Store:
         ``settle_info`` says how the point was settled and verified (stored as JSON; read
         back as the ``settle_info`` column of :meth:`points`).
         """
-        self._require_open()
+        self._require_writable("record point")
         return self._writer.record_point(
             run_id, values, units=units, tag=tag, settled=settled, settle_time_s=settle_time_s, t_utc_s=t_utc_s,
             settle_info=settle_info,
@@ -209,7 +300,7 @@ class Store:
         """A new job id, assigned by the database (two stations never get the same one)."""
         import socket
 
-        self._require_open()
+        self._require_writable("begin job")
         return self._writer.begin_job(name, station_name, socket.gethostname() if host is None else host)
 
     def record_event(
@@ -223,7 +314,7 @@ class Store:
         t_utc_s: float | None = None,
     ) -> int:
         """Store an event (``interlock_trip``, ``error``, ``warning``, ``gap``, ``info`` ...); returns its id."""
-        self._require_open()
+        self._require_writable("record event")
         return self._writer.record_event(run_id, kind, message, details, point_seq=point_seq, t_utc_s=t_utc_s)
 
     def record_result(
@@ -237,12 +328,12 @@ class Store:
         scope: Mapping[str, Any] | None = None,
     ) -> int:
         """Store a derived result; ``None`` when it could not be found (say why in ``details``)."""
-        self._require_open()
+        self._require_writable("record result")
         return self._writer.record_result(run_id, name, value, unit=unit, details=details, scope=scope)
 
     def reopen_run(self, run_id: int, message: str = "") -> None:
         """Resume an interrupted or tripped run: status running again, the gap stored as an event."""
-        self._require_open()
+        self._require_writable("reopen run")
         self._writer.reopen_run(run_id, message)
 
     def record_station_change(self, run_id: int, start: RunStart, differences: Sequence[Mapping[str, Any]]) -> None:
@@ -250,13 +341,13 @@ class Store:
         description and instruments) becomes the run's provenance, and an event
         ``station_changed`` keeps the differences and the previous station (text, hash,
         instruments)."""
-        self._require_open()
+        self._require_writable("record station change")
         self._writer.record_station_change(run_id, start, differences)
 
     def record_results(self, run_id: int, results: Any) -> int:
         """Store many derived results in one transaction; items are mappings with name,
         value and optionally unit, details, scope. Returns how many were stored."""
-        self._require_open()
+        self._require_writable("record results")
         return self._writer.record_results(run_id, results)
 
     def record_array(
@@ -270,12 +361,12 @@ class Store:
         meta: Mapping[str, Any] | None = None,
     ) -> int:
         """Store named numeric columns (Bode sweep, waveform) bit-exact; returns the array id."""
-        self._require_open()
+        self._require_writable("record array")
         return self._writer.record_array(run_id, name, columns, units=units, point_seq=point_seq, meta=meta)
 
     def end_run(self, run_id: int, status: str, message: str = "") -> None:
         """End a running run with ``completed``, ``failed``, ``tripped`` or ``interrupted``."""
-        self._require_open()
+        self._require_writable("end run")
         self._writer.end_run(run_id, status, message)
 
     # ------------------------------------------------------------ runs left running
@@ -292,7 +383,7 @@ class Store:
         refused if it showed a sign of life after ``expected_last_activity_utc_s``."""
         from .recovery import mark_interrupted
 
-        self._require_open()
+        self._require_writable("mark interrupted")
         with self._writer.transaction(f"marking run {run_id} interrupted") as conn:
             mark_interrupted(conn, run_id, reason=reason, details=dict(details), now_utc_s=self._clock(),
                              expected_last_activity_utc_s=expected_last_activity_utc_s)
@@ -426,7 +517,7 @@ class Store:
         ``run_refs``: ids or ``"latest"``; ``None`` copies every run. See
         :mod:`benchctl.store.transfer` for what is copied and how repeats are reported.
         """
-        self._require_open()
+        self._require_writable("copying runs into it")
         same = source._url.render_as_string(hide_password=False) == self._url.render_as_string(hide_password=False)
         if source is self or (same and not is_sqlite_memory(self._url)):
             raise StoreError(f"source and target are the same store ({self._url_masked}); give two different stores")
@@ -435,3 +526,40 @@ class Store:
             source._read, self._writer.transaction, ids,
             source_url=source.url, target_url=self.url, include_running=include_running, clock=self._clock,
         )
+
+
+def cannot_write(url: URL) -> bool:
+    """True when ``url`` is a SQLite file that cannot be written here: on a read-only file
+    system (``statvfs`` ``ST_RDONLY``), or a file (or, for its write-ahead log, a folder)
+    this user may not write."""
+    if not is_sqlite(url) or is_sqlite_memory(url):
+        return False
+    path = Path(str(url.database))
+    if not path.exists():
+        return False
+    try:
+        if os.statvfs(path).f_flag & os.ST_RDONLY:
+            return True
+    except (OSError, AttributeError):  # no statvfs (Windows)
+        pass
+    if not os.access(path, os.W_OK):
+        return True
+    folder_writable = os.access(path.parent, os.W_OK)
+    side_files = [Path(f"{path}-wal"), Path(f"{path}-shm")]
+    return not folder_writable and not all(p.exists() and os.access(p, os.W_OK) for p in side_files)
+
+
+def _read_only_failure(exc: StoreError) -> bool:
+    """A failure to open a SQLite store for writing that reading alone would not meet."""
+    text = str(exc).lower()
+    return any(t in text for t in ("readonly", "read-only", "unable to open database file",
+                                   "attempt to write a readonly database"))
+
+
+def _disk_of(url: URL) -> str:
+    """Where the store's data lives, for a disk-full message."""
+    if is_sqlite(url) and not is_sqlite_memory(url):
+        return f"the disk of {Path(str(url.database)).parent}"
+    if is_sqlite(url):
+        return "memory"
+    return f"the database server {url.host or ''}".rstrip()

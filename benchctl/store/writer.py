@@ -30,7 +30,7 @@ from sqlalchemy import func, insert, select, update
 from sqlalchemy.engine import Connection, Engine
 from sqlalchemy.exc import IntegrityError, SQLAlchemyError
 
-from benchctl.errors import StoreError
+from benchctl.errors import StoreError, StoreFullError
 
 from . import schema as s
 from .engine import WRITE_OPTIONS
@@ -63,10 +63,12 @@ class _OpenRun:
 class Writer:
     """Writes runs, points, events, results and arrays; used through :class:`~benchctl.store.Store`."""
 
-    def __init__(self, engine: Engine, clock: Callable[[], float], where: str) -> None:
+    def __init__(self, engine: Engine, clock: Callable[[], float], where: str, disk: str = "its disk") -> None:
         self._engine = engine
         self._clock = clock
         self._where = where  # masked URL, for messages
+        self._disk = disk  # where the data lives, for a disk-full message
+        self._first_full: str | None = None  # the first write that met a full disk
         self._lock = threading.RLock()
         self._conn: Connection | None = None
         self._open_runs: dict[int, _OpenRun] = {}
@@ -100,8 +102,46 @@ class Writer:
         errors become :class:`StoreError` saying ``doing`` failed and nothing was written."""
         return self._transaction(doing)
 
+    def full_disk(self, doing: str, cause: BaseException, run_id: int | None) -> StoreFullError:
+        """The error of a write that met a full disk, naming it (and the first such write).
+
+        The first time, a ``disk_full`` event is stored with the run where it still fits
+        (a small row may, where a point did not), so the run's record says why it stopped.
+        """
+        first = self._first_full
+        resume = (f"; then `benchctl run --resume {run_id} --station FILE` continues the run from its last "
+                  "committed point") if run_id is not None else ""
+        if first is None:
+            self._first_full = f"{doing} failed"
+            message = (f"store {self._where}: the disk holding the database is full ({_orig(cause)}): {doing} failed "
+                       f"and nothing of it was written; everything committed before is kept. Free space on "
+                       f"{self._disk}{resume}")
+        else:
+            message = (f"store {self._where}: the disk holding the database is still full ({first} first): "
+                       f"{doing} failed as well and nothing of it was written. Free space on {self._disk}{resume}")
+        log.info("%s", message)  # the error carries it to the person; this is for the log file
+        if first is None and run_id is not None:
+            self._note_full(run_id, message)
+        return StoreFullError(message)
+
+    def _note_full(self, run_id: int, message: str) -> None:
+        """Store a ``disk_full`` event if it still fits; never raises."""
+        try:
+            with self._lock:
+                conn = self._connection()
+                try:
+                    conn.execute(insert(s.events).values(
+                        run_id=run_id, t_utc_s=self._clock(), kind="disk_full", message=message,
+                        details_json=to_json("disk full", {"disk": self._disk}), point_seq=None))
+                    conn.commit()
+                except SQLAlchemyError:
+                    _rollback(conn)
+                    raise
+        except Exception:  # the disk is full: nothing more may fit
+            log.warning("run %d: the disk-full event could not be stored either", run_id)
+
     @contextmanager
-    def _transaction(self, doing: str) -> Iterator[Connection]:
+    def _transaction(self, doing: str, run_id: int | None = None) -> Iterator[Connection]:
         """Run the block in one transaction on the write connection; commit or roll back."""
         with self._lock:
             conn = self._connection()
@@ -116,6 +156,8 @@ class Writer:
                 if conn.invalidated:  # broken connection: open a fresh one next time
                     self._conn = None
                     conn.close()
+                if is_disk_full(exc):
+                    raise self.full_disk(doing, exc, run_id) from exc
                 raise StoreError(
                     f"store {self._where}: {doing} failed and nothing of it was written: "
                     f"{getattr(exc, 'orig', None) or exc}"
@@ -226,7 +268,7 @@ class Writer:
             raise StoreError(
                 f"cannot end run {run_id} with status {status!r}; use one of {', '.join(sorted(FINAL_STATUSES))}"
             )
-        with self._transaction(f"ending run {run_id}") as conn:
+        with self._transaction(f"ending run {run_id}", run_id) as conn:
             done = conn.execute(
                 update(s.runs)
                 .where(s.runs.c.id == run_id, s.runs.c.status == RUNNING)
@@ -249,7 +291,7 @@ class Writer:
         import os
         import socket as _socket
 
-        with self._transaction(f"reopening run {run_id}") as conn:
+        with self._transaction(f"reopening run {run_id}", run_id) as conn:
             row = conn.execute(select(s.runs.c.status, s.runs.c.ended_utc_s).where(s.runs.c.id == run_id)).first()
             if row is None:
                 raise StoreError(f"store {self._where} has no run {run_id}; nothing to resume")
@@ -272,7 +314,7 @@ class Writer:
         """The run's station becomes ``start``'s (text, description, instruments); the previous
         one and the differences are kept in a ``station_changed`` event. One transaction."""
         station_sha = _station_sha(start)
-        with self._transaction(f"storing the changed station of run {run_id}") as conn:
+        with self._transaction(f"storing the changed station of run {run_id}", run_id) as conn:
             row = conn.execute(
                 select(s.runs.c.station_id, s.stations.c.station_text, s.stations.c.station_sha256,
                        s.stations.c.description)
@@ -333,7 +375,7 @@ class Writer:
         with self._lock:
             opened = self._open_runs.get(run_id)
             if opened is None:
-                with self._transaction(f"reading run {run_id} before its first point") as conn:
+                with self._transaction(f"reading run {run_id} before its first point", run_id) as conn:
                     opened = self._open_run(conn, run_id)
             seq = opened.next_seq
             quantities = opened.quantities
@@ -363,7 +405,10 @@ class Writer:
                 numbers.append((name, number))
             point = (run_id, seq, t, tag, bool(settled), settle, settle_json)
             if self._fast is not None and all_known:
-                self._fast.write_point(self._connection(), point, value_rows, f"run {run_id}, point {seq}")
+                try:
+                    self._fast.write_point(self._connection(), point, value_rows, f"run {run_id}, point {seq}")
+                except _FullDisk as full:
+                    raise self.full_disk(f"writing point {seq} of run {run_id}", full.cause, run_id) from full.cause
             else:
                 self._write_point_core(opened, point, numbers, units)
             opened.next_seq = seq + 1
@@ -380,7 +425,7 @@ class Writer:
         point_row = dict(zip(POINT_KEYS, point))
         run_id, seq = point_row["run_id"], point_row["seq"]
         new_quantities: dict[str, tuple[int, str]] = {}
-        with self._transaction(f"recording point {seq} of run {run_id}") as conn:
+        with self._transaction(f"recording point {seq} of run {run_id}", run_id) as conn:
             rows = []
             for name, number in numbers:
                 known = opened.quantities.get(name) or new_quantities.get(name)
@@ -418,7 +463,7 @@ class Writer:
             raise StoreError(f"run {run_id}: event kind {kind!r} must be short non-empty text, e.g. 'warning'")
         details_json = to_json(f"details of event {kind!r}", dict(details or {}))
         t = self._clock() if t_utc_s is None else float(t_utc_s)
-        with self._transaction(f"recording event {kind!r} of run {run_id}") as conn:
+        with self._transaction(f"recording event {kind!r} of run {run_id}", run_id) as conn:
             self._require_run(conn, run_id)
             event_id = conn.execute(
                 insert(s.events).values(
@@ -444,7 +489,7 @@ class Writer:
         number = to_float_or_none(f"run {run_id}: result {name!r}", value)
         details_json = to_json(f"details of result {name!r}", details)
         scope_json = to_json(f"scope of result {name!r}", dict(scope or {}))
-        with self._transaction(f"recording result {name!r} of run {run_id}") as conn:
+        with self._transaction(f"recording result {name!r} of run {run_id}", run_id) as conn:
             self._require_run(conn, run_id)
             result_id = conn.execute(
                 insert(s.results).values(
@@ -478,7 +523,7 @@ class Writer:
             ))
         if not rows:
             return 0
-        with self._transaction(f"recording {len(rows)} results of run {run_id}") as conn:
+        with self._transaction(f"recording {len(rows)} results of run {run_id}", run_id) as conn:
             self._require_run(conn, run_id)
             conn.execute(insert(s.results), rows)
         return len(rows)
@@ -522,7 +567,7 @@ class Writer:
                 f"columns {list(columns)}"
             )
         meta_json = to_json(f"meta of array {name!r}", dict(meta or {}))
-        with self._transaction(f"recording array {name!r} of run {run_id}") as conn:
+        with self._transaction(f"recording array {name!r} of run {run_id}", run_id) as conn:
             self._require_run(conn, run_id)
             if point_seq is not None:
                 exists = conn.execute(
@@ -549,6 +594,14 @@ class Writer:
             ).inserted_primary_key[0]
             conn.execute(insert(s.array_columns), [dict(row, array_id=array_id) for row in encoded])
         return int(array_id)
+
+
+class _FullDisk(Exception):
+    """Internal: the fast point writer met a full disk (the Writer names it)."""
+
+    def __init__(self, cause: BaseException) -> None:
+        super().__init__(str(cause))
+        self.cause = cause
 
 
 class _FastPointWriter:
@@ -598,6 +651,8 @@ class _FastPointWriter:
                     dbapi.rollback()
             except self._error:
                 log.warning("rollback failed on the store's write connection", exc_info=True)
+            if is_disk_full(exc):
+                raise _FullDisk(exc) from exc
             raise StoreError(
                 f"store {self._where}: writing {what} failed and nothing of it was written: {exc}"
             ) from exc
@@ -684,3 +739,25 @@ def _dut_id(conn: Connection, start: RunStart) -> int:
             insert(t).values(part_number=start.dut_part, revision=start.dut_revision, serial=start.dut_serial)
         ).inserted_primary_key[0]
     )
+
+
+def _orig(exc: BaseException) -> str:
+    return str(getattr(exc, "orig", None) or exc)
+
+
+def is_disk_full(exc: BaseException) -> bool:
+    """True when a database error means the disk (or the database's size limit) is full.
+
+    SQLite: result code SQLITE_FULL, 13, "database or disk is full" (SQLite docs, "Result and
+    Error Codes"; also met at ``max_page_count``); PostgreSQL: SQLSTATE 53100 ``disk_full``
+    (PostgreSQL docs, Appendix A, "Error Codes"); an operating-system ENOSPC.
+    """
+    import errno
+
+    orig = getattr(exc, "orig", None) or exc
+    if getattr(orig, "sqlite_errorcode", None) == 13 or getattr(orig, "sqlstate", None) == "53100":
+        return True
+    if isinstance(orig, OSError) and orig.errno == errno.ENOSPC:
+        return True
+    text = str(orig).lower()
+    return any(t in text for t in ("database or disk is full", "no space left on device", "could not extend file"))
