@@ -2,7 +2,8 @@
 
 0 success; 1 a run that did not complete or a check that failed; 2 bad input (files,
 parameters, options: nothing was enabled); 3 an instrument or database problem; 4 a run
-that could not be checked against its limits; 130 interrupted (128 + SIGINT, the shell's
+that could not be checked or decided against its limits (missing data, a run that did not
+complete, a BORDERLINE or SUSPECT verdict); 130 interrupted (128 + SIGINT, the shell's
 convention for a command ended by a signal).
 """
 
