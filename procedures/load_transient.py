@@ -140,7 +140,7 @@ def run(bench, p: Parameters) -> None:
         vout_v = switching_period_average(vout.t_s, vout.values, p.fsw_hz) if p.fsw_hz else vout.values
         metrics = load_step_metrics(vout.t_s, vout_v, step_time_s=None if iout is not None else 0.0,
                                     iout_a=None if iout is None else iout.values, band_v=p.band_v,
-                                    load_step=point["load_step"])
+                                    load_step=point["load_step"], pre_guard_s=0.5 / p.fsw_hz if p.fsw_hz else 0.0)
         seq = bench.record({
             "vin_set_v": point["vin_set_v"], "iout_set_a": point["iout_set_a"],
             "iout_from_a": point["iout_from_a"], "slew_a_per_s": point["slew_a_per_s"],

@@ -190,3 +190,49 @@ def test_input_errors():
         k_crit_buck(1.5)
     with pytest.raises(AnalysisInputError, match="vout_v < vin_v"):
         buck_boundary_load_current_a(5.0, 12.0, L_H, FS)
+
+
+@pytest.mark.parametrize("with_gate", [True, False])
+def test_light_load_ccm_is_ccm_without_a_threshold(with_gate):
+    # CCM start/peak = (I - dI/2)/(I + dI/2) (Erickson 2nd ed. ch. 2): 6 % at I = dI/2 * 1.06/0.94
+    di = (VG - V) * (V / VG) * TS / L_H
+    i_load = di / 2 * 1.06 / 0.94
+    t, i_sw, _, gate, _, _, i_start, i_pk = _buck(i_load, spike_a=1.0, noise_a=0.005)
+    assert i_start / i_pk == pytest.approx(0.06, abs=1e-9)
+    res = classify_conduction_mode(t, i_sw, v_gate_v=gate if with_gate else None, fsw_hz=FS)
+    assert res.mode == CCM and res.rule == "detection"
+    # the start current is the valley I - dI/2, read within one sample's worth of ramp
+    # (dI/(D*N_PER) = 7 mA here) and the noise
+    ramp_per_sample = (VG - V) / L_H * TS / N_PER
+    assert i_start - ramp_per_sample - 0.003 <= res.start_current_a <= i_start + 0.003
+    assert res.detection_limit_a < 0.3 * i_start
+    # the start/peak threshold of 0.1 calls the same cycles DCM: the bias the default rule avoids
+    assert classify_conduction_mode(t, i_sw, v_gate_v=gate if with_gate else None, fsw_hz=FS,
+                                    threshold_ratio=0.1).mode == DCM
+    # just below the boundary I_crit = dI/2 (Erickson ch. 5) the current starts from zero: DCM
+    t, i_sw, _, gate, *_ = _buck(0.95 * di / 2, spike_a=1.0, noise_a=0.005)
+    below = classify_conduction_mode(t, i_sw, v_gate_v=gate if with_gate else None, fsw_hz=FS)
+    assert below.mode == DCM and abs(below.start_current_a) <= below.detection_limit_a + ramp_per_sample
+
+
+@pytest.mark.parametrize("with_gate", [True, False])
+def test_boundary_with_the_detection_rule_is_the_textbook_one(with_gate):
+    # the buck boundary is I_crit = dI/2 (Erickson 2nd ed. ch. 5); the detection rule finds it within
+    # its own limit plus one sample's worth of ramp (2-4 % here), where r = 0.1 lands at +22 %
+    i_crit = buck_boundary_load_current_a(VG, V, L_H, FS)
+
+    def classify(i_load_a: float) -> str:
+        t, i_sw, _, gate, *_ = _buck(i_load_a, spike_a=1.0, noise_a=0.002)
+        return classify_conduction_mode(t, i_sw, v_gate_v=gate if with_gate else None, fsw_hz=FS).mode
+
+    res = find_boundary(classify, 0.05, 1.0, 1e-3)
+    assert res.found and res.lo_mode == DCM
+    assert i_crit <= res.boundary <= 1.05 * i_crit
+
+
+def test_threshold_ratio_none_or_inside_zero_one():
+    t, i_sw, _, gate, *_ = _buck(1.0)
+    with pytest.raises(AnalysisInputError, match="between 0 and 1"):
+        classify_conduction_mode(t, i_sw, v_gate_v=gate, threshold_ratio=0.0)
+    res = classify_conduction_mode(t, i_sw, v_gate_v=gate, threshold_ratio=0.2)
+    assert res.rule == "threshold" and res.threshold_ratio == 0.2 and res.detection_limit_a is None

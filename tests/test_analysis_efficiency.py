@@ -92,3 +92,23 @@ def test_four_point_average_and_missing_point():
     assert r.meets_indicative_limit
     missing = four_point_average(48.0, iout[:3], eff[:3], iout_rated_a=5.0, vout_nom_v=5.0)
     assert not missing.found and "75%" in missing.reason and math.isnan(missing.average_efficiency)
+
+
+def test_level_vi_above_250_w_has_its_own_row():
+    # 10 CFR 430.32(w)(1)(ii), Level VI single-voltage table, Po > 250 W (from memory): average
+    # efficiency >= 0.875 and no-load input <= 0.500 W for both classes; (EU) 2019/1782 ends at 250 W
+    assert level_vi_average_efficiency_limit(250.0, "basic-voltage") == pytest.approx(0.880)
+    assert level_vi_average_efficiency_limit(250.0, "low-voltage") == pytest.approx(0.870)
+    assert level_vi_average_efficiency_limit(250.1, "basic-voltage") == pytest.approx(0.875)
+    assert level_vi_average_efficiency_limit(600.0, "low-voltage") == pytest.approx(0.875)
+    assert no_load_power_limit_w(250.0) == 0.210 and no_load_power_limit_w(300.0) == 0.500
+    r = four_point_average(48.0, [2.5, 5.0, 7.5, 10.0], [0.90, 0.91, 0.90, 0.89], iout_rated_a=10.0, vout_nom_v=48.0)
+    assert r.pout_rated_w == 480.0 and r.limit_efficiency == pytest.approx(0.875) and r.meets_indicative_limit
+    assert "250 W" in r.note and "US" in r.note
+    for bad in (0.0, -5.0, float("nan"), float("inf")):
+        with pytest.raises(ValueError, match="positive"):
+            level_vi_average_efficiency_limit(bad, "basic-voltage")
+        with pytest.raises(ValueError, match="positive"):
+            no_load_power_limit_w(bad)
+    with pytest.raises(ValueError, match="supply class"):
+        level_vi_average_efficiency_limit(500.0, "high-voltage")  # type: ignore[arg-type]

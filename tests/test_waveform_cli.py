@@ -109,3 +109,42 @@ def test_bad_files_exit_2_with_one_clear_line(tmp_path, capsys):
     one.write_text("t_s,v\n" + "\n".join(f"{k}e-6,{k % 2}" for k in range(20)) + "\n", encoding="utf-8")
     assert _cli(["analyze", "transient", str(one)]) == 2
     assert "--step-time-s" in _err(capsys)
+
+
+def test_transient_cli_averages_over_one_switching_period(tmp_path, capsys):
+    # a first-order recovery with 10 mV pk-pk of switching ripple on top:
+    # v = 5 - A exp(-(t - t0)/tau) + ripple, 100 samples per switching period
+    fsw, tau, a, band = 200e3, 14e-6, 0.2, 0.01
+    dt = 1 / fsw / 100
+    t = np.arange(-1000, 6000) * dt  # -50 us .. 300 us in 50 ns steps
+    t0 = 0.0
+    ripple = 0.005 * np.sin(2 * np.pi * fsw * t)
+    v = 5.0 - np.where(t >= t0, a * np.exp(-np.maximum(t - t0, 0) / tau), 0.0) + ripple
+    i = np.where(t >= t0, 5.0, 2.5)
+    f = _write(tmp_path / "step.csv", "time_s,vout_v,iout_a", (t, v, i))
+    # ripple-free truth: a first-order response enters +/-band at tau*ln(A/band) (exponential decay,
+    # any control text); averaged over one period T it reads A*exp(-t/tau)*sinh(x)/x with x = T/(2 tau)
+    # (the mean of an exponential over a centred window, integrated in closed form), so it enters at
+    # tau*ln(A*sinh(x)/(x*band))
+    x = 1 / fsw / (2 * tau)
+    expected = tau * math.log(a * math.sinh(x) / (x * band))
+    assert expected == pytest.approx(tau * math.log(a / band), abs=0.1e-6)  # 41.9 us, the boxcar adds 0.07 us
+    assert _cli(["analyze", "transient", f, "--band-v", str(band), "--fsw-hz", str(fsw), "--json"]) == 0
+    data = json.loads(capsys.readouterr().out)
+    assert data["averaged_over_switching_period_s"] == pytest.approx(1 / fsw)
+    out = data["result"]
+    assert out["settling_after_step_s"] == pytest.approx(expected, abs=2 * dt)
+    assert out["recovery_after_step_s"] == pytest.approx(expected, abs=2 * dt)
+    # without averaging the ripple's crests keep leaving the band after the response is inside it:
+    # the last exit lies between tau*ln(A/band) and tau*ln(A/(band - 5 mV)) = 51.6 us
+    assert _cli(["analyze", "transient", f, "--band-v", str(band), "--json"]) == 0
+    raw = json.loads(capsys.readouterr().out)
+    assert raw["averaged_over_switching_period_s"] is None
+    assert expected + 5e-6 < raw["result"]["settling_after_step_s"] <= tau * math.log(a / (band - 0.005)) + dt
+    # the CLI and the procedure's Python path agree
+    from benchctl.analysis.transient import load_step_metrics, switching_period_average
+
+    m = load_step_metrics(t, switching_period_average(t, v, fsw), iout_a=i, band_v=band, pre_guard_s=0.5 / fsw)
+    assert m.settling_after_step_s == pytest.approx(out["settling_after_step_s"], rel=1e-12)
+    assert _cli(["analyze", "transient", f, "--band-v", str(band), "--fsw-hz", "0"]) == 2
+    assert "--fsw-hz" in _err(capsys)

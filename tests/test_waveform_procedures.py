@@ -143,3 +143,41 @@ def test_switch_node_ring_and_two_capacitor_method(simulated_bench, station_for,
     assert row["ring_fit_ok"] == 1.0
     assert row["drain_peak_v"] > 48.0 + 5.0 / 0.2  # above Vin + reflected voltage: the leakage spike
     assert bench.instruments["scope"].fixture_c_f == 0.0  # the added capacitance was removed again
+
+
+def test_conduction_mode_labels_follow_the_model_near_the_boundary(simulated_bench, station_for, benchctl_store):
+    bench = simulated_bench("flyback-48v-5v")
+    out = _run("conduction_mode", bench, station_for(bench), benchctl_store,
+               {"vin_v": [36.0], "iout_a": [0.6, 1.0, 1.6, 4.0], "search_min_a": 0.2, "search_max_a": 3.0,
+                "search_tol_a": 0.005})
+
+    def valley_to_peak(i):
+        sp = bench.model.steady_state(36.0, "CC", i, was_running=True).stage
+        return (sp.l_valley_a if sp.mode == "CCM" else 0.0) / sp.l_peak_a
+
+    # 1.0 A is light-load CCM: the model's own valley is 7 % of the peak (a start/peak threshold of
+    # 0.1 would call it DCM); the default rule labels every map point as the model runs it
+    assert 0.05 < valley_to_peak(1.0) < 0.1
+    maps = _results(benchctl_store, out.run_id, "conduction_mode_ccm")
+    for scope, value, det in zip(maps["scope"], maps["value"], maps["details"]):
+        truth = 1.0 if valley_to_peak(scope["iout_set_a"]) > 0 else 0.0
+        assert value == truth, scope
+        assert det["side_of_extrapolated_boundary"] == ("CCM" if truth else "DCM")
+    # the bisection boundary against the model's own boundary, where its valley current reaches
+    # zero (found with scipy.optimize.brentq on the model's steady state): within 2 %, i.e. the
+    # detection limit, where the bias of a threshold r would be (1 + r)/(1 - r) - 1 = 22 % for r = 0.1
+    d = bench.design
+    n, v = d.stage.turns_ratio, d.vout_nom_v
+
+    def valley(i):
+        sp = bench.model.steady_state(36.0, "CC", i, was_running=True).stage
+        return sp.l_valley_a if sp.mode == "CCM" else -(1.0 - (sp.d2 + sp.duty))  # < 0 in DCM (idle time)
+
+    i_model = brentq(valley, 0.3, 3.0, xtol=1e-4)
+    duty = v / (v + n * 36.0)
+    i_textbook = v * (1 - duty) ** 2 / (2 * n * n * d.stage.inductance_h * d.fsw_hz)  # Erickson 2nd ed. ch. 5
+    assert i_model == pytest.approx(i_textbook, rel=0.03)
+    found = _results(benchctl_store, out.run_id, "ccm_dcm_boundary_a")["value"].iloc[0]
+    assert i_model <= found <= 1.02 * i_model + 0.005
+    extrapolated = _results(benchctl_store, out.run_id, "ccm_dcm_boundary_extrapolated_a")["value"].iloc[0]
+    assert extrapolated == pytest.approx(i_model, rel=0.02)

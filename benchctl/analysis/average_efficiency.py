@@ -3,9 +3,12 @@
 The average is the arithmetic mean of the efficiencies at 25, 50, 75 and 100 % of the
 nameplate output current (10 CFR 430 Subpart B Appendix Z; (EU) 2019/1782 Annex II).
 The limit is the US DOE Level VI formula of 10 CFR 430.32(w), the same formulas being
-used by (EU) 2019/1782 up to 250 W (from memory). Those rules are written for AC-DC
-external power supplies: applied to a DC-DC converter the comparison is an INDICATIVE
-check of how good the efficiency is, never a compliance test.
+used by (EU) 2019/1782 up to 250 W (from memory). Above 250 W nameplate output the
+Level VI table has one more row, 0.875 average efficiency and 0.500 W at no load for both
+supply classes (10 CFR 430.32(w)(1)(ii), from memory); (EU) 2019/1782 stops at 250 W, so
+such a limit is the US one alone. Those rules are written for AC-DC external power
+supplies: applied to a DC-DC converter the comparison is an INDICATIVE check of how good
+the efficiency is, never a compliance test.
 """
 
 from __future__ import annotations
@@ -33,11 +36,15 @@ def level_vi_average_efficiency_limit(pout_rated_w: float, cls: SupplyClass) -> 
     10 CFR 430.32(w)(1)(ii) Table, single-voltage external supplies (from memory):
     basic-voltage: Po ≤ 1 W: 0.5·Po + 0.160; 1 < Po ≤ 49 W: 0.071·ln Po − 0.0014·Po + 0.67;
     49 < Po ≤ 250 W: 0.880. Low-voltage: 0.517·Po + 0.087; 0.0834·ln Po − 0.0014·Po + 0.609;
-    0.870.
+    0.870. Po > 250 W: 0.875 for both classes (US rule only; (EU) 2019/1782 ends at 250 W).
     """
     po = float(pout_rated_w)
-    if not po > 0:
-        raise ValueError(f"nameplate output power must be positive, not {pout_rated_w!r}")
+    if not (po > 0 and math.isfinite(po)):
+        raise ValueError(f"nameplate output power must be a positive number of watts, not {pout_rated_w!r}")
+    if cls not in ("basic-voltage", "low-voltage"):
+        raise ValueError(f"supply class must be 'basic-voltage' or 'low-voltage', not {cls!r}")
+    if po > 250.0:
+        return 0.875
     if cls == "basic-voltage":
         if po <= 1.0:
             return 0.5 * po + 0.160
@@ -54,8 +61,14 @@ def level_vi_average_efficiency_limit(pout_rated_w: float, cls: SupplyClass) -> 
 
 
 def no_load_power_limit_w(pout_rated_w: float) -> float:
-    """Level VI no-load input power limit: 0.100 W up to 49 W, 0.210 W for 49–250 W (from memory)."""
-    return 0.100 if pout_rated_w <= 49.0 else 0.210
+    """Level VI no-load input power limit: 0.100 W up to 49 W, 0.210 W for 49–250 W, 0.500 W
+    above 250 W (10 CFR 430.32(w)(1)(ii), from memory; the EU rule ends at 250 W)."""
+    po = float(pout_rated_w)
+    if not (po > 0 and math.isfinite(po)):
+        raise ValueError(f"nameplate output power must be a positive number of watts, not {pout_rated_w!r}")
+    if po <= 49.0:
+        return 0.100
+    return 0.210 if po <= 250.0 else 0.500
 
 
 @dataclass(frozen=True)
@@ -112,8 +125,11 @@ def four_point_average(
             )
         values.append(float(np.mean(e[sel])))
     avg = float(np.mean(values))
+    note = AverageEfficiency.note
+    if pout_rated_w > 250.0:
+        note += "; above 250 W the limit is the US Level VI row alone ((EU) 2019/1782 ends at 250 W)"
     return AverageEfficiency(
         found=True, reason="", vin_v=float(vin_v), average_efficiency=avg,
         point_efficiencies=tuple(values), limit_efficiency=limit, supply_class=cls,
-        pout_rated_w=pout_rated_w, meets_indicative_limit=avg >= limit,
+        pout_rated_w=pout_rated_w, meets_indicative_limit=avg >= limit, note=note,
     )

@@ -4,6 +4,14 @@ A frequency response is two 1-D arrays of equal length: ``freq_hz`` (strictly
 increasing, > 0) and the complex ``response`` at those frequencies. Between
 samples the response is modelled as log-magnitude and *unwrapped* phase, both
 linear in log-frequency, which is how a Bode plot is read (common practice).
+
+Unwrapping picks, between neighbouring samples, the phase change of the smallest
+size (numpy.unwrap): it is right only while the true change stays within ±180°. A
+sweep too coarse for the phase (a delay adds 360°·f·τ, which grows without bound)
+then folds the phase back and invents or hides crossings. :func:`large_phase_steps`
+finds the intervals whose unwrapped step exceeds ``UNWRAP_STEP_LIMIT_DEG`` (90°, our
+choice: half of what unwrapping can resolve, leaving room for noise and for a step
+that keeps growing); from the first of them on, the unwrapped phase is ambiguous.
 """
 
 from __future__ import annotations
@@ -19,7 +27,11 @@ __all__ = [
     "gain_db_of",
     "unwrapped_phase_deg",
     "interpolate_response",
+    "large_phase_steps",
+    "UNWRAP_STEP_LIMIT_DEG",
 ]
+
+UNWRAP_STEP_LIMIT_DEG = 90.0
 
 
 def check_response(
@@ -116,6 +128,15 @@ def unwrapped_phase_deg(response: ArrayLike) -> NDArray[np.float64]:
     if anchored <= -270.0:
         anchored += 360.0
     return phase + (anchored - first)
+
+
+def large_phase_steps(response: ArrayLike, limit_deg: float = UNWRAP_STEP_LIMIT_DEG) -> NDArray[np.intp]:
+    """Indices i of the intervals [i, i+1] whose unwrapped phase step |Δφ| exceeds ``limit_deg``
+    (degrees, 0 < limit < 180); empty when the sweep is dense enough to unwrap unambiguously."""
+    if not 0.0 < limit_deg < 180.0:
+        raise AnalysisInputError(f"limit_deg must lie between 0 and 180 degrees, got {limit_deg!r}")
+    steps = np.abs(np.diff(unwrapped_phase_deg(response)))
+    return np.flatnonzero(steps > limit_deg)
 
 
 def interpolate_response(

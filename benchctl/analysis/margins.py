@@ -28,6 +28,12 @@ How the data are read:
   just outside the measured band, and analyzer data are least trustworthy there.
 * "Not found in the measured band" is an explicit :class:`NotFound` value with
   its reason, never an invented number.
+* Unwrapping needs neighbouring samples closer than 180 deg in phase; from the
+  first interval whose step exceeds ``unwrap_step_limit_deg`` (default 90 deg,
+  :func:`benchctl.analysis.frequency_response.large_phase_steps`) on, phase
+  crossings may be invented or missed: they carry ``unwrap_ambiguous``, the
+  result says from where (``unwrap_ambiguous_from_hz``) and a note asks for a
+  denser sweep.
 
 Phase convention: ``"loop"`` means the data are T itself. ``"inverted"`` means
 the analyzer shows -T (it reports the inverting error amplifier's 180 deg, so the
@@ -46,7 +52,9 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
 from benchctl.analysis.frequency_response import (
+    UNWRAP_STEP_LIMIT_DEG,
     check_response,
+    large_phase_steps,
     response_from_gain_phase,
     unwrapped_phase_deg,
 )
@@ -92,6 +100,7 @@ class GainCrossover:
     direction: str
     near_band_edge: bool
     multiplicity: int = 1
+    unwrap_ambiguous: bool = False
 
 
 @dataclass(frozen=True)
@@ -109,6 +118,7 @@ class PhaseCrossover:
     gain_margin_db: float
     near_band_edge: bool
     multiplicity: int = 1
+    unwrap_ambiguous: bool = False
 
 
 @dataclass(frozen=True)
@@ -120,6 +130,9 @@ class LoopMargins:
     closest to 0 dB (smallest |GM|, as python-control picks it). Either is a
     :class:`NotFound` when the band holds no such crossing.
     ``modulus_margin`` = min |1 + T| (dimensionless) at ``modulus_margin_freq_hz``.
+    ``unwrap_ambiguous_from_hz`` is the lower end of the first interval whose phase step
+    is too large to unwrap without ambiguity (None when there is none); crossings from
+    there up carry ``unwrap_ambiguous``. ``flags`` lists "unwrap_ambiguous" then.
     """
 
     gain_crossovers: tuple[GainCrossover, ...]
@@ -132,6 +145,11 @@ class LoopMargins:
     band_max_hz: float
     phase_convention: str
     notes: tuple[str, ...]
+    unwrap_ambiguous_from_hz: float | None = None
+
+    @property
+    def flags(self) -> tuple[str, ...]:
+        return ("unwrap_ambiguous",) if self.unwrap_ambiguous_from_hz is not None else ()
 
     @property
     def worst_phase_margin_deg(self) -> float | None:
@@ -165,14 +183,18 @@ class LoopMargins:
             "not_found": {"phase_margin": wpm.reason if isinstance(wpm, NotFound) else None,
                           "gain_margin": wgm.reason if isinstance(wgm, NotFound) else None},
             "gain_crossovers": [{"freq_hz": g.freq_hz, "phase_margin_deg": g.phase_margin_deg,
-                                 "direction": g.direction, "near_band_edge": g.near_band_edge}
+                                 "direction": g.direction, "near_band_edge": g.near_band_edge,
+                                 "multiplicity": g.multiplicity, "unwrap_ambiguous": g.unwrap_ambiguous}
                                 for g in self.gain_crossovers],
             "phase_crossovers": [{"freq_hz": c.freq_hz, "gain_margin_db": c.gain_margin_db,
-                                  "phase_level_deg": c.phase_level_deg, "near_band_edge": c.near_band_edge}
+                                  "phase_level_deg": c.phase_level_deg, "near_band_edge": c.near_band_edge,
+                                  "multiplicity": c.multiplicity, "unwrap_ambiguous": c.unwrap_ambiguous}
                                  for c in self.phase_crossovers],
             "band_min_hz": self.band_min_hz,
             "band_max_hz": self.band_max_hz,
             "phase_convention": self.phase_convention,
+            "unwrap_ambiguous_from_hz": self.unwrap_ambiguous_from_hz,
+            "flags": list(self.flags),
             "notes": list(self.notes),
         }
 
@@ -210,6 +232,7 @@ def loop_margins(
     merge_decades: float = 0.0,
     edge_decades: float = 1.0 / 3.0,
     edge_points: int = 2,
+    unwrap_step_limit_deg: float = UNWRAP_STEP_LIMIT_DEG,
 ) -> LoopMargins:
     """Gain and phase crossovers, phase/gain margins and modulus margin of T.
 
@@ -243,6 +266,21 @@ def loop_margins(
 
     notes: list[str] = []
     x = np.log10(f)
+    big_steps = large_phase_steps(t, unwrap_step_limit_deg)
+    first_bad = int(big_steps[0]) if big_steps.size else None
+    if first_bad is not None:
+        steps = np.abs(np.diff(unwrapped_phase_deg(t)))
+        per_decade = (f.size - 1) / (x[-1] - x[0]) if x[-1] > x[0] else float(f.size)
+        need = per_decade * float(steps[big_steps].max()) / 45.0
+        notes.append(
+            f"the phase changes by up to {steps[big_steps].max():.0f} deg between neighbouring samples from "
+            f"{f[first_bad]:g} Hz up ({big_steps.size} interval(s) above {unwrap_step_limit_deg:g} deg): too far apart "
+            "to unwrap without ambiguity, so phase crossings there may be invented or missed; sweep with at "
+            f"least {math.ceil(need)} points per decade (now {per_decade:.0f}) or stop below {f[first_bad]:g} Hz"
+        )
+
+    def ambiguous(c: _Crossing) -> bool:
+        return first_bad is not None and c.index >= first_bad
     log_mag = _smooth(np.log10(np.abs(t)), smooth_points)
     phase = _smooth(unwrapped_phase_deg(t), smooth_points)
     if smooth_points > 1:
@@ -268,6 +306,7 @@ def loop_margins(
                 direction="falling" if not c.rising else "rising",
                 near_band_edge=near_edge(c),
                 multiplicity=count,
+                unwrap_ambiguous=ambiguous(c),
             )
         )
 
@@ -291,6 +330,7 @@ def loop_margins(
                 gain_margin_db=float(-g_db),
                 near_band_edge=near_edge(c),
                 multiplicity=count,
+                unwrap_ambiguous=ambiguous(c),
             )
         )
 
@@ -356,6 +396,7 @@ def loop_margins(
         band_max_hz=float(f[-1]),
         phase_convention=phase_convention,
         notes=tuple(notes),
+        unwrap_ambiguous_from_hz=None if first_bad is None else float(f[first_bad]),
     )
 
 

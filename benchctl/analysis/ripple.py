@@ -5,6 +5,19 @@ removed), taken over an integer number of switching periods so that pk-pk and RM
 not depend on where the record was cut, optionally through a low-pass filter that
 emulates the 20 MHz bandwidth limit of an oscilloscope.
 
+The bandwidth limit is the analog filter itself (a Butterworth pole set from
+``scipy.signal.butter(..., analog=True)``; order 1 is a scope's single pole) driven by the
+trace read as a shape-preserving piecewise cubic between the samples (PCHIP, Fritsch &
+Carlson, SIAM J. Numer. Anal. 17, 1980), integrated exactly over each sample interval (the
+state-space solution x(h) = e^(Ah)x(0) + ∫ e^(A(h−s))B u(s) ds, any linear-systems text).
+It therefore equals ``scipy.signal.lsim`` of the analog filter on that interpolant, and is
+exact for ramps and steps. Against a sine, which a cubic only approximates, at 25 samples
+per cutoff period (fs = 25·fc) the pk-pk through the first-order limit is within 0.04 % of
+the analog |H| = 1/√(1 + (f/fc)²) up to f = 1.5·fc, 0.13 % up to 2·fc and 0.4 % up to
+2.5·fc (10 samples per period of the sine; the bilinear transform used before read 2.4 %
+low there), 1 % at 3.1·fc; the error grows as the sine has fewer samples per period, and
+at 5 samples per period nothing drawn from the samples alone is reliable.
+
 Estimate: buck inductor and output-capacitor ripple after Erickson & Maksimović,
 *Fundamentals of Power Electronics*, 2nd ed., ch. 2 (from memory).
 """
@@ -111,6 +124,52 @@ def _dominant_frequency(x: NDArray[np.float64], dt: float) -> tuple[float | None
     return float(freqs[k]), "largest FFT peak (Hann window)"
 
 
+def _hermite_weights(a_h: NDArray[np.float64], b_h: NDArray[np.float64], nodes: int = 16) -> list[NDArray[np.float64]]:
+    """Γ_j = ∫0^1 e^(A·h·(1 − τ))·B·h·H_j(τ) dτ for the cubic Hermite basis H00, H01, H10, H11
+    (``a_h`` = A·h, ``b_h`` = B·h; Gauss-Legendre quadrature, exact to rounding for these
+    smooth integrands)."""
+    from scipy.linalg import expm
+
+    x, w = np.polynomial.legendre.leggauss(nodes)
+    tau, w = 0.5 * (x + 1.0), 0.5 * w
+    basis = (2 * tau**3 - 3 * tau**2 + 1, -2 * tau**3 + 3 * tau**2, tau**3 - 2 * tau**2 + tau, tau**3 - tau**2)
+    kernel = [expm(a_h * (1.0 - tk)) @ b_h for tk in tau]  # n x 1 each
+    return [sum(w[k] * h_j[k] * kernel[k] for k in range(tau.size)) for h_j in basis]
+
+
+def analog_low_pass(v: ArrayLike, dt_s: float, cutoff_hz: float, order: int = 1) -> NDArray[np.float64]:
+    """The analog Butterworth low-pass (``order`` poles, -3 dB at ``cutoff_hz``) applied to samples
+    ``dt_s`` apart, read as a PCHIP between samples and integrated exactly per interval (see the
+    module docstring); starts at rest on the first sample's value.
+
+    Per interval k: x[k+1] = Φ·x[k] + Γ00·u[k] + Γ01·u[k+1] + Γ10·m[k] + Γ11·m[k+1],
+    y[k] = C·x[k] + D·u[k], with Φ = e^(A·dt), m the PCHIP slopes per sample interval and
+    Γ from :func:`_hermite_weights`; each Γ term runs as its own transfer function
+    C(zI − Φ)^-1 Γ (``scipy.signal.ss2tf``, ``lfilter``).
+    """
+    from scipy.interpolate import PchipInterpolator
+    from scipy.linalg import expm
+
+    x = np.asarray(v, dtype=float)
+    if x.size < 2:
+        return x.copy()
+    a, b, c, d = signal.zpk2ss(*signal.butter(order, 2 * math.pi * cutoff_hz, btype="low", analog=True,
+                                               output="zpk"))
+    phi = expm(a * dt_s)
+    gammas = _hermite_weights(a * dt_s, b * dt_s)
+    idx = np.arange(x.size, dtype=float)
+    u = x - x[0]  # at rest on the first value (a low-pass passes DC with gain 1)
+    m = PchipInterpolator(idx, u)(idx, nu=1)
+    zero = np.zeros(1)
+    drives = (np.concatenate([u[:-1], zero]), np.concatenate([u[1:], zero]),
+              np.concatenate([m[:-1], zero]), np.concatenate([m[1:], zero]))
+    y = float(np.real(np.squeeze(d))) * u
+    for gamma, drive in zip(gammas, drives):
+        num, den = signal.ss2tf(phi, np.real(gamma), np.real(c), np.zeros((1, 1)))
+        y = y + signal.lfilter(np.real(num[0]), np.real(den), drive)
+    return y + x[0]
+
+
 def output_ripple(
     t_s: ArrayLike,
     vout_v: ArrayLike,
@@ -123,9 +182,9 @@ def output_ripple(
 
     With ``fsw_hz`` the largest whole number of switching periods that fits the record
     is used; otherwise the whole record. ``bandwidth_limit_hz`` (e.g.
-    ``SCOPE_BANDWIDTH_LIMIT_HZ``) applies a causal Butterworth low-pass of
-    ``filter_order`` (1 resembles a scope's analog limit), and the first
-    10·order/(2π·f_c) seconds are skipped while the filter settles. Common practice.
+    ``SCOPE_BANDWIDTH_LIMIT_HZ``) applies the analog Butterworth low-pass of
+    ``filter_order`` (1 is a scope's single-pole limit; :func:`analog_low_pass`), and
+    the first 10·order/(2π·f_c) seconds are skipped while the filter settles. Common practice.
     """
     t, v, dt = _as_uniform_series(t_s, vout_v, "vout_v")
     fs = 1.0 / dt
@@ -144,12 +203,11 @@ def output_ripple(
                 f"{0.5 * fs:.4g} Hz, so the sampling already limits the bandwidth"
             )
         else:
-            sos = signal.butter(filter_order, bandwidth_limit_hz, btype="low", fs=fs, output="sos")
-            zi = signal.sosfilt_zi(sos) * v[0]
-            v, _ = signal.sosfilt(sos, v, zi=zi)
+            v = analog_low_pass(v, dt, bandwidth_limit_hz, filter_order)
             start = float(t[0] + 10.0 * filter_order / (2 * math.pi * bandwidth_limit_hz))
             bw_applied = float(bandwidth_limit_hz)
-            bw_note = f"causal Butterworth low-pass, order {filter_order}, cutoff {bandwidth_limit_hz:.4g} Hz"
+            bw_note = (f"analog Butterworth low-pass, order {filter_order}, cutoff {bandwidth_limit_hz:.4g} Hz, "
+                       "on the trace read as a monotone cubic (PCHIP) between samples, integrated exactly")
 
     periods: int | None = None
     if fsw_hz is not None:

@@ -122,6 +122,7 @@ def load_step_metrics(
     pre_window_s: float | None = None,
     final_window_s: float | None = None,
     min_in_band_s: float = 0.0,
+    pre_guard_s: float = 0.0,
 ) -> TransientMetrics:
     """Measure the response of ``vout_v`` to a load step.
 
@@ -132,8 +133,11 @@ def load_step_metrics(
     that, from the sign of the largest deviation. The pre-step value is the mean over
     ``pre_window_s`` before the edge (default: everything before it); the final value
     is the mean over the last ``final_window_s`` of the record (default: last 10 % of
-    the post-step part). Method: common practice (peak deviation from the pre-step
-    value; recovery until the output enters and stays in the band).
+    the post-step part). ``pre_guard_s`` leaves the last seconds before the edge out of the
+    pre-step mean: give half a switching period for a trace averaged over one period
+    (:func:`switching_period_average`), whose samples that close to the edge already hold
+    part of the step. Method: common practice (peak deviation from the pre-step value;
+    recovery until the output enters and stays in the band).
     """
     t, v = as_series(t_s, vout_v, "vout_v", 10)
     direction_from_current: str | None = None
@@ -153,11 +157,13 @@ def load_step_metrics(
     if load_step is not None and load_step not in (LOAD_INCREASE, LOAD_DECREASE):
         raise AnalysisInputError(f"load_step must be {LOAD_INCREASE!r} or {LOAD_DECREASE!r}, got {load_step!r}")
 
-    pre_mask = t < step_time_s
+    if not (pre_guard_s >= 0 and np.isfinite(pre_guard_s)):
+        raise AnalysisInputError(f"pre_guard_s must be zero or a positive time, got {pre_guard_s!r}")
+    pre_mask = t < step_time_s - pre_guard_s
     if pre_window_s is not None:
         if pre_window_s <= 0:
             raise AnalysisInputError(f"pre_window_s must be positive, got {pre_window_s!r}")
-        pre_mask &= t >= step_time_s - pre_window_s
+        pre_mask &= t >= step_time_s - pre_guard_s - pre_window_s
     if np.count_nonzero(pre_mask) < 2:
         raise AnalysisInputError(
             "fewer than 2 samples before the step; move the trigger so the record starts earlier"
@@ -245,5 +251,8 @@ def switching_period_average(t_s: ArrayLike, v: ArrayLike, fsw_hz: float) -> NDA
         raise AnalysisInputError(f"the record ({t[-1] - t[0]:.3g} s) is shorter than one switching period "
                                  f"({1 / fsw_hz:.3g} s); capture a longer record")
     pad_lo, pad_hi = n // 2, n - 1 - n // 2
-    padded = np.concatenate([np.full(pad_lo, x[:n].mean()), x, np.full(pad_hi, x[-n:].mean())])
-    return np.convolve(padded, np.ones(n) / n, mode="valid")
+    # every output is the mean of one whole period: the first and last half period hold the
+    # means of the first and last period (averaging pads instead would leave half a period of
+    # ripple in them and bias the pre-step and final values)
+    full = np.convolve(x, np.ones(n) / n, mode="valid")
+    return np.concatenate([np.full(pad_lo, full[0]), full, np.full(pad_hi, full[-1])])

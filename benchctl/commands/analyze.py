@@ -6,7 +6,13 @@ plant model and a proposed type 2/3 compensator.
     benchctl analyze loop-gain bode.csv [--json] [--phase-convention loop|inverted]
         [--fit [--fit-max-order N] [--origin-poles K]]
         [--propose --crossover-hz F [--phase-margin-deg P] [--type auto|2|3] [--r1-ohm R]]
-        [--fsw-hz F]
+        [--fsw-hz F] [--smooth-points N] [--merge-decades D] [--unwrap-step-limit-deg A]
+
+``--smooth-points`` / ``--merge-decades`` are the noise remedies of
+:func:`~benchctl.analysis.margins.loop_margins` (off by default: every crossing in the
+data is reported). A warning is printed when neighbouring samples lie too far apart in
+phase to unwrap without ambiguity (``--unwrap-step-limit-deg``, default 90): the phase
+crossings from there up are marked and may be spurious.
 
 Margins: :func:`benchctl.analysis.margins.loop_margins` (Erickson & Maksimović 2nd ed.,
 ch. 9). Fit: :func:`benchctl.analysis.plant_fit.fit_plant_auto` (Levy 1959, Sanathanan &
@@ -58,6 +64,13 @@ def add_analyze_arguments(subparsers: Any) -> argparse.ArgumentParser:
     p.add_argument("--r1-ohm", type=float, default=10e3, metavar="R", help="upper feedback resistor R1 (default 10k)")
     p.add_argument("--fsw-hz", type=float, default=None, metavar="F",
                    help="switching frequency: warns when the crossover is above fsw/5")
+    p.add_argument("--smooth-points", type=int, default=1, metavar="N",
+                   help="centred moving average of log|T| and phase over N samples (odd; default 1 = none)")
+    p.add_argument("--merge-decades", type=float, default=0.0, metavar="D",
+                   help="crossings of one kind closer than D decades count as one (odd cluster) or none (even); "
+                        "default 0 = report every crossing")
+    p.add_argument("--unwrap-step-limit-deg", type=float, default=None, metavar="A",
+                   help="warn when neighbouring samples differ by more than A degrees in phase (default 90)")
     p.set_defaults(analyze_handler="benchctl.commands.analyze:run_loop_gain")
     try:
         from benchctl.commands.analyze_waveforms import add_waveform_subcommands
@@ -154,12 +167,25 @@ def loop_gain_report(args: argparse.Namespace) -> dict[str, Any]:
 
     data = read_loop_csv(args.file)
     convention = args.phase_convention or data.phase_convention or "loop"
-    m = loop_margins(data.freq_hz, data.response, phase_convention=convention)
+    smooth = int(getattr(args, "smooth_points", 1) or 1)
+    merge = float(getattr(args, "merge_decades", 0.0) or 0.0)
+    limit = getattr(args, "unwrap_step_limit_deg", None)
+    kwargs_m: dict[str, Any] = {"smooth_points": smooth, "merge_decades": merge}
+    if limit is not None:
+        kwargs_m["unwrap_step_limit_deg"] = float(limit)
+    m = loop_margins(data.freq_hz, data.response, phase_convention=convention, **kwargs_m)
     report: dict[str, Any] = {
         "file": data.path, "points": int(data.freq_hz.size), "form": data.form, "columns": list(data.columns),
         "band_hz": [float(data.freq_hz[0]), float(data.freq_hz[-1])], "phase_convention": convention,
+        "smooth_points": smooth, "merge_decades": merge,
         **_margins_dict(m), "warnings": [],
     }
+    if m.unwrap_ambiguous_from_hz is not None:
+        n_amb = sum(1 for c in m.phase_crossovers if c.unwrap_ambiguous)
+        report["warnings"].append(
+            f"neighbouring samples are too far apart in phase to unwrap without ambiguity from "
+            f"{m.unwrap_ambiguous_from_hz:g} Hz up; {n_amb} phase crossover(s) there may be spurious or missing "
+            "(the note says the sweep density needed)")
     if args.fsw_hz is not None:
         if not (math.isfinite(args.fsw_hz) and args.fsw_hz > 0):
             raise AnalysisInputError(f"--fsw-hz {args.fsw_hz!r} must be a frequency > 0 Hz")
@@ -233,13 +259,17 @@ def run_loop_gain(args: argparse.Namespace) -> int:
     table.add_row("phase margin", _fmt(report["phase_margin_deg"], "deg"))
     table.add_row("gain margin", _fmt(report["gain_margin_db"], "dB"))
     table.add_row("phase crossover", _fmt(report["phase_crossover_hz"], "Hz"))
+    table.add_row("phase crossovers found", str(len(report["phase_crossovers"]))
+                  + (" (some above the unwrap limit)" if report["unwrap_ambiguous_from_hz"] is not None else ""))
     table.add_row("modulus margin min|1+T|", _fmt(report["modulus_margin"], ""))
     out.print(table)
     for key, reason in report["not_found"].items():
         if reason:
             out.print(f"[yellow]{key.replace('_', ' ')}:[/] {escape(reason)}")
-    for note in report["notes"] + report["warnings"]:
+    for note in report["notes"]:
         out.print(f"[yellow]note:[/] {escape(note)}")
+    for warning in report["warnings"]:
+        out.print(f"[bold yellow]warning:[/] {escape(warning)}")
     if "fit" in report:
         f = report["fit"]
         out.print(f"[bold]plant fit[/] order {f['num_order']}/{f['den_order']}"

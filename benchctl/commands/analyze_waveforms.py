@@ -3,13 +3,16 @@
 ::
 
     benchctl analyze transient step.csv [--vout-column C] [--iout-column C] [--step-time-s T]
-                                        (--band-v B | --band-pct P) [--json]
+                                        (--band-v B | --band-pct P) [--fsw-hz F] [--json]
     benchctl analyze ripple vout.csv [--column C] [--fsw-hz F] [--bandwidth-limit-hz F] [--json]
     benchctl analyze mode isw.csv [--column C] [--gate-column C] [--fsw-hz F] [--threshold-ratio R] [--json]
     benchctl analyze ringing drain.csv [--column C] [--start-time-s T] [--json]
 
 The files hold a time column in seconds and value columns (:mod:`benchctl.analysis.waveform_csv`);
-a bad file is reported with its row and column and exit code 2. Methods:
+a bad file is reported with its row and column and exit code 2. With ``--fsw-hz`` the
+transient metrics are taken on the output averaged over one switching period (a boxcar with
+nulls at fsw and its harmonics: the ripple does not count as deviation), as the
+``load_transient`` procedure does. Methods:
 :mod:`benchctl.analysis.transient`, :mod:`~benchctl.analysis.ripple`,
 :mod:`~benchctl.analysis.conduction_mode`, :mod:`~benchctl.analysis.ringing`.
 """
@@ -42,6 +45,9 @@ def add_waveform_subcommands(analyze_sub: Any) -> None:
                       help="half-width of the band in %% of the final value (default 1 %%)")
     p.add_argument("--load-step", choices=("increase", "decrease"), default=None,
                    help="direction of the load step (default: from the current, else the largest deviation)")
+    p.add_argument("--fsw-hz", type=float, default=None, metavar="F",
+                   help="switching frequency: average the output over one period before the metrics, so the "
+                        "ripple does not count as deviation (default: no averaging)")
     p.add_argument("--json", action="store_true", help="print JSON instead of a table")
     p.set_defaults(analyze_handler=f"{_HANDLERS}:run_transient")
 
@@ -61,8 +67,9 @@ def add_waveform_subcommands(analyze_sub: Any) -> None:
     p.add_argument("--column", default=None, help="switch-current column (default: the first value column)")
     p.add_argument("--gate-column", default=None, help="gate-drive column marking the on-times")
     p.add_argument("--fsw-hz", type=float, default=None, help="switching frequency (rejects spurious edges)")
-    p.add_argument("--threshold-ratio", type=float, default=0.1,
-                   help="start/peak current above which the mode is CCM (default 0.1)")
+    p.add_argument("--threshold-ratio", type=float, default=None,
+                   help="start/peak current above which the mode is CCM (biased near the boundary); default: CCM "
+                        "when the start current is above zero by 3 standard uncertainties")
     p.add_argument("--json", action="store_true", help="print JSON instead of a table")
     p.set_defaults(analyze_handler=f"{_HANDLERS}:run_mode")
 
@@ -139,9 +146,21 @@ def run_transient(args: argparse.Namespace) -> int:
                                      "add one (--iout-column) or give --step-time-s")
     band_v = args.band_v
     band_rel = None if band_v is not None else (args.band_pct if args.band_pct is not None else 1.0) / 100.0
+    fsw = getattr(args, "fsw_hz", None)
+    source: dict[str, Any] = {"vout_column": vname, "iout_column": iname}
+    if fsw is not None:
+        from benchctl.analysis.transient import switching_period_average
+
+        if not (math.isfinite(fsw) and fsw > 0):
+            raise AnalysisInputError(f"--fsw-hz {fsw!r} must be a frequency > 0 Hz")
+        vout = switching_period_average(table.t_s, vout, fsw)
+        source["averaged_over_switching_period_s"] = 1.0 / fsw
+    else:
+        source["averaged_over_switching_period_s"] = None
     m = load_step_metrics(table.t_s, vout, step_time_s=args.step_time_s, iout_a=iout, band_v=band_v,
-                          band_rel=band_rel, load_step=args.load_step)
-    return _emit(args, "load transient", {"vout_column": vname, "iout_column": iname}, m)
+                          band_rel=band_rel, load_step=args.load_step,
+                          pre_guard_s=0.5 / fsw if fsw is not None else 0.0)
+    return _emit(args, "load transient", source, m)
 
 
 def run_ripple(args: argparse.Namespace) -> int:
