@@ -15,6 +15,13 @@ A procedure file defines, at module level::
 
 Procedures are found by name in the ``procedures`` package or loaded from any path. The
 parameters are validated (names, types, ranges) before any instrument is opened.
+
+A procedure file is Python: loading one runs its module code with the rights of the user
+who runs benchctl - it can read, change or delete any file that user may. Load only
+procedures you trust as you would trust any program. Listing the bundled procedures
+(``benchctl procedures``) reads their names and parameters from the source without running
+it (:mod:`benchctl.procedure_summary`); ``run --list`` imports only the one procedure it
+plans.
 """
 
 from __future__ import annotations
@@ -176,6 +183,16 @@ class Procedure:
     source_sha256: str
     module: ModuleType
 
+    def planned(self, params: Parameters) -> list[dict[str, Any]]:
+        """``plan(params)``; an exception in it becomes a :class:`~benchctl.errors.ProcedureError`
+        naming the procedure file and the line where it was raised (one line, no traceback)."""
+        try:
+            return list(self.plan(params))
+        except Exception as exc:
+            raise ProcedureError(
+                f"{where_in_file(self.path, exc)}: plan() raised {type(exc).__name__}: {' '.join(str(exc).split())}; "
+                "fix the procedure file (or its parameters)") from exc
+
     def parameter(self, name: str) -> Parameter:
         for p in self.parameters:
             if p.name == name:
@@ -280,13 +297,11 @@ def load_procedure(name_or_path: str) -> Procedure:
         spec.loader.exec_module(module)
     except Exception as exc:
         sys.modules.pop(module_name, None)
-        raise ProcedureError(f"procedure {path} failed to import: {type(exc).__name__}: {exc}") from exc
-    problems = []
-    for attr in ("ROLES", "PARAMETERS", "plan", "run"):
-        if not hasattr(module, attr):
-            problems.append(f"{path}: missing module-level {attr}")
-    if problems:
-        raise ProcedureError(f"{path} is not a benchctl procedure", problems)
+        raise ProcedureError(f"procedure {where_in_file(path, exc)} failed to import: {type(exc).__name__}: "
+                             f"{' '.join(str(exc).split())}") from exc
+    missing = [attr for attr in ("ROLES", "PARAMETERS", "plan", "run") if not hasattr(module, attr)]
+    if missing:
+        raise ProcedureError(f"{path} is not a benchctl procedure: it has no module-level {', '.join(missing)}")
     parameters = tuple(module.PARAMETERS)
     if not all(isinstance(p, Parameter) for p in parameters):
         raise ProcedureError(f"{path}: PARAMETERS must be a list of benchctl.procedure.Parameter")
@@ -302,6 +317,21 @@ def load_procedure(name_or_path: str) -> Procedure:
         source_sha256=hashlib.sha256(source).hexdigest(),
         module=module,
     )
+
+
+def where_in_file(path: Path, exc: BaseException) -> str:
+    """``path line N`` of the deepest traceback frame of ``exc`` in ``path`` (``path`` alone if none)."""
+    import traceback
+
+    line = getattr(exc, "lineno", None) if isinstance(exc, SyntaxError) and exc.filename == str(path) else None
+    for frame in traceback.extract_tb(exc.__traceback__):
+        try:
+            same = Path(frame.filename).resolve() == Path(path).resolve()
+        except OSError:
+            same = False
+        if same:
+            line = frame.lineno
+    return f"{path} line {line}" if line else str(path)
 
 
 def power_parameters(*, startup_delay_s: float = 0.05) -> list[Parameter]:

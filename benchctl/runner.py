@@ -204,14 +204,14 @@ def _planned_points_done(store: Any, run_id: int) -> int:
 
 def _resume_is_complete(store: Any, procedure: Procedure, params: Parameters, run_id: int) -> bool:
     """True when every planned point of the run to resume is already committed."""
-    return _planned_points_done(store, run_id) >= len(procedure.plan(params))
+    return _planned_points_done(store, run_id) >= len(procedure.planned(params))
 
 
 def _finish_complete_resume(store: Any, procedure: Procedure, params: Parameters, run_id: int,
                             started: float) -> RunOutcome:
     """Resume a run whose planned points are all committed: its analysis is finished and the run
     completed, without opening any instrument (nothing is reset, nothing switched on)."""
-    planned = len(procedure.plan(params))
+    planned = len(procedure.planned(params))
     message = (f"all {planned} planned points were already committed; the analysis was finished without "
                "opening any instrument")
     store.reopen_run(run_id, message)

@@ -45,7 +45,7 @@ def cmd_job(args: argparse.Namespace) -> int:
             for step, procedure, params in prepared:
                 print_plan(procedure, params, station.name, store)
                 est = estimate_duration(store.runs(procedure=procedure.name, station=station.name),
-                                        len(procedure.plan(params)))
+                                        len(procedure.planned(params)))
                 unknown |= est.seconds is None
                 total += est.seconds or 0.0
             console().print(f"job {job.name!r}: {len(prepared)} step(s); estimated total "
