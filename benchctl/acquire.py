@@ -21,6 +21,8 @@ from collections.abc import Callable, Iterable, Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any
 
+from benchctl.analysis.quality import CLIPPED, LOWER_BOUND, UPPER_BOUND
+
 logger = logging.getLogger(__name__)
 
 DEFAULT_MAX_RETRIES = 3
@@ -201,13 +203,13 @@ def clip_flags(clipped: bool, *, bound: str | None = None, reason: str = "") -> 
     "lower_bound" (the true value is at least the stored one), "upper_bound", or None."""
     if not clipped:
         return {}
-    if bound not in (None, "lower_bound", "upper_bound"):
-        raise ValueError(f"bound must be 'lower_bound', 'upper_bound' or None, not {bound!r}")
-    flags = ["clipped"] + ([bound] if bound else [])
+    if bound not in (None, LOWER_BOUND, UPPER_BOUND):
+        raise ValueError(f"bound must be {LOWER_BOUND!r}, {UPPER_BOUND!r} or None, not {bound!r}")
+    flags = [CLIPPED] + ([bound] if bound else [])
     return {"flags": flags, "flag_reasons": reason or "the trace touched the scope's screen limits"}
 
 
-def merge_flags(details: Mapping[str, Any], extra: Mapping[str, Any]) -> dict[str, Any]:
+def add_flags(details: Mapping[str, Any], extra: Mapping[str, Any]) -> dict[str, Any]:
     """``details`` with the flags of ``extra`` added (flags united in order, reasons joined)."""
     out = dict(details)
     if not extra.get("flags"):

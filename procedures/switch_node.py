@@ -142,7 +142,7 @@ def _flag(row, name: str) -> bool:
 
 
 def analyse(points, p: Parameters) -> list[Result]:
-    from benchctl.acquire import clip_flags, merge_flags
+    from benchctl.acquire import clip_flags, add_flags
 
     results: list[Result] = []
     if points.empty:
@@ -160,7 +160,7 @@ def analyse(points, p: Parameters) -> list[Result]:
         results.append(Result("drain_peak_v", float(row["drain_peak_v"]), "V", details=peak_flags, scope=scope))
         fit_note = {"method": "damped-sinusoid least-squares fit (scipy.optimize.least_squares)",
                     "fit_ok": bool(row["ring_fit_ok"])}
-        fit_note = merge_flags(fit_note, clip_flags(clipped, reason="the ring was fitted to a clipped trace"))
+        fit_note = add_flags(fit_note, clip_flags(clipped, reason="the ring was fitted to a clipped trace"))
         results.append(Result("ring_freq_hz", float(row["ring_freq_hz"]), "Hz", details=fit_note, scope=scope))
         results.append(Result("ring_damping_ratio", float(row["ring_damping_ratio"]), "", details=fit_note, scope=scope))
         if "c_par_f" in row and row["c_par_f"] == row["c_par_f"]:

@@ -7,7 +7,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from benchctl.acquire import clip_flags, merge_flags, widened_screen
+from benchctl.acquire import clip_flags, add_flags, widened_screen
 from benchctl.procedure import load_procedure
 from benchctl.runner import execute
 from drivers.oscilloscope import Oscilloscope
@@ -49,7 +49,7 @@ def test_widened_screen_keeps_the_edge_that_did_not_clip():
         widened_screen(1.0, 0.0, clipped_high=True, clipped_low=False, factor=1.0)
     f = clip_flags(True, bound="lower_bound", reason="cut")
     assert f == {"flags": ["clipped", "lower_bound"], "flag_reasons": "cut"} and clip_flags(False) == {}
-    merged = merge_flags({"flags": ["unsettled"], "flag_reasons": "slow"}, f)
+    merged = add_flags({"flags": ["unsettled"], "flag_reasons": "slow"}, f)
     assert merged["flags"] == ["unsettled", "clipped", "lower_bound"] and merged["flag_reasons"] == "slow; cut"
 
 
@@ -117,7 +117,8 @@ def test_switch_node_reacquires_a_clipped_drain_and_reads_the_true_peak(simulate
     assert bench.instruments["scope"]._ch[2].offset_v == pytest.approx(60.0)
 
 
-def test_switch_node_still_clipped_is_stored_as_a_lower_bound(simulated_bench, station_for, benchctl_store):
+def test_switch_node_still_clipped_is_stored_as_a_lower_bound(simulated_bench, station_for, benchctl_store,
+                                                                tmp_path):
     bench = simulated_bench("flyback-48v-5v")
     out = _run("switch_node", bench, station_for(bench), benchctl_store,
                {"vin_v": [75.0], "iout_a": [5.0], "max_reacquisitions": 0})
@@ -136,6 +137,15 @@ def test_switch_node_still_clipped_is_stored_as_a_lower_bound(simulated_bench, s
     warning = events[(events["kind"] == "warning") & events["message"].str.contains("still clipped")]
     assert len(warning) == 1
     assert "stored as bounds" in warning["message"].iloc[0]
+    # a limit cannot pass on it: below a maximum above it, undecided; above a maximum below it, a failure
+    from benchctl.commands.check import check_run
+
+    for maximum, passed in ((200.0, None), (150.0, False)):
+        spec = tmp_path / f"drain-{maximum:g}.toml"
+        spec.write_text(f'[spec]\nname = "drain"\n[[limit]]\nname = "drain peak"\nquantity = "drain_peak_v"\n'
+                        f"max = {maximum!r}\n", encoding="utf-8")
+        report = check_run(benchctl_store, out.run_id, spec, print_table=False, record=False)
+        assert report.outcomes[0].passed is passed and report.exit_code != 0
 
 
 def test_ripple_reacquires_or_flags_a_clipped_output(simulated_bench, station_for, benchctl_store):
