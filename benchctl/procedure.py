@@ -301,7 +301,7 @@ def load_procedure(name_or_path: str) -> Procedure:
                              f"{' '.join(str(exc).split())}") from exc
     missing = [attr for attr in ("ROLES", "PARAMETERS", "plan", "run") if not hasattr(module, attr)]
     if missing:
-        raise ProcedureError(f"{path} is not a benchctl procedure: it has no module-level {', '.join(missing)}")
+        raise ProcedureError(f"{path} is not a benchctl procedure: missing module-level {', '.join(missing)}")
     parameters = tuple(module.PARAMETERS)
     if not all(isinstance(p, Parameter) for p in parameters):
         raise ProcedureError(f"{path}: PARAMETERS must be a list of benchctl.procedure.Parameter")

@@ -220,3 +220,20 @@ def test_the_shared_database_lock_is_seen_from_another_process_and_freed_by_its_
 
         _wait_for(taken, "the dead holder's session to end")
         assert store.station_lock_holder("bench-pg") is None
+
+
+def test_a_job_on_a_held_station_is_refused_before_it_begins(simulated_bench, tmp_path, capsys):
+    bench = simulated_bench("flyback-48v-5v")
+    path = bench.write_station(tmp_path / "bench-6.toml", name="bench-6")
+    job = tmp_path / "nightly.toml"
+    job.write_text('[job]\nname = "nightly"\n\n[[step]]\nprocedure = "efficiency_map"\n', encoding="utf-8")
+    holder = _holder("file", str(path), "-")
+    try:
+        code = main(["job", str(job), "--station", str(path), "--db", str(tmp_path / "jobs.db")])
+    finally:
+        _kill(holder)
+    err = " ".join(capsys.readouterr().err.split())
+    assert code == EXIT_BAD_INPUT and "station 'bench-6' is in use: run 42" in err and f"pid {holder.pid}" in err
+    with Store.open(tmp_path / "jobs.db") as store:
+        assert store.runs().empty
+    assert not any(e.kind == "command" for inst in bench.instruments.values() for e in inst.audit.entries())
