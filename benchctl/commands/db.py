@@ -158,6 +158,11 @@ def cmd_query(args: argparse.Namespace) -> int:
             cols = ["dut_revision", "n_runs", "n_points", "efficiency_mean", "efficiency_min", "efficiency_max",
                     "first_utc", "last_utc"]
         console().print(_table(title, frame, cols))
+        if not args.points and not frame.empty and int(frame["n_points_without_efficiency"].sum()):
+            n_other = int(frame["n_points_without_efficiency"].sum())
+            console().print(f"{n_other} more matching point(s) have no efficiency (no input or output power "
+                            "recorded there, e.g. runs of other procedures); they are not counted above "
+                            "(--points lists them)")
         if frame.empty:
             console().print("no stored point matches this operating point (check --vin/--iout and the tolerances)")
     return EXIT_OK

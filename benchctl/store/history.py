@@ -31,7 +31,7 @@ OPERATING_POINT_COLUMNS = (
 
 REVISION_SUMMARY_COLUMNS = (
     "dut_revision", "n_runs", "n_points", "efficiency_mean", "efficiency_min", "efficiency_max",
-    "first_utc", "last_utc",
+    "first_utc", "last_utc", "n_points_without_efficiency",
 )
 
 
@@ -148,27 +148,41 @@ def efficiency_at(
 def summarize_by_revision(points: pd.DataFrame) -> pd.DataFrame:
     """One row per DUT revision of a frame from :func:`efficiency_at`, in order of first run.
 
-    Columns: :data:`REVISION_SUMMARY_COLUMNS` (efficiency statistics skip NaN).
+    Columns: :data:`REVISION_SUMMARY_COLUMNS`. ``n_runs`` and ``n_points`` count only the
+    runs and points that have an efficiency there (a finite Pout/Pin): a run of another
+    procedure at the same setpoints (a loop-gain or ripple run records no input power)
+    matches the operating point but tells nothing of the efficiency, so it is counted
+    apart, in ``n_points_without_efficiency``. ``first_utc``/``last_utc`` are those of
+    the runs with an efficiency (NaT when a revision has none). A revision whose matching
+    points all lack an efficiency keeps its row, with zero counts and NaN statistics.
     """
     missing = {"dut_revision", "run_id", "efficiency", "started_utc"} - set(points.columns)
     if missing:
         raise StoreError(f"summarize_by_revision needs a frame from efficiency_at; it lacks {sorted(missing)}")
     if points.empty:
         return pd.DataFrame({c: pd.Series(dtype="float64") for c in REVISION_SUMMARY_COLUMNS}).astype(
-            {"dut_revision": "object", "n_runs": "int64", "n_points": "int64"}
+            {"dut_revision": "object", "n_runs": "int64", "n_points": "int64", "n_points_without_efficiency": "int64"}
         )
-    grouped = points.groupby("dut_revision", sort=False)
+    has = points["efficiency"].notna()
+    order = points.groupby("dut_revision", sort=False)["started_utc"].min()  # first measurement of any kind
+    with_eff = points[has].groupby("dut_revision", sort=False)
     out = pd.DataFrame(
         {
-            "n_runs": grouped["run_id"].nunique().astype("int64"),
-            "n_points": grouped["run_id"].size().astype("int64"),
-            "efficiency_mean": grouped["efficiency"].mean(),
-            "efficiency_min": grouped["efficiency"].min(),
-            "efficiency_max": grouped["efficiency"].max(),
-            "first_utc": grouped["started_utc"].min(),
-            "last_utc": grouped["started_utc"].max(),
-        }
-    ).reset_index()
-    return out.sort_values(["first_utc", "dut_revision"], kind="stable").reset_index(drop=True).loc[
+            "n_runs": with_eff["run_id"].nunique(),
+            "n_points": with_eff["run_id"].size(),
+            "efficiency_mean": with_eff["efficiency"].mean(),
+            "efficiency_min": with_eff["efficiency"].min(),
+            "efficiency_max": with_eff["efficiency"].max(),
+            "first_utc": with_eff["started_utc"].min(),
+            "last_utc": with_eff["started_utc"].max(),
+        },
+        index=order.index,
+    )
+    out["n_points_without_efficiency"] = (~has).groupby(points["dut_revision"], sort=False).sum().reindex(order.index)
+    for c in ("n_runs", "n_points", "n_points_without_efficiency"):
+        out[c] = out[c].fillna(0).astype("int64")
+    out["_order"] = order
+    out = out.rename_axis("dut_revision").reset_index()
+    return out.sort_values(["_order", "dut_revision"], kind="stable").reset_index(drop=True).loc[
         :, list(REVISION_SUMMARY_COLUMNS)
     ]
