@@ -108,6 +108,14 @@ class Bench:
 
     # -- operating points -------------------------------------------------------
 
+    def power_down(self) -> None:
+        """Switch the DUT off in the one safe order every end of a run uses: the source off,
+        the output discharged through the still-on load, then the load off (the interlock's
+        shutdown, see :mod:`benchctl.interlock` for why). Each output off is read back, never
+        retried and bounded in time; an output not confirmed off raises its instrument error."""
+        self.interlock.raise_if_tripped()
+        self.interlock.power_down()
+
     def power_up(self, vin_v: float, iout_a: float, *, source_current_limit_a: float | None = None,
                  startup_delay_s: float = 0.05) -> None:
         """Bring the DUT up in the usual order: source limit and voltage, load CC level, source

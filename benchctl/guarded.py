@@ -11,11 +11,15 @@ from __future__ import annotations
 
 from typing import Any
 
-from benchctl.interlock import Interlock
+from benchctl.interlock import Interlock, WatchSource
 
 
 class Guarded:
     """Common part: the raw driver, its role name and the interlock."""
+
+    #: Watchable quantities: name -> (station limit or None, what it is). The driver's
+    #: command key of each is ``measure_<name>``.
+    _WATCHABLE: dict[str, tuple[str | None, str]] = {}
 
     def __init__(self, driver: Any, interlock: Interlock) -> None:
         self._driver = driver
@@ -33,12 +37,32 @@ class Guarded:
     def _before(self) -> None:
         self._interlock.raise_if_tripped()
 
+    def watch_source(self, quantity: str) -> WatchSource:
+        """This instrument as a source of the interlock watch for ``quantity`` (``voltage``,
+        ``current``): one reading within the watch's deadline, never retried, checked
+        against the same station limit as :meth:`measure_voltage` / :meth:`measure_current`."""
+        try:
+            limit, what = self._WATCHABLE[quantity]
+        except KeyError:
+            raise ValueError(f"{self.role} cannot be watched for {quantity!r}; it can for "
+                             f"{', '.join(self._WATCHABLE) or 'nothing'}") from None
+        driver, interlock, role, key = self._driver, self._interlock, self.role, f"measure_{quantity}"
+
+        def read(deadline_s: float) -> float:
+            value = driver.query_float_now(key, deadline_s=deadline_s)
+            return value if limit is None else interlock.check_reading(limit, value, role, what)
+
+        return WatchSource(role, read)
+
     def __repr__(self) -> str:
         return f"<{type(self).__name__} {self.role} at {self.resource}>"
 
 
 class GuardedSource(Guarded):
     """DC source behind the interlock."""
+
+    _WATCHABLE = {"voltage": ("source_voltage_max_v", "measured voltage (V)"),
+                  "current": ("source_current_max_a", "measured current (A)")}
 
     def set_voltage(self, voltage_v: float) -> None:
         self._interlock.refuse_above("source_voltage_max_v", voltage_v, self.role, "voltage setpoint (V)")
@@ -72,6 +96,9 @@ class GuardedSource(Guarded):
 
 class GuardedLoad(Guarded):
     """Electronic load behind the interlock."""
+
+    _WATCHABLE = {"voltage": ("dut_output_voltage_max_v", "measured voltage (V)"),
+                  "current": ("load_current_max_a", "measured current (A)")}
 
     def set_mode(self, mode: str) -> None:
         self._before()
@@ -161,6 +188,8 @@ class GuardedMeter(Guarded):
     def __init__(self, driver: Any, interlock: Interlock) -> None:
         super().__init__(driver, interlock)
         self._v_limit, self._i_limit, self._p_limit = self._LIMITS.get(self.role, (None, None, None))
+        self._WATCHABLE = {"voltage": (self._v_limit, "measured voltage (V)"),
+                           "current": (self._i_limit, "measured current (A)")}
 
     def _check(self, limit: str | None, value: float, what: str) -> float:
         if limit is None:

@@ -1,11 +1,38 @@
-"""The interlock: the one place where station limits are enforced.
+"""The interlock: the one place where station limits are enforced, and the one way outputs go off.
 
 Every setpoint a procedure asks for is checked here *before* anything is sent, and every
 reading is checked as it comes back (see :mod:`benchctl.guarded`, which wraps the
-drivers). While any output is on, a background watch reads the source and the DUT
-output at the station's ``watch_period_s``. On a trip the source output is turned off
-first, then the load input, the reason (limit, value, instrument) is kept for the run's
-event log, and the procedure is stopped at its next bench call or wait.
+drivers). While any output is on, a background watch reads the DUT's input and output
+every ``watch_period_s``:
+
+* its readings are never retried and must answer within ``watch_deadline_s`` of the
+  start of the period (default: the period, at least 0.25 s), whatever the driver is
+  doing for the procedure (a retry chain does not hold the watch up);
+* instruments are read in parallel (one thread each), so a hung meter delays nothing else;
+* each watched quantity has every source the station offers — the input from the input
+  meter and the source's own read-back, the output voltage from the output meter and
+  the load's own read-back — and every answer is checked against its limit;
+* a quantity none of whose sources answered in time for ``watch_missed_periods``
+  periods in a row (default 3) trips the run, and so does an output instrument (source,
+  load) that stops answering: the watch can no longer see, or switch, the DUT.
+
+**The shutdown order** (:meth:`Interlock.shutdown`, used at every end — a normal end
+through :meth:`Interlock.power_down`, a trip, a termination signal, a failure): the
+**source goes off first**, then, with the source confirmed off, the load stays on until
+the DUT output has fallen below :attr:`Interlock.DISCHARGE_FRACTION` of the station's
+``dut_output_voltage_max_v`` (at most :attr:`Interlock.DISCHARGE_MAX_S`), and **then the
+load goes off**. Why this order: with the source off first no energy enters the DUT any
+more, and the still-loaded converter runs down its input capacitors to its under-voltage
+lockout while the load drains the output capacitors — the bench ends with the least
+stored energy. The other order unloads a converter that is still powered: its output
+overshoots on the load release (worst with an open feedback loop, the very fault a trip
+is often about), and once everything is off the output capacitors stay charged, ready to
+discharge into a probe or a short.
+
+Each output goes off through its driver's ``output_off_now``: one message that switches
+it off and reads it back, never retried, over within ``shutdown_deadline_s`` (default
+0.5 s) even when the instrument is hung or its driver is busy in a retry chain; the next
+output goes off regardless. A shutdown never raises; two at once run one after the other.
 
 The interlock is a second line of defence: it does not replace the instruments' own
 protection (which it programs too), fuses, guarding and licensed practice.
@@ -13,16 +40,31 @@ protection (which it programs too), fuses, guarding and licensed practice.
 
 from __future__ import annotations
 
+import functools
 import logging
+import math
+import queue
 import threading
 import time
-from dataclasses import dataclass, field
-from typing import Any, Callable
+from dataclasses import dataclass, field, replace
+from typing import Any, Callable, Sequence
 
-from benchctl.errors import InterlockTrip, SetpointRefused
+from benchctl.errors import InstrumentConnectionError, InstrumentError, InstrumentTimeout, InterlockTrip, SetpointRefused
 from benchctl.station import StationLimits
 
 logger = logging.getLogger(__name__)
+
+#: Defaults of the station options (``[station]`` keys of the same names).
+DEFAULT_WATCH_MISSED_PERIODS = 3
+DEFAULT_SHUTDOWN_DEADLINE_S = 0.5
+#: The smallest default watch deadline (s): loopback exchanges take ~1 ms, but a loaded
+#: machine can stall a process for tens of ms; the station may set its own.
+MIN_DEFAULT_WATCH_DEADLINE_S = 0.25
+
+
+def default_watch_deadline_s(watch_period_s: float) -> float:
+    """The watch deadline when the station gives none: the period, at least 0.25 s."""
+    return max(float(watch_period_s), MIN_DEFAULT_WATCH_DEADLINE_S)
 
 
 @dataclass(frozen=True)
@@ -38,37 +80,107 @@ class TripRecord:
     shutdown: tuple[str, ...] = field(default=())
 
 
+@dataclass(frozen=True)
+class WatchSource:
+    """One way to read a watched quantity: ``read(deadline_s)`` returns it within ``deadline_s``
+    (checking its own limit) or raises. Sources of one ``instrument`` are read one after
+    another; different instruments in parallel."""
+
+    instrument: str
+    read: Callable[[float], Any]
+
+
 @dataclass
 class _Watched:
     name: str
-    read: Callable[[], float]
+    sources: tuple[WatchSource, ...]
+    required: bool
+    misses: int = 0
+    last_error: str = ""
+
+
+class _Missed(Exception):
+    """A watch source that did not answer in time (its instrument's earlier reading took the period)."""
+
+
+class _Worker:
+    """A daemon thread that runs one instrument's watch readings, one after another."""
+
+    def __init__(self, instrument: str) -> None:
+        self.instrument = instrument
+        self.busy = False
+        self._jobs: queue.SimpleQueue = queue.SimpleQueue()
+        self._thread = threading.Thread(target=self._loop, name=f"benchctl-watch-{instrument}", daemon=True)
+        self._thread.start()
+
+    def submit(self, job: Callable[[], None], done: threading.Event) -> None:
+        """Run ``job``; ``done`` is set once it ended and the worker is free again."""
+        self.busy = True
+        self._jobs.put((job, done))
+
+    def stop(self) -> None:
+        self._jobs.put(None)
+
+    def _loop(self) -> None:
+        while True:
+            item = self._jobs.get()
+            if item is None:
+                return
+            job, done = item
+            try:
+                job()
+            except BaseException:  # pragma: no cover - a job reports its own errors
+                logger.exception("watch reading of %s failed", self.instrument)
+            finally:
+                self.busy = False
+                done.set()
 
 
 class Interlock:
-    """Station limits, reading checks, the background watch and the safe shutdown."""
+    """Station limits, reading checks, the background watch and the one safe shutdown."""
+
+    #: The load keeps draining the DUT output until it is below this fraction of the
+    #: station's ``dut_output_voltage_max_v`` (the output capacitors are then discharged) ...
+    DISCHARGE_FRACTION = 0.1
+    #: ... for at most this long (s); then the load goes off anyway.
+    DISCHARGE_MAX_S = 0.5
+    #: Time between two read-backs of the output while it discharges (s).
+    DISCHARGE_POLL_S = 0.005
 
     def __init__(
         self,
         limits: StationLimits,
         *,
         watch_period_s: float = 0.1,
+        watch_deadline_s: float | None = None,
+        watch_missed_periods: int = DEFAULT_WATCH_MISSED_PERIODS,
+        shutdown_deadline_s: float = DEFAULT_SHUTDOWN_DEADLINE_S,
         clock: Callable[[], float] = time.monotonic,
     ) -> None:
         self.limits = limits
         self.watch_period_s = float(watch_period_s)
+        self.watch_deadline_s = (default_watch_deadline_s(watch_period_s) if watch_deadline_s is None
+                                 else float(watch_deadline_s))
+        self.watch_missed_periods = int(watch_missed_periods)
+        self.shutdown_deadline_s = float(shutdown_deadline_s)
         self.clock = clock
         self._trip: TripRecord | None = None
+        self._stop: BaseException | None = None
         self._trip_event = threading.Event()
         self._lock = threading.RLock()
+        self._shutdown_lock = threading.Lock()
         self._source: Any = None
         self._load: Any = None
         self._source_on = False
         self._load_on = False
         self._watched: list[_Watched] = []
         self._watch_thread: threading.Thread | None = None
+        self._workers: dict[str, _Worker] = {}
         self._stop_watch = threading.Event()
         self._outputs_changed = threading.Event()
         self.watch_errors: list[str] = []
+        #: What the shutdown started by :meth:`stop` did (empty until it ran).
+        self.stop_shutdown_steps: list[str] = []
 
     # -- wiring --------------------------------------------------------------------
 
@@ -77,9 +189,15 @@ class Interlock:
         self._source = source
         self._load = load
 
-    def watch(self, name: str, read: Callable[[], float]) -> None:
-        """Add a guarded reading to the background watch (it checks its own limit)."""
-        self._watched.append(_Watched(name, read))
+    def watch(self, name: str, sources: Sequence[WatchSource], *, required: bool = True) -> None:
+        """Watch quantity ``name`` through ``sources`` (any one answering in time is enough).
+
+        ``required``: when none answers for ``watch_missed_periods`` periods in a row the run
+        trips; otherwise a miss is only logged (a check that other readings cover).
+        """
+        if not sources:
+            raise ValueError(f"watched quantity {name!r} needs at least one source")
+        self._watched.append(_Watched(name, tuple(sources), required))
 
     def output_state_changed(self, *, source_on: bool | None = None, load_on: bool | None = None) -> None:
         with self._lock:
@@ -92,6 +210,18 @@ class Interlock:
     @property
     def any_output_on(self) -> bool:
         return self._source_on or self._load_on
+
+    @property
+    def outputs(self) -> list[tuple[str, Any]]:
+        """The outputs in shutdown order: (name, driver), source first."""
+        return [(name, d) for name, d in (("source", self._source), ("load", self._load)) if d is not None]
+
+    @property
+    def shutdown_budget_s(self) -> float:
+        """The longest one shutdown takes (s): each output's deadline and the discharge wait."""
+        n = len(self.outputs)
+        return n * self.shutdown_deadline_s + (self.DISCHARGE_MAX_S if self._source is not None and
+                                               self._load is not None else 0.0)
 
     # -- checks --------------------------------------------------------------------
 
@@ -115,77 +245,137 @@ class Interlock:
                       f"{instrument}: {what} {value:g} above the station limit limits.{limit} = {maximum:g}")
         return value
 
-    # -- trip and shutdown ---------------------------------------------------------
+    # -- trip, stop and shutdown ---------------------------------------------------
 
     @property
     def trip_record(self) -> TripRecord | None:
         return self._trip
 
     def raise_if_tripped(self) -> None:
+        """Raise InterlockTrip after a trip, or the stop exception after :meth:`stop`."""
         record = self._trip
         if record is not None:
             raise InterlockTrip(
-                f"interlock tripped: {record.message}; outputs were turned off",
+                f"interlock tripped: {record.message}; the outputs were switched off (source first, then load)",
                 limit=record.limit, value=record.value, instrument=record.instrument,
             )
+        stop = self._stop
+        if stop is not None:
+            raise stop
 
     def trip(self, limit: str, limit_value: float, value: float, instrument: str, message: str) -> None:
-        """Turn the outputs off (source, then load), remember why, and raise InterlockTrip."""
+        """Remember why, turn the outputs off in the safe order, and raise InterlockTrip.
+
+        The trip is visible at once (the procedure stops at its next bench call or wait,
+        so it sends nothing more); the shutdown runs in the calling thread.
+        """
         with self._lock:
-            if self._trip is None:
-                t = self.clock()
-                logger.error("interlock trip: %s", message)
-                steps = self.shutdown()
-                self._trip = TripRecord(limit, limit_value, value, instrument, message, t, tuple(steps))
+            first = self._trip is None
+            if first:
+                record = TripRecord(limit, limit_value, value, instrument, message, self.clock())
+                self._trip = record
                 self._trip_event.set()
+        if first:
+            logger.error("interlock trip: %s", message)
+            with self._shutdown_lock:
+                steps = self._off_pass(emergency=True)
+                with self._lock:
+                    self._trip = replace(record, shutdown=tuple(steps))
         self.raise_if_tripped()
 
-    #: How long the shutdown waits for one instrument to have processed its OFF command
-    #: before it switches the next one off (a dead instrument costs at most this).
-    OFF_ACK_TIMEOUT_S = 0.5
+    def stop(self, reason: BaseException) -> None:
+        """Stop the run from outside (a termination signal): the outputs go off at once in a
+        thread of their own, retry chains give up, and every later bench call or wait raises
+        ``reason``. Returns at once; a second call does nothing."""
+        with self._lock:
+            if self._stop is not None:
+                return
+            self._stop = reason
+            self._trip_event.set()
+        thread = threading.Thread(target=self._stop_pass, name="benchctl-shutdown", daemon=True)
+        thread.start()
+
+    def _stop_pass(self) -> None:
+        with self._shutdown_lock:
+            self.stop_shutdown_steps = self._off_pass(emergency=True)
 
     def shutdown(self) -> list[str]:
-        """Outputs off in the safe order: source first, then load. Never raises; idempotent.
+        """Every output off in the safe order, now: source, output discharged, load. Never raises.
 
-        Each OFF command is sent and acknowledged (``*OPC?``, at most
-        :attr:`OFF_ACK_TIMEOUT_S`, no retries) before the next output is switched off, so the
-        order holds at the instruments and a dead source delays the load by half a second
-        at most; then each output is confirmed through the driver (error queue, read-back).
+        Retry chains of the drivers give up (the run is ending); a shutdown in progress
+        elsewhere (a trip, a signal) is waited for first. Returns one line per step; a
+        failed step says ``FAILED``.
         """
-        steps: list[str] = []
-        outputs = [(name, driver, off) for name, driver, off in
-                   (("source", self._source, "set_output"), ("load", self._load, "set_input"))
-                   if driver is not None and getattr(driver, "is_open", False)]
-        with self._lock:
-            for name, driver, off in outputs:
-                try:
-                    driver.send(driver.command(off, state="OFF"))
-                    driver.wait_complete(timeout_s=min(self.OFF_ACK_TIMEOUT_S, getattr(driver, "timeout_s", 2.0)))
-                    steps.append(f"{name} off sent")
-                except Exception as exc:  # keep going: the next output must still go off
-                    logger.error("could not switch the %s off at once: %s", name, exc)
-                    steps.append(f"{name} off send FAILED: {exc}")
-                    drop = getattr(driver, "_drop_session", None)
-                    if callable(drop):  # a late answer must not be read as the next one
-                        try:
-                            drop()
-                        except Exception:
-                            pass
-            for name, driver, off in outputs:
-                try:
-                    getattr(driver, off)(False)
-                    steps.append(f"{name} off confirmed")
-                except Exception as exc:
-                    logger.error("could not confirm the %s off: %s", name, exc)
-                    steps.append(f"{name} off confirmation FAILED: {exc}")
-            self._source_on = False
-            self._load_on = False
+        with self._shutdown_lock:
+            return self._off_pass(emergency=True)
+
+    def power_down(self) -> list[str]:
+        """The same order at the normal end of a procedure (:meth:`benchctl.bench.Bench.power_down`).
+
+        Raises the instrument's error when an output was not confirmed off (after trying
+        every output), so a run does not complete with its bench in doubt.
+        """
+        with self._shutdown_lock:
+            steps = self._off_pass(emergency=False)
+        failed = [s for s in steps if "FAILED" in s]
+        if failed:
+            raise InstrumentError("power-down: " + "; ".join(failed) + ". Switch the output off by hand and "
+                                  "check the instrument")
         return steps
+
+    def _off_pass(self, *, emergency: bool) -> list[str]:
+        """Source off, then the output discharged through the load, then the load off."""
+        steps: list[str] = []
+        outputs = [(name, d) for name, d in self.outputs if getattr(d, "is_open", False)]
+        if emergency:
+            for _, driver in outputs:
+                try:
+                    driver.stop_retries()
+                except Exception as exc:  # a lab's driver without it: the deadline still bounds us
+                    logger.debug("stop_retries: %s", exc)
+        source_off: bool | None = None  # None: no source on this station
+        for name, driver in outputs:
+            if name == "source":
+                source_off = False
+            elif source_off is not None:
+                steps.append(self._discharge(driver) if source_off else
+                             "output discharge skipped: the source is not confirmed off")
+            try:
+                how = driver.output_off_now(deadline_s=self.shutdown_deadline_s)
+            except Exception as exc:  # keep going: the next output must still go off
+                logger.error("could not switch the %s off: %s", name, exc)
+                steps.append(f"{name} off confirmation FAILED: {exc}")
+                continue
+            steps.append(f"{name} off confirmed: {how}")
+            if name == "source":
+                source_off = True
+            self.output_state_changed(**{"source_on" if name == "source" else "load_on": False})
+        return steps
+
+    def _discharge(self, load: Any) -> str:
+        """Keep the load on until the DUT output is discharged (or DISCHARGE_MAX_S passed)."""
+        threshold_v = self.DISCHARGE_FRACTION * self.limits.dut_output_voltage_max_v
+        started = time.monotonic()
+        end = started + self.DISCHARGE_MAX_S
+        value = math.nan
+        while True:
+            left = end - time.monotonic()
+            if left <= 0:
+                return (f"output discharge: still {value:.3g} V after {self.DISCHARGE_MAX_S:g} s "
+                        f"(> {threshold_v:.3g} V); the load goes off anyway")
+            try:
+                value = float(load.query_float_now("measure_voltage", deadline_s=min(left, self.shutdown_deadline_s)))
+            except Exception as exc:
+                return f"output discharge not watched: the load's voltage read-back failed ({exc})"
+            if abs(value) <= threshold_v:
+                return (f"output discharge: {value:.3g} V (<= {threshold_v:.3g} V) "
+                        f"{(time.monotonic() - started) * 1e3:.0f} ms after the source went off")
+            time.sleep(min(self.DISCHARGE_POLL_S, max(0.0, end - time.monotonic())))
 
     # -- waiting and watching ------------------------------------------------------
 
     def wait(self, seconds: float, sleep: Callable[[float], None] | None = None) -> None:
-        """Wait ``seconds``, woken early by a trip (then InterlockTrip is raised)."""
+        """Wait ``seconds``, woken early by a trip or a stop (which is then raised)."""
         self.raise_if_tripped()
         if seconds > 0:
             if sleep is not None:
@@ -198,37 +388,116 @@ class Interlock:
         if self._watch_thread is not None or not self._watched:
             return
         self._stop_watch.clear()
+        for item in self._watched:
+            for source in item.sources:
+                if source.instrument not in self._workers:
+                    self._workers[source.instrument] = _Worker(source.instrument)
         self._watch_thread = threading.Thread(target=self._watch_loop, name="benchctl-interlock-watch", daemon=True)
         self._watch_thread.start()
 
-    def stop_watch(self) -> None:
+    def stop_watch(self, *, wait_s: float | None = None) -> None:
+        """Stop the watch; wait for it at most ``wait_s`` (default: one deadline and a second)."""
         self._stop_watch.set()
         self._outputs_changed.set()
         thread, self._watch_thread = self._watch_thread, None
+        workers, self._workers = self._workers, {}
+        for worker in workers.values():
+            worker.stop()
         if thread is not None and thread is not threading.current_thread():
-            thread.join(timeout=5.0)
+            thread.join(timeout=self.watch_deadline_s + 1.0 if wait_s is None else wait_s)
 
     def _watch_loop(self) -> None:
-        while not self._stop_watch.is_set() and self._trip is None:
+        while not self._stop_watch.is_set() and self._trip is None and self._stop is None:
             if not self.any_output_on:
+                for item in self._watched:
+                    item.misses = 0
                 self._outputs_changed.wait(self.watch_period_s)
                 self._outputs_changed.clear()
                 continue
             started = self.clock()
-            for item in self._watched:
-                if self._stop_watch.is_set() or self._trip is not None or not self.any_output_on:
-                    break
+            self._watch_period(started + self.watch_deadline_s)
+            if self._stop_watch.is_set() or self._trip is not None or self._stop is not None:
+                return
+            self._stop_watch.wait(max(0.0, started + self.watch_period_s - self.clock()))
+
+    def _watch_period(self, deadline_at: float) -> None:
+        """One period: every instrument read in parallel until ``deadline_at``; count the misses."""
+        results: dict[tuple[int, int], BaseException | None] = {}
+        by_instrument: dict[str, list[tuple[int, int, WatchSource]]] = {}
+        for i, item in enumerate(self._watched):
+            for k, source in enumerate(item.sources):
+                by_instrument.setdefault(source.instrument, []).append((i, k, source))
+        done: list[threading.Event] = []
+        for instrument, entries in by_instrument.items():
+            worker = self._workers.get(instrument)
+            if worker is None:
+                return  # stopping
+            if worker.busy:  # still on a reading of an earlier period: this one is missed
+                for i, k, _ in entries:
+                    results[(i, k)] = _Missed(f"instrument {instrument}: still busy with the reading of an earlier "
+                                              "period")
+                continue
+            event = threading.Event()
+            done.append(event)
+            worker.submit(functools.partial(self._read_entries, entries, deadline_at, results), event)
+        for event in done:
+            event.wait(max(0.0, deadline_at - self.clock()))
+        if self._trip is not None or self._stop is not None or self._stop_watch.is_set():
+            return
+        snapshot = dict(results)
+        for i, item in enumerate(self._watched):
+            outcomes = [snapshot.get((i, k), _Missed(f"instrument {s.instrument}: no answer within the watch deadline "
+                                                      f"of {self.watch_deadline_s:g} s"))
+                        for k, s in enumerate(item.sources)]
+            if any(o is None for o in outcomes):
+                item.misses = 0
+                continue
+            real = [o for o in outcomes if not isinstance(o, _Missed)]
+            item.last_error = str((real or outcomes)[-1])
+            if not item.required:
+                logger.debug("watch: %s not read this period: %s", item.name, item.last_error)
+                continue
+            item.misses += 1
+            logger.warning("interlock watch: %s not read within %g s (%d of %d periods): %s", item.name,
+                           self.watch_deadline_s, item.misses, self.watch_missed_periods, item.last_error)
+            if item.misses >= self.watch_missed_periods:
+                where = " or ".join(dict.fromkeys(s.instrument for s in item.sources))
+                message = (f"interlock watch could not read {item.name} (from {where}) within "
+                           f"{self.watch_deadline_s:g} s for {item.misses} periods in a row; it can no longer see "
+                           f"or switch the DUT safely. Last: {item.last_error}")
+                self.watch_errors.append(message)
                 try:
-                    item.read()
+                    self.trip("watch_missed_periods", float(self.watch_missed_periods), float(item.misses),
+                              item.sources[0].instrument, message)
                 except InterlockTrip:
                     return
-                except Exception as exc:
-                    # A failing watch reading is itself a reason to stop: we can no longer see the DUT.
-                    message = f"interlock watch could not read {item.name}: {exc}"
-                    self.watch_errors.append(message)
-                    try:
-                        self.trip("watch_reading", float("nan"), float("nan"), item.name, message)
-                    except InterlockTrip:
-                        return
-            elapsed = self.clock() - started
-            self._stop_watch.wait(max(0.0, self.watch_period_s - elapsed))
+
+    def _read_entries(self, entries: list[tuple[int, int, WatchSource]], deadline_at: float,
+                      results: dict[tuple[int, int], BaseException | None]) -> None:
+        """One instrument's readings of one period, one after another (runs in its worker)."""
+        silent: BaseException | None = None  # the instrument did not answer: the rest cannot either
+        for i, k, source in entries:
+            if self._trip is not None or self._stop is not None or self._stop_watch.is_set():
+                return
+            left = deadline_at - self.clock()
+            if silent is not None or left <= 0:
+                results[(i, k)] = silent or _Missed(f"instrument {source.instrument}: the watch deadline of "
+                                                    f"{self.watch_deadline_s:g} s passed before its turn")
+                continue
+            try:
+                source.read(left)
+                results[(i, k)] = None
+            except InterlockTrip:
+                return
+            except (InstrumentTimeout, InstrumentConnectionError) as exc:
+                results[(i, k)] = exc
+                silent = exc
+            except Exception as exc:
+                # A wrong answer or a reset instrument is itself a reason to stop.
+                name = self._watched[i].name
+                message = f"interlock watch could not read {name}: {exc}"
+                self.watch_errors.append(message)
+                try:
+                    self.trip("watch_reading", float("nan"), float("nan"), source.instrument, message)
+                except InterlockTrip:
+                    return

@@ -5,9 +5,15 @@ procedure needs (nothing is opened before); the instruments are opened and ident
 the run begins in the store with its provenance; the instruments' own protection is
 programmed from the station limits (source OVP, load OCP/OPP) and outputs are forced
 off; the interlock watch starts; the procedure body runs; whatever happens — completion,
-failure, an interlock trip, Ctrl-C — the outputs end off (source first, then load), the
-outcome is stored as the run's status with an event, and the instruments are closed.
-Derived results are computed from the stored points and stored with the run.
+failure, an interlock trip, Ctrl-C, SIGTERM, SIGHUP — the outputs end off through the
+interlock's one shutdown (source first, the output discharged through the load, then the
+load), the outcome is stored as the run's status with an event, and the instruments are
+closed. Derived results are computed from the stored points and stored with the run.
+
+A termination signal (:mod:`benchctl.termination`) once the run holds the station switches
+the outputs off at once, from a thread of its own, and stops the procedure at the next
+point where it may be interrupted (never inside a store write); the run is stored as
+interrupted with the signal named. Further signals do not cut that shutdown short.
 """
 
 from __future__ import annotations
@@ -21,10 +27,11 @@ from typing import Any, Callable, Mapping
 from benchctl.bench import Bench
 from benchctl.errors import BenchctlError, InstrumentError, InterlockTrip, SetpointRefused
 from benchctl.guarded import guard
-from benchctl.interlock import Interlock
+from benchctl.interlock import Interlock, WatchSource
 from benchctl.procedure import Parameters, Procedure
 from benchctl.station import Station
 from benchctl.station_lock import one_run_per_station
+from benchctl.termination import StopSignal, StopSignals
 
 logger = logging.getLogger(__name__)
 
@@ -84,6 +91,7 @@ def execute(
     on_begin: Callable[[int], None] | None = None,
     job_id: int | None = None,
     resume_run_id: int | None = None,
+    notify: Callable[[str], None] | None = None,
     accept_station_change: bool = False,
 ) -> RunOutcome:
     """Run ``procedure`` on ``station`` into ``store`` and return how it ended.
@@ -91,39 +99,99 @@ def execute(
     With ``resume_run_id`` the run continues an interrupted or tripped run: the planned
     points already committed are skipped and new points go into the same run, after the
     instruments are re-opened and the protection re-armed; the gap is stored as an event.
+
+    ``notify(text)`` tells the console what a termination signal started (the shutdown and
+    how long it may take). A signal that arrives after the body ended (during the shutdown
+    or the analysis) is raised as :class:`~benchctl.termination.StopSignal` once the run
+    is stored, so a caller running several procedures stops too.
     """
     station.require_roles(procedure.roles, needed_by=f"procedure {procedure.name}")
     started = time.monotonic()
     if resume_run_id is not None and _resume_is_complete(store, procedure, params, resume_run_id):
         return _finish_complete_resume(store, procedure, params, resume_run_id, started)
-    drivers = _open_instruments(station, procedure.roles)
-    interlock = Interlock(station.limits, watch_period_s=station.watch_period_s)
-    interlock.attach_outputs(drivers.get("source"), drivers.get("load"))
-    try:
-        start = _run_start(procedure, params, station, drivers, dut, operator, job_id)
-        run_id, skip_points = _begin_or_resume(store, start, resume_run_id, accept_station_change)
-    except BaseException:
-        _close_all(drivers)
-        raise
-    if on_begin is not None:
-        on_begin(run_id)
-    bench = _bench_for(store, run_id, drivers, interlock, settle_enabled, progress, skip_points,
-                       station.dut_time_constant_s)
-    _arm_watch(interlock, bench, drivers)
-    try:
-        status, message = _run_body(procedure, params, bench, drivers, interlock, station, store, run_id)
-    finally:
-        steps = _shut_down(interlock, drivers, store, run_id)
-    if status == "completed" and procedure.analyse is not None:
+    with StopSignals(notify=notify) as signals:
+        with signals.interruptible():
+            drivers = _open_instruments(station, procedure.roles)
+        interlock = _interlock_for(station)
+        interlock.attach_outputs(drivers.get("source"), drivers.get("load"))
+        signals.budget_s = interlock.shutdown_budget_s
         try:
-            store_results(store, run_id, procedure, params)
-        except Exception as exc:
-            logger.exception("analysis of run %s failed", run_id)
-            store.record_event(run_id, "error", f"analysis failed: {type(exc).__name__}: {exc}", {})
-    store.end_run(run_id, status, message)
-    return RunOutcome(run_id, status, message, store.run(run_id).n_points if resume_run_id else bench.points_recorded,
-                      time.monotonic() - started,
-                      trip=interlock.trip_record, shutdown_steps=tuple(steps))
+            with signals.deferred():
+                start = _run_start(procedure, params, station, drivers, dut, operator, job_id)
+                # The run holds the station from here on (begun, or resumed, in the store).
+                run_id, skip_points = _begin_or_resume(store, start, resume_run_id, accept_station_change)
+        except BaseException:
+            _close_all(drivers)
+            raise
+        # From now on a termination signal switches this run's outputs off at once.
+        signals.on_first = interlock.stop
+        writes = _WritesFinish(store, signals)
+        status, message, bench = "failed", "", None
+        try:
+            with signals.interruptible():
+                if on_begin is not None:
+                    on_begin(run_id)
+                bench = _bench_for(writes, run_id, drivers, interlock, settle_enabled, progress, skip_points,
+                                   station.dut_time_constant_s)
+                _arm_watch(interlock, bench, drivers)
+                status, message = _run_body(procedure, params, bench, drivers, interlock, station, writes, run_id)
+        except KeyboardInterrupt as exc:  # a stop before the body began, or as it returned
+            status, message = _interrupted(store, run_id, exc)
+        finally:
+            # No signal interrupts what follows (the handler only acknowledges it).
+            steps = _shut_down(interlock, drivers, store, run_id)
+        trip = interlock.trip_record
+        if status == "failed" and trip is not None:  # e.g. a procedure's retry chain ended by the trip
+            status, message = "tripped", f"interlock tripped: {trip.message}; the outputs were switched off"
+        if status == "completed" and procedure.analyse is not None:
+            try:
+                store_results(store, run_id, procedure, params)
+            except Exception as exc:
+                logger.exception("analysis of run %s failed", run_id)
+                store.record_event(run_id, "error", f"analysis failed: {type(exc).__name__}: {exc}", {})
+        store.end_run(run_id, status, message)
+        points = store.run(run_id).n_points if resume_run_id or bench is None else bench.points_recorded
+        outcome = RunOutcome(run_id, status, message, points, time.monotonic() - started,
+                             trip=interlock.trip_record, shutdown_steps=tuple(steps))
+        signals.raise_if_received()
+    return outcome
+
+
+def _interlock_for(station: Station) -> Interlock:
+    """The run's interlock with the station's limits, watch and shutdown options."""
+    return Interlock(station.limits, watch_period_s=station.watch_period_s,
+                     watch_deadline_s=station.watch_deadline_s, watch_missed_periods=station.watch_missed_periods,
+                     shutdown_deadline_s=station.shutdown_deadline_s)
+
+
+class _WritesFinish:
+    """The store as the procedure's recorders see it: a termination signal waits until a write is
+    committed (no half-written point), then stops the run."""
+
+    def __init__(self, store: Any, signals: StopSignals) -> None:
+        self._store = store
+        self._signals = signals
+
+    def __getattr__(self, name: str) -> Any:
+        attr = getattr(self._store, name)
+        if not (callable(attr) and name.startswith(("record_", "begin_", "end_", "reopen_"))):
+            return attr
+
+        def write(*args: Any, **kwargs: Any) -> Any:
+            with self._signals.deferred():
+                return attr(*args, **kwargs)
+
+        return write
+
+
+def _interrupted(store: Any, run_id: int, exc: BaseException) -> tuple[str, str]:
+    """Store why the run was stopped (the signal, or the operator's Ctrl-C); (status, message)."""
+    if isinstance(exc, StopSignal):
+        message, details = exc.message, {"signal": exc.signal_name}
+    else:
+        message, details = "stopped by the operator (Ctrl-C)", {}
+    store.record_event(run_id, "interrupted", message, details)
+    return "interrupted", message
 
 
 def _close_all(drivers: Mapping[str, Any]) -> None:
@@ -250,22 +318,37 @@ def _bench_for(store: Any, run_id: int, drivers: Mapping[str, Any], interlock: I
     )
 
 
+#: Watched quantities: name, the roles that can read it (each one a second source for the
+#: other), and what they measure.
+WATCHED = (
+    ("input voltage", ("input_meter", "source"), "voltage"),
+    ("input current", ("input_meter", "source"), "current"),
+    ("output voltage", ("output_meter", "load"), "voltage"),
+)
+#: Roles whose instrument must answer the watch: they switch energy, so a silent one trips the run.
+MUST_ANSWER = ("source", "load")
+
+
 def _arm_watch(interlock: Interlock, bench: Bench, drivers: Mapping[str, Any]) -> None:
-    """What the background watch reads: the input (source or input meter), the DUT output
-    (output meter or load), and every instrument's power-on status (a reset stops the run)."""
-    for role in ("source", "input_meter"):
-        if bench.has_role(role):
-            guarded = bench.role(role)
-            interlock.watch(f"{role} voltage", guarded.measure_voltage)
-            interlock.watch(f"{role} current", guarded.measure_current)
-            break
-    for role in ("output_meter", "load"):
-        if bench.has_role(role):
-            interlock.watch(f"{role} voltage", bench.role(role).measure_voltage)
-            break
+    """What the background watch reads: the DUT input (input meter and the source's read-back),
+    the DUT output (output meter and the load's read-back), and every instrument's power-on
+    status (a reset stops the run; a source or load that stops answering trips it)."""
+    for name, roles, quantity in WATCHED:
+        sources = [bench.role(role).watch_source(quantity) for role in roles if bench.has_role(role)]
+        if sources:
+            interlock.watch(name, sources)
     for role, d in drivers.items():
-        if callable(getattr(d, "check_power_on", None)):
-            interlock.watch(f"{role} power-on status", d.check_power_on)
+        check = getattr(d, "check_power_on_now", None)
+        if callable(check):
+            interlock.watch(f"{role} power-on status", [WatchSource(role, _bounded(check))],
+                            required=role in MUST_ANSWER)
+
+
+def _bounded(check: Callable[..., Any]) -> Callable[[float], Any]:
+    """``check(deadline_s=...)`` as a watch source's ``read(deadline_s)``."""
+    def read(deadline_s: float) -> Any:
+        return check(deadline_s=deadline_s)
+    return read
 
 
 def _run_body(procedure: Procedure, params: Parameters, bench: Bench, drivers: Mapping[str, Any],
@@ -285,10 +368,8 @@ def _run_body(procedure: Procedure, params: Parameters, bench: Bench, drivers: M
         store.record_event(run_id, "interlock_refusal", str(exc),
                            {"limit": exc.limit, "value": exc.value, "instrument": exc.instrument})
         return "failed", str(exc)
-    except KeyboardInterrupt:
-        message = "stopped by the operator (Ctrl-C)"
-        store.record_event(run_id, "interrupted", message, {})
-        return "interrupted", message
+    except KeyboardInterrupt as exc:  # Ctrl-C, or a termination signal (StopSignal)
+        return _interrupted(store, run_id, exc)
     except InstrumentError as exc:
         store.record_event(run_id, "error", str(exc), {"instrument": exc.instrument, "command": exc.command,
                                                        "type": type(exc).__name__})
@@ -305,9 +386,18 @@ def _run_body(procedure: Procedure, params: Parameters, bench: Bench, drivers: M
 
 
 def _shut_down(interlock: Interlock, drivers: Mapping[str, Any], store: Any, run_id: int) -> list[str]:
-    """Stop the watch, outputs off in the safe order, store the trip and any failure, close."""
-    interlock.stop_watch()
+    """Stop the watch, outputs off in the safe order, store the trip and any failure, close.
+
+    The watch is not waited for (the off path does not need its driver locks); a shutdown
+    a trip or a signal started is finished first, then every output is switched off again,
+    so one switched on meanwhile is caught too.
+    """
+    interlock.stop_watch(wait_s=0.0)
     steps = interlock.shutdown()
+    early = list(interlock.stop_shutdown_steps)
+    if early:  # what the shutdown a termination signal started did, before the final one
+        store.record_event(run_id, "info", "outputs switched off on the termination signal: " + "; ".join(early),
+                           {"shutdown": early})
     trip = interlock.trip_record
     if trip is not None:
         store.record_event(run_id, "interlock_trip", trip.message, {

@@ -145,6 +145,9 @@ class Station:
     instruments: Mapping[str, InstrumentConfig]
     description: str = ""
     watch_period_s: float = 0.1
+    watch_deadline_s: float | None = None  # None: the period, at least 0.25 s (benchctl.interlock)
+    watch_missed_periods: int = 3  # a watched quantity unread this many periods in a row trips the run
+    shutdown_deadline_s: float = 0.5  # each output's off at every end, no retries (s)
     hazardous_voltage_acknowledged: bool = False
     database: str | None = None
     path: Path | None = None
@@ -171,12 +174,38 @@ class Station:
 _LIMIT_KEYS = [f.name for f in fields(StationLimits)]
 _STATION_KEYS = {"name", "description", "watch_period_s", "hazardous_voltage_acknowledged", "database",
                  "dut_time_constant_s"}
+_STATION_KEYS |= {"watch_deadline_s", "watch_missed_periods", "shutdown_deadline_s"}
 _INSTRUMENT_KEYS = {"driver", "resource", "timeout_s", "options", "commands", "accuracy"}
 _TERM_KEYS = {"pct_of_reading", "offset", "range_max", "distribution", "coverage_factor"}
 
 
 def _positive_number(value: Any) -> bool:
     return isinstance(value, (int, float)) and not isinstance(value, bool) and math.isfinite(value) and value > 0
+
+
+def _watch_options(station: Mapping[str, Any], problems: list[str]) -> dict[str, Any]:
+    """The interlock's watch and shutdown options of [station] (see benchctl.interlock)."""
+    options: dict[str, Any] = {}
+    deadline = station.get("watch_deadline_s")
+    if deadline is not None:
+        if not _positive_number(deadline) or deadline > 10:
+            problems.append(f"station.watch_deadline_s: {deadline!r} must be a number of seconds in (0, 10] "
+                            "(how long the watch waits for its readings each period)")
+        else:
+            options["watch_deadline_s"] = float(deadline)
+    missed = station.get("watch_missed_periods", 3)
+    if not isinstance(missed, int) or isinstance(missed, bool) or not 1 <= missed <= 100:
+        problems.append(f"station.watch_missed_periods: {missed!r} must be a whole number in [1, 100] (periods a "
+                        "watched quantity may go unread before the run trips)")
+    else:
+        options["watch_missed_periods"] = missed
+    off = station.get("shutdown_deadline_s", 0.5)
+    if not _positive_number(off) or off > 10:
+        problems.append(f"station.shutdown_deadline_s: {off!r} must be a number of seconds in (0, 10] (how long "
+                        "each output may take to confirm its off at the end of a run)")
+    else:
+        options["shutdown_deadline_s"] = float(off)
+    return options
 
 
 def _check_resource(resource: str) -> str | None:
@@ -321,6 +350,7 @@ def parse_station(text: str, *, path: Path | None = None) -> Station:
     watch = station.get("watch_period_s", 0.1)
     if not _positive_number(watch) or watch > 10:
         problems.append(f"station.watch_period_s: {watch!r} must be a number of seconds in (0, 10]")
+    watch_options = _watch_options(station, problems)
     ack = station.get("hazardous_voltage_acknowledged", False)
     if not isinstance(ack, bool):
         problems.append(f"station.hazardous_voltage_acknowledged: {ack!r} must be true or false")
@@ -439,6 +469,7 @@ def parse_station(text: str, *, path: Path | None = None) -> Station:
         limits=limits,
         instruments=instruments,
         watch_period_s=float(watch),
+        **watch_options,
         hazardous_voltage_acknowledged=bool(ack),
         database=database,
         path=path,

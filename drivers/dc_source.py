@@ -16,6 +16,7 @@ class DcSource(ScpiDriver):
     """A DC source: voltage setpoint, current limit, over-voltage protection, output."""
 
     kind: ClassVar[str] = "dc_source"
+    OUTPUT_SWITCH: ClassVar[tuple[str, str] | None] = ("set_output", "get_output")
     COMMANDS: ClassVar[dict[str, str]] = {
         "set_voltage": "VOLT {value:.6g}",
         "get_voltage": "VOLT?",
@@ -64,6 +65,3 @@ class DcSource(ScpiDriver):
 
     def measure_current(self) -> float:
         return self.query_float("measure_current")
-
-    def safe_state(self) -> None:
-        self.set_output(False)

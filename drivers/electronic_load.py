@@ -28,6 +28,7 @@ class ElectronicLoad(ScpiDriver):
     """An electronic load in constant-current (CC) or constant-resistance (CR) mode."""
 
     kind: ClassVar[str] = "electronic_load"
+    OUTPUT_SWITCH: ClassVar[tuple[str, str] | None] = ("set_input", "get_input")
     COMMANDS: ClassVar[dict[str, str]] = {
         "set_mode": "FUNC {mode}",
         "get_mode": "FUNC?",
@@ -141,6 +142,3 @@ class ElectronicLoad(ScpiDriver):
 
     def set_trigger_out(self, on: bool) -> None:
         self.write("set_trigger_out", state=self.on_off(on))
-
-    def safe_state(self) -> None:
-        self.set_input(False)

@@ -26,6 +26,14 @@ Robustness (station ``options``: ``retries``, default 2; ``retry_delay_s``, defa
   :class:`InstrumentStateError`; after every reconnect ``*IDN?`` must match the identity
   read at open, PON must be clear and every setting made so far must read back as
   programmed (an output believed on that reads off stops the run the same way).
+
+Bounded exchanges, for the interlock (its watch and the shutdown): ``query_float_now``,
+``check_power_on_now`` and ``output_off_now`` are never retried and end within their
+``deadline_s`` whatever the instrument does. They wait for the driver's lock only until
+the deadline (a retry chain of a procedure does not hold them up), a late answer drops
+the session, and ``output_off_now`` opens a short-lived connection of its own when the
+driver's session is busy or gone. ``stop_retries`` makes a retry chain in progress give
+up at its next attempt.
 """
 
 from __future__ import annotations
@@ -119,6 +127,8 @@ def _on_off(state: bool) -> str:
 #: Power-on bit of the Standard Event Status Register (IEEE 488.2-1992 §11.5.1.1.8, from memory).
 ESR_POWER_ON = 128
 DEFAULT_RETRIES = 2
+#: Deadline of an output-off when none is given (s).
+DEFAULT_OFF_DEADLINE_S = 0.5
 DEFAULT_RETRY_DELAY_S = 0.05
 _RETRYABLE = (InstrumentTimeout, InstrumentConnectionError)
 
@@ -232,6 +242,7 @@ class ScpiDriver:
         #: How many times the session was re-established after a failure.
         self.reconnects = 0
         self._wanted_open = False
+        self._retries_stopped = False
         # The last successful setting of each command key (fields), for read-back after a reconnect.
         self._settings: dict[str, dict[str, Any]] = {}
 
@@ -288,18 +299,25 @@ class ScpiDriver:
             self.close()
             raise
         self._wanted_open = True
+        self._retries_stopped = False
         self._settings.clear()
         return self
 
-    def _open_session(self) -> None:
+    def _open_session(self, timeout_s: float | None = None) -> None:
+        self._session = self._connect(self.timeout_s if timeout_s is None else timeout_s)
+
+    def _connect(self, timeout_s: float) -> Any:
+        """A new VISA session to the resource, answering within ``timeout_s`` (also to open)."""
         import pyvisa
 
+        ms = max(1, int(timeout_s * 1000))
         try:
             session = resource_manager().open_resource(
                 self.resource,
                 read_termination="\n",
                 write_termination="\n",
-                timeout=int(self.timeout_s * 1000),
+                timeout=ms,
+                open_timeout=ms,
             )
         except pyvisa.errors.VisaIOError as exc:
             raise InstrumentConnectionError(
@@ -315,7 +333,7 @@ class ScpiDriver:
                 instrument=self.name,
             ) from exc
         _disable_nagle(session)
-        self._session = session
+        return session
 
     def close(self) -> None:
         """Close the session. Safe to call twice; never raises."""
@@ -343,15 +361,20 @@ class ScpiDriver:
             except Exception as exc:
                 logger.debug("%s: error while dropping the session: %s", self.name, exc)
 
-    def _reconnect(self, *, skip_key: str | None = None) -> None:
-        """A fresh session; then the same identity, no power-on since, and every setting as programmed."""
+    def _reconnect(self, *, skip_key: str | None = None, deadline_at: float | None = None) -> None:
+        """A fresh session; then the same identity, no power-on since, and every setting as programmed.
+
+        With ``deadline_at`` (``time.monotonic()`` seconds) every exchange of it must end by then.
+        """
         with self._lock:
             if not self._wanted_open:
                 raise InstrumentConnectionError("the session is closed; call open() first", instrument=self.name)
             self._drop_session()
             self.reconnects += 1
             logger.warning("%s: reconnecting to %s (reconnect %d)", self.name, self.resource, self.reconnects)
-            self._open_session()
+            bound = (lambda: None) if deadline_at is None else (lambda: self._bound_session(deadline_at))
+            self._open_session(None if deadline_at is None else self._remaining(deadline_at, "reconnect"))
+            bound()
             identity = self._identify_once()
             if self.identity is not None and identity != self.identity:
                 raise InstrumentStateError(
@@ -360,6 +383,7 @@ class ScpiDriver:
                     "resource string, then start the run again",
                     instrument=self.name, command=self.commands["identify"],
                 )
+            bound()
             esr = self._read_event_status()
             if esr is not None and esr & ESR_POWER_ON:
                 raise InstrumentStateError(
@@ -374,6 +398,7 @@ class ScpiDriver:
                 getter = self._getter_for(key)
                 if getter is None:
                     continue
+                bound()
                 answer = self.ask(self.command(getter))
                 if _read_back_matches(fields, answer) is False:
                     raise InstrumentStateError(
@@ -383,6 +408,8 @@ class ScpiDriver:
                         "wrong settings. Check the instrument, then start the run again",
                         instrument=self.name, command=self.command(getter),
                     )
+            if deadline_at is not None and self._session is not None:
+                self._session.timeout = int(self.timeout_s * 1000)
 
     def _getter_for(self, key: str) -> str | None:
         """The command-table key that reads back setting ``key`` (``set_x`` -> ``get_x``), if any."""
@@ -402,7 +429,8 @@ class ScpiDriver:
                         self._reconnect()
                     return exchange()
                 except _RETRYABLE as exc:
-                    if attempt == attempts or not self._wanted_open:
+                    if attempt == attempts or not self._wanted_open or self._retries_stopped:
+                        self._drop_session()  # a late answer must not be read as the next one
                         if attempt == 1:
                             raise
                         during = f"; the last failure was {exc.command!r} while reconnecting" \
@@ -477,6 +505,9 @@ class ScpiDriver:
                 session.write(text)
             except Exception as exc:
                 raise self._translate(exc, text) from exc
+            except BaseException:  # interrupted (a signal): part of the message may be on the wire
+                self._drop_session()
+                raise
 
     def ask(self, text: str) -> str:
         """Send a query and return its answer line (no error check)."""
@@ -488,6 +519,9 @@ class ScpiDriver:
                 answer = session.query(text)
             except Exception as exc:
                 raise self._translate(exc, text) from exc
+            except BaseException:  # interrupted (a signal): its answer may still come
+                self._drop_session()
+                raise
             logger.debug("%s -> %s", self.name, answer)
             return answer.strip()
 
@@ -541,6 +575,9 @@ class ScpiDriver:
 
     def _recover_setting(self, key: str, fields: Mapping[str, Any], text: str, first: InstrumentError) -> None:
         """After ``text`` failed with ``first``: reconnect if needed, read back, re-send only if it differs."""
+        if self._retries_stopped:  # the run is shutting down: no read-back, no re-send
+            self._drop_session()  # a late answer must not be read as the next one
+            raise first
         getter = self._getter_for(key)
         if getter is None:
             raise type(first)(
@@ -550,6 +587,9 @@ class ScpiDriver:
         attempts = max(1, self.retries)
         exc: InstrumentError = first
         for attempt in range(1, attempts + 1):
+            if self._retries_stopped:
+                self._drop_session()
+                raise exc
             logger.warning("%s: setting %r failed (%s); verifying it by read-back (attempt %d of %d)",
                            self.name, text, exc, attempt, attempts)
             try:
@@ -720,6 +760,175 @@ class ScpiDriver:
             )
 
     def safe_state(self) -> None:
-        """Put the instrument in its safe state (outputs off). Overridden by kinds with outputs."""
+        """Put the instrument in its safe state: its output off (:meth:`output_off_now`)."""
+        self.output_off_now(deadline_s=min(self.timeout_s, DEFAULT_OFF_DEADLINE_S))
 
     on_off = staticmethod(_on_off)
+
+    # -- bounded exchanges: no retries, a deadline (the interlock's watch and shutdown) ----
+
+    #: The command-table keys (setting, read-back) of the output switch; None: no output.
+    OUTPUT_SWITCH: ClassVar[tuple[str, str] | None] = None
+    #: How long :meth:`output_off_now` waits for the driver's own session before it uses a
+    #: short-lived connection of its own (s); a normal exchange takes a few ms.
+    OFF_LOCK_GRACE_S = 0.05
+
+    def stop_retries(self) -> None:
+        """No retry, read-back or re-send from now until the next :meth:`open`.
+
+        A retry chain in progress gives up at its next attempt: used when the run is shutting down.
+        """
+        self._retries_stopped = True
+
+    def _remaining(self, deadline_at: float, command: str) -> float:
+        remaining = deadline_at - time.monotonic()
+        if remaining <= 0:
+            raise InstrumentTimeout("the deadline passed before the exchange could start (not retried)",
+                                    instrument=self.name, command=command)
+        return remaining
+
+    def _bound_session(self, deadline_at: float) -> None:
+        """Make the session's timeout the time left until ``deadline_at``."""
+        session = self._require_session()
+        session.timeout = max(1, int(self._remaining(deadline_at, self.last_command) * 1000))
+
+    def _deadline_error(self, exc: InstrumentError, text: str, deadline_s: float) -> InstrumentError:
+        if isinstance(exc, InstrumentTimeout):
+            return InstrumentTimeout(f"no answer within the deadline of {deadline_s:.3g} s (a bounded exchange: "
+                                     "not retried)", instrument=self.name, command=text)
+        return exc
+
+    def _ask_bounded(self, text: str, deadline_s: float, *, reconnect: bool = True) -> str:
+        """One exchange on the driver's session, over by ``deadline_s`` from now, never retried.
+
+        The lock is waited for until the deadline only; a lost session is re-established
+        (and verified) within the same deadline when ``reconnect``; a failure drops the
+        session so that a late answer is not read as the next one.
+        """
+        deadline_at = time.monotonic() + deadline_s
+        if not self._lock.acquire(timeout=max(0.0, deadline_s)):
+            raise InstrumentTimeout(
+                f"the driver stayed busy with another exchange (a retry chain?) for the whole deadline of "
+                f"{deadline_s:.3g} s; not read", instrument=self.name, command=text)
+        try:
+            if self._session is None:
+                if not (reconnect and self._wanted_open):
+                    raise InstrumentConnectionError("no open session", instrument=self.name, command=text)
+                try:
+                    self._reconnect(deadline_at=deadline_at)
+                except BaseException:
+                    self._drop_session()
+                    raise
+            session = self._session
+            previous = session.timeout
+            timeout_ms = max(1, int(self._remaining(deadline_at, text) * 1000))
+            try:
+                session.timeout = timeout_ms
+                return self.ask(text)
+            except InstrumentError as exc:
+                self._drop_session()
+                raise self._deadline_error(exc, text, deadline_s) from exc
+            finally:
+                if self._session is session:
+                    session.timeout = previous
+        finally:
+            self._lock.release()
+
+    def _ask_separately(self, text: str, deadline_at: float) -> str:
+        """One exchange over a short-lived connection of its own, over by ``deadline_at``."""
+        deadline_s = self._remaining(deadline_at, text)
+        session = self._connect(deadline_s)
+        try:
+            session.timeout = max(1, int(self._remaining(deadline_at, text) * 1000))
+            logger.debug("%s <- %s (separate connection)", self.name, text)
+            return session.query(text).strip()
+        except Exception as exc:
+            raise self._deadline_error(self._translate(exc, text), text, deadline_s) from exc
+        finally:
+            try:
+                session.close()
+            except Exception as exc:
+                logger.debug("%s: error while closing the separate connection: %s", self.name, exc)
+
+    def query_float_now(self, key: str, *, deadline_s: float) -> float:
+        """Reading ``key`` as a number within ``deadline_s``: no retry, no error-queue read."""
+        text = self.command(key)
+        answer = self._ask_bounded(text, deadline_s)
+        try:
+            value = float(answer.split(",")[0])
+        except ValueError:
+            raise InstrumentResponseError(f"expected a number, got {answer!r}", instrument=self.name,
+                                          command=text) from None
+        if not math.isfinite(value):
+            raise InstrumentResponseError(f"expected a finite number, got {answer!r}", instrument=self.name,
+                                          command=text)
+        return value
+
+    def check_power_on_now(self, *, deadline_s: float) -> None:
+        """:meth:`check_power_on` within ``deadline_s``, never retried."""
+        command = self.commands["event_status"]
+        answer = self._ask_bounded(command, deadline_s)
+        try:
+            esr = int(float(answer))
+        except ValueError:
+            raise InstrumentResponseError(
+                f"expected the event status register as a number, got {answer!r}; whether the instrument "
+                "reset cannot be told", instrument=self.name, command=command) from None
+        if esr & ESR_POWER_ON:
+            raise InstrumentStateError(
+                "*ESR? shows the power-on bit: the instrument was reset or power-cycled during the run and every "
+                "setting made before is lost; the run stops so no point is taken on wrong settings. Check its "
+                "mains and connection, then start the run again",
+                instrument=self.name, command=command)
+
+    def output_off_now(self, *, deadline_s: float = 0.5) -> str:
+        """Switch the output off and read it back as off within ``deadline_s``; never retried.
+
+        One message, the OFF setting and the read-back query (``OUTP OFF;:OUTP?``): its answer
+        shows the instrument processed the OFF. The driver's session is used when it is free
+        within :attr:`OFF_LOCK_GRACE_S`, otherwise (busy with a retry chain, lost, or failed
+        just now) a short-lived connection of its own within the rest of the deadline.
+        Returns what confirmed it; raises an :class:`InstrumentError` when nothing did.
+        """
+        if self.OUTPUT_SWITCH is None:
+            return "no output to switch"
+        set_key, get_key = self.OUTPUT_SWITCH
+        off, check = self.command(set_key, state=_on_off(False)), self.command(get_key)
+        text = f"{off};{check if check.startswith((':', '*')) else ':' + check}"
+        started = time.monotonic()
+        deadline_at = started + deadline_s
+        self._settings[set_key] = {"state": _on_off(False)}  # a later reconnect must expect it off
+        errors: list[InstrumentError] = []
+
+        def confirmed(answer: str) -> bool:
+            word = answer.strip().strip('"').upper()
+            if word in ("0", "OFF"):
+                return True
+            errors.append(InstrumentStateError(
+                f"after {off!r} the read-back {check!r} answered {answer!r}, not off; switch it off by hand and "
+                "check the instrument", instrument=self.name, command=text) if word in ("1", "ON") else
+                InstrumentResponseError(f"expected 0/OFF from {check!r} after {off!r}, got {answer!r}",
+                                        instrument=self.name, command=text))
+            return False
+
+        if self._lock.acquire(timeout=max(0.0, min(self.OFF_LOCK_GRACE_S, deadline_s / 4))):
+            try:
+                if self._session is not None:
+                    if confirmed(self._ask_bounded(text, self._remaining(deadline_at, text), reconnect=False)):
+                        return (f"{off!r} confirmed by {check!r} over its session in "
+                                f"{(time.monotonic() - started) * 1e3:.0f} ms")
+                    self._drop_session()  # perhaps a late answer to an earlier query: ask afresh
+            except InstrumentError as exc:
+                errors.append(exc)
+            finally:
+                self._lock.release()
+        try:
+            if confirmed(self._ask_separately(text, deadline_at)):
+                return (f"{off!r} confirmed by {check!r} over a separate connection in "
+                        f"{(time.monotonic() - started) * 1e3:.0f} ms")
+        except InstrumentError as exc:
+            errors.append(exc)
+        if len(errors) == 1:
+            raise errors[0]
+        raise type(errors[-1])(f"over its session: {_bare(errors[0])}; over a separate connection: "
+                               f"{_bare(errors[-1])}", instrument=self.name, command=text) from errors[-1]

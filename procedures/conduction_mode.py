@@ -132,8 +132,7 @@ def run(bench, p: Parameters) -> None:
                          units={"boundary_found": "", "threshold_ratio": ""}, tag="boundary")
             if not search.found:
                 bench.event("warning", f"no CCM/DCM boundary at {vin:g} V: {search.reason}")
-    load.set_input(False)
-    source.set_output(False)
+    bench.power_down()
 
 
 def analyse(points, p: Parameters) -> list[Result]:

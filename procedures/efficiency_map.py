@@ -121,8 +121,7 @@ def run(bench, p: Parameters) -> None:
         settled = settled.with_verification(check.verified, check.as_dict(), check.reason)
         bench.record({"vin_set_v": vin_set, "iout_set_a": iout_set}, readings=readings, settle=settled,
                      tag=point["tag"])
-    load.set_input(False)
-    source.set_output(False)
+    bench.power_down()
 
 
 def _warm_up(bench, p: Parameters, vin_v: float, iout_a: float) -> None:

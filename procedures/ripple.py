@@ -85,8 +85,7 @@ def run(bench, p: Parameters) -> None:
         })
         report_clipping(bench, acq, f"{point['vin_set_v']:g} V, {point['iout_set_a']:g} A", seq=seq,
                         remedy="raise vout_scale_v_per_div or max_reacquisitions")
-    load.set_input(False)
-    source.set_output(False)
+    bench.power_down()
 
 
 def analyse(points, p: Parameters) -> list[Result]:

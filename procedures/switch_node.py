@@ -132,8 +132,7 @@ def run(bench, p: Parameters) -> None:
                 "fit_reason": fit.fit_reason}})
         if not fit.fit_ok:
             bench.event("warning", f"ring fit at {vin:g} V, {point['iout_set_a']:g} A: {fit.fit_reason}", seq=seq)
-    load.set_input(False)
-    source.set_output(False)
+    bench.power_down()
 
 
 def _flag(row, name: str) -> bool:

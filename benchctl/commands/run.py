@@ -15,7 +15,7 @@ from rich.console import Group
 from rich.text import Text
 
 from benchctl.cli import EXIT_FAILED, EXIT_INTERRUPTED, EXIT_OK
-from benchctl.commands.console import console, print_caution
+from benchctl.commands.console import console, error_console, print_caution
 from benchctl.commands.stores import open_store
 from benchctl.commands.summary import print_run_summary
 
@@ -70,17 +70,26 @@ class _ProgressView:
             console().line()
 
 
+def shutdown_notice(text: str) -> None:
+    """What a termination signal started, on the console (stderr): it is shutting down, and how long."""
+    error_console().print(f"[bold yellow]{escape(text)}[/]")
+
+
 def run_procedure(procedure, params, station, store, *, dut, operator: str | None = None, settle: bool = True,
                   quiet: bool = False, job_id: int | None = None, resume_run_id: int | None = None,
                   accept_station_change: bool = False):
-    """Check roles, show the caution when the station is hazardous, then execute with a progress view."""
+    """Check roles, show the caution when the station is hazardous, then execute with a progress view.
+
+    Ctrl-C, SIGTERM and SIGHUP stop the run the same safe way; the console says so (:func:`shutdown_notice`).
+    """
     from benchctl.runner import execute
 
     station.require_roles(procedure.roles, needed_by=f"procedure {procedure.name}")
     if station.limits.hazardous:
         print_caution(f"Station {station.name!r} allows up to {station.limits.source_voltage_max_v:g} V; "
                       "its file acknowledges hazardous voltage.")
-    kwargs = dict(dut=dut, operator=operator, settle_enabled=settle, job_id=job_id, resume_run_id=resume_run_id)
+    kwargs = dict(dut=dut, operator=operator, settle_enabled=settle, job_id=job_id, resume_run_id=resume_run_id,
+                  notify=shutdown_notice)
     if accept_station_change:
         kwargs["accept_station_change"] = True
     if quiet:
