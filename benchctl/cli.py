@@ -51,6 +51,11 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--time-scale", type=float, default=1.0, help="model seconds per real second (default 1)")
     p.add_argument("--seed", type=int, default=1, help="seed of the measurement noise")
     p.add_argument("--base-port", type=int, default=0, help="first TCP port (default: free ports)")
+    p.add_argument("--thermal-drift", action="store_true",
+                   help="let the parts warm with their loss (minutes of model time), so losses creep up")
+    p.add_argument("--reading-time", type=float, default=None, metavar="S",
+                   help="aperture of every meter, source and load reading in seconds (default 0.02, "
+                        "one 50 Hz line cycle)")
     p.add_argument("--fault", action="append", default=[], metavar="SPEC",
                    help="inject a fault for a dry run (repeatable): KIND[@ROLE][:after=N|on=TEXT|at=T|random=SEED"
                         "][,for=S], e.g. drop@source:after=40,for=0 or feedback_open:at=3.5; kinds: unresponsive, "

@@ -2,8 +2,12 @@
 
 Fixtures:
 
-* ``simulated_bench(model="flyback-48v-5v", time_scale=50.0, seed=1)`` — a factory that
-  starts a simulated bench on 127.0.0.1 and stops it after the test.
+* ``simulated_bench(model="flyback-48v-5v", time_scale=50.0, seed=1, thermal_drift=False,
+  reading_time_s=FAST_READING_TIME_S)`` — a factory that starts a simulated bench on
+  127.0.0.1 and stops it after the test.  Readings take a tiny aperture (0.1 ms) for
+  speed; pass ``reading_time_s=0.02`` (one 50 Hz line cycle, the simulator's own default)
+  and ``time_scale=1.0`` for a realistic bench, ``thermal_drift=True`` for parts that warm
+  over minutes of model time.
 * ``station_for(bench)`` — a factory giving the validated :class:`~benchctl.station.Station`
   for a simulated bench.
 * ``benchctl_store`` — a fresh SQLite store in the test's temporary folder.
@@ -30,14 +34,20 @@ def pytest_configure(config: Any) -> None:
     config.addinivalue_line("markers", "hardware: needs a real station (--station FILE or BENCHCTL_STATION)")
 
 
+#: Aperture of every simulated reading under the ``simulated_bench`` fixture, wall s (fast tests).
+FAST_READING_TIME_S = 1e-4
+
+
 @pytest.fixture
 def simulated_bench() -> Any:
     from simulated_instruments.bench import SimulatedBench
 
     started: list[SimulatedBench] = []
 
-    def start(model: str = "flyback-48v-5v", *, time_scale: float = 50.0, seed: int = 1) -> SimulatedBench:
-        bench = SimulatedBench(model, time_scale=time_scale, seed=seed).start()
+    def start(model: str = "flyback-48v-5v", *, time_scale: float = 50.0, seed: int = 1,
+              thermal_drift: bool = False, reading_time_s: float = FAST_READING_TIME_S) -> SimulatedBench:
+        bench = SimulatedBench(model, time_scale=time_scale, seed=seed, thermal_drift=thermal_drift,
+                               reading_time_s=reading_time_s).start()
         started.append(bench)
         return bench
 

@@ -5,6 +5,12 @@ a DC source on its input, an electronic load and a power meter on its output and
 second power meter on its input, serves each on its own 127.0.0.1 port, and can write a
 station file (TOML text) that reaches them with ``TCPIP::127.0.0.1::<port>::SOCKET``.
 The simulator knows nothing of benchctl: it is reached only through those sockets.
+
+Knobs (also ``benchctl sim`` options): ``time_scale`` (model s per wall s),
+``thermal_drift`` (the parts warm with their loss over minutes of model time; off by
+default), ``reading_time_s`` (the aperture of every meter, source and load reading, wall
+s; default one 50 Hz line cycle, 20 ms).  The station file carries each instrument's
+documented accuracy (``[instruments.<role>.accuracy]``).
 """
 
 from __future__ import annotations
@@ -17,6 +23,8 @@ from typing import Any
 from .converter import DESIGNS, ConverterModel, ScaledClock
 from .instruments import SimulatedDcSource, SimulatedElectronicLoad, SimulatedPowerMeter
 from .instruments.loop_analyzer import SimulatedLoopAnalyzer
+from .instruments.accuracy import accuracy_toml
+from .instruments.aperture import DEFAULT_APERTURE_S
 from .instruments.oscilloscope import SimulatedOscilloscope
 from .scpi import ScpiServer
 
@@ -59,18 +67,24 @@ class SimulatedBench:
     """A converter model with a source, a load and two power meters served on loopback."""
 
     def __init__(self, model_name: str = "flyback-48v-5v", *, time_scale: float = 1.0, seed: int = 1,
-                 base_port: int = 0) -> None:
+                 base_port: int = 0, thermal_drift: bool = False, reading_time_s: float | None = None) -> None:
         if model_name not in DESIGNS:
             raise ValueError(f"unknown converter model {model_name!r}; models: {', '.join(sorted(DESIGNS))}")
+        aperture_s = DEFAULT_APERTURE_S if reading_time_s is None else float(reading_time_s)
+        if not aperture_s > 0.0:
+            raise ValueError(f"reading_time_s={reading_time_s!r} must be > 0 s (the aperture of each reading)")
         self.model_name = model_name
         self.design = DESIGNS[model_name]
         self.clock = ScaledClock(time_scale)
-        self.model = ConverterModel(self.design, clock=self.clock, seed=seed)
+        self.model = ConverterModel(self.design, clock=self.clock, seed=seed, thermal_drift=thermal_drift)
+        self.reading_time_s = aperture_s
         self.instruments = {
-            "source": SimulatedDcSource(self.model, serial=f"S{seed:04d}", seed=seed),
-            "load": SimulatedElectronicLoad(self.model, serial=f"L{seed:04d}", seed=seed),
-            "input_meter": SimulatedPowerMeter(self.model, "input", serial=f"MI{seed:04d}", seed=seed),
-            "output_meter": SimulatedPowerMeter(self.model, "output", serial=f"MO{seed:04d}", seed=seed),
+            "source": SimulatedDcSource(self.model, serial=f"S{seed:04d}", seed=seed, aperture_s=aperture_s),
+            "load": SimulatedElectronicLoad(self.model, serial=f"L{seed:04d}", seed=seed, aperture_s=aperture_s),
+            "input_meter": SimulatedPowerMeter(self.model, "input", serial=f"MI{seed:04d}", seed=seed,
+                                               aperture_s=aperture_s),
+            "output_meter": SimulatedPowerMeter(self.model, "output", serial=f"MO{seed:04d}", seed=seed,
+                                                aperture_s=aperture_s),
             "analyzer": SimulatedLoopAnalyzer(self.model, serial=f"A{seed:04d}", seed=seed),
             "scope": SimulatedOscilloscope(self.model, serial=f"O{seed:04d}", seed=seed),
         }
@@ -107,8 +121,12 @@ class SimulatedBench:
     def hazardous(self) -> bool:
         return max(self.limits.source_voltage_max_v, self.limits.dut_output_voltage_max_v) > 60.0
 
-    def station_toml(self, *, name: str | None = None, watch_period_s: float = 0.05) -> str:
-        """Station file text for this bench (acknowledges > 60 V when the design needs it)."""
+    def station_toml(self, *, name: str | None = None, watch_period_s: float = 0.05,
+                     accuracy: bool = True) -> str:
+        """Station file text for this bench (acknowledges > 60 V when the design needs it).
+
+        ``accuracy`` adds each instrument's documented accuracy table.
+        """
         lim = self.limits
         lines = [
             "# Station file written by the simulated bench; instruments listen on 127.0.0.1 only.",
@@ -125,6 +143,9 @@ class SimulatedBench:
         for role, resource in self.resources.items():
             lines += ["", f"[instruments.{role}]", f'driver = "{ROLE_DRIVERS[role]}"', f'resource = "{resource}"',
                       "timeout_s = 2.0"]
+            table = getattr(self.instruments[role], "ACCURACY", None)
+            if accuracy and table:
+                lines += ["", *accuracy_toml(role, table)]
         return "\n".join(lines) + "\n"
 
     def write_station(self, path: str | Path, **kwargs: Any) -> Path:

@@ -53,7 +53,10 @@ def clean_counts(emap, tmp_path_factory):
     """Program messages each role receives in a fault-free run (to put the faults mid-run)."""
     from benchctl.store import Store
 
-    with SimulatedBench("flyback-48v-5v", time_scale=50.0) as bench, \
+    from benchctl.pytest_plugin import FAST_READING_TIME_S
+
+    # The same reading time as the simulated_bench fixture, so the counts match the faulted runs.
+    with SimulatedBench("flyback-48v-5v", time_scale=50.0, reading_time_s=FAST_READING_TIME_S) as bench, \
             Store.open(str(tmp_path_factory.mktemp("clean") / "clean.db")) as store:
         outcome, _, _ = _run(emap, bench, store)
         assert outcome.status == "completed", outcome.message

@@ -39,6 +39,11 @@ def cmd_sim(args: argparse.Namespace) -> int:
     if not args.time_scale > 0:
         error_console().print("[bold red]error:[/] --time-scale must be positive")
         return EXIT_BAD_INPUT
+    reading_time = getattr(args, "reading_time", None)
+    if reading_time is not None and not 1e-5 <= reading_time <= 10.0:
+        error_console().print(f"[bold red]error:[/] --reading-time {reading_time!r} s is outside 1e-05 … 10 s; "
+                              "give the aperture of a reading in seconds, e.g. 0.02")
+        return EXIT_BAD_INPUT
     from simulated_instruments.faults import FaultSpecError, apply_fault_specs, parse_fault_spec
 
     try:
@@ -46,7 +51,8 @@ def cmd_sim(args: argparse.Namespace) -> int:
     except FaultSpecError as exc:
         error_console().print(f"[bold red]error:[/] --fault: {escape(str(exc))}", soft_wrap=True)
         return EXIT_BAD_INPUT
-    bench = SimulatedBench(args.model, time_scale=args.time_scale, seed=args.seed, base_port=args.base_port)
+    bench = SimulatedBench(args.model, time_scale=args.time_scale, seed=args.seed, base_port=args.base_port,
+                           thermal_drift=getattr(args, "thermal_drift", False), reading_time_s=reading_time)
     bench.start()
     if specs:
         apply_fault_specs(bench, specs)
@@ -61,6 +67,9 @@ def cmd_sim(args: argparse.Namespace) -> int:
             table.add_row(role, bench.resources[role], f"{ident.maker},{ident.model},{ident.serial},{ident.firmware}")
         out.print(table)
         out.print("servers listen on 127.0.0.1 only (loopback); nothing is reachable from the network")
+        drift = "on" if bench.model.thermal_drift else "off (--thermal-drift turns it on)"
+        out.print(f"readings integrate {bench.reading_time_s * 1e3:g} ms each; thermal drift {drift}; "
+                  f"time scale {args.time_scale:g}")
         out.print(f"station file written to [bold]{path}[/]")
         out.print(f"try:  benchctl instruments --station {path}")
         if bench.hazardous:

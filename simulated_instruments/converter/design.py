@@ -162,19 +162,53 @@ class Protection:
 
 @dataclass(frozen=True)
 class BenchWiring:
-    """How the DUT sits on the bench and how fast the bench settles.
+    """How the DUT sits on the bench and how fast its terminals move (model seconds).
 
     cable_r_ohm: source-to-DUT input cable (both leads).  sense_to_terminal_r_ohm:
     copper between the regulation sense point and the output terminals.
-    settle_tau_s: time constant of every terminal quantity after a change (lumps the
-    source slew, the input filter and the loop recovery).  soft_start_tau_s: the
-    slower time constant used when the converter starts.
+    input_filter_tau_s: time constant of the input current (and so of the input power)
+    after the converter's input demand changes: the damped input filter, the bulk
+    capacitance behind the cable and the source's output stage, lumped into one
+    first-order lag (a bench figure of a few to tens of milliseconds, common practice).
+    It is the slowest electrical time constant of the model.
+    settle_tau_s: time constant of every terminal quantity after a change that takes the
+    converter out of regulation or back (stop, lock-out, fault, protection), and the
+    fallback of the waveform synthesis.  soft_start_tau_s: the slower time constant of a
+    start from off.
     """
 
     cable_r_ohm: float
     sense_to_terminal_r_ohm: float
     settle_tau_s: float
     soft_start_tau_s: float
+    input_filter_tau_s: float
+
+
+@dataclass(frozen=True)
+class ThermalPath:
+    """One lumped thermal mass for the DUT's hot parts (switch, windings, copper).
+
+    C·dT/dt = P_loss − (T − T_amb)/R, so T settles with τ = R·C (model seconds; minutes on
+    a real board).  r_th_k_per_w: hot parts to ambient (K/W); c_th_j_per_k: their heat
+    capacity (J/K); ambient_c: ambient, and the temperature at which the loss
+    coefficients of the design are given (°C).  Resistances rise linearly with
+    temperature: switch on-resistances by ``switch_tempco_per_k`` (a silicon MOSFET's
+    Rds(on) rises about 0.5–0.7 %/K, common practice), windings and copper by
+    ``copper_tempco_per_k`` (0.00393 /K, annealed copper at 20 °C, IEC 60028).  The
+    diode's knee voltage falls with temperature; that is not modelled, so every loss
+    term either rises or stays as the parts warm.
+    """
+
+    r_th_k_per_w: float = 12.0
+    c_th_j_per_k: float = 15.0
+    ambient_c: float = 25.0
+    switch_tempco_per_k: float = 0.006
+    copper_tempco_per_k: float = 0.00393
+
+    @property
+    def tau_s(self) -> float:
+        """Thermal time constant R·C, s."""
+        return self.r_th_k_per_w * self.c_th_j_per_k
 
 
 @dataclass(frozen=True)
@@ -211,6 +245,7 @@ class ConverterDesign:
     protection: Protection
     bench: BenchWiring
     faults: FaultSettings = field(default_factory=lambda: FaultSettings(0.0, 0.0))
+    thermal: ThermalPath = field(default_factory=ThermalPath)
 
     def __post_init__(self) -> None:
         problems: list[str] = []
@@ -225,7 +260,11 @@ class ConverterDesign:
         for label, value in (("fsw_hz", self.fsw_hz), ("inductance_h", self.stage.inductance_h),
                              ("c_out_f", self.stage.c_out_f), ("turns_ratio", self.stage.turns_ratio),
                              ("ramp_vm_v", self.control.ramp_vm_v), ("divider_h", self.control.divider_h),
-                             ("settle_tau_s", self.bench.settle_tau_s)):
+                             ("settle_tau_s", self.bench.settle_tau_s),
+                             ("soft_start_tau_s", self.bench.soft_start_tau_s),
+                             ("input_filter_tau_s", self.bench.input_filter_tau_s),
+                             ("r_th_k_per_w", self.thermal.r_th_k_per_w),
+                             ("c_th_j_per_k", self.thermal.c_th_j_per_k)):
             if not value > 0.0:
                 problems.append(f"{label} must be > 0, got {value!r}")
         if problems:
@@ -287,6 +326,26 @@ class ConverterDesign:
         v = self.vout_nom_v if vout_v is None else vout_v
         d = self.ideal_ccm_duty(vin_v, v)
         return v * self.k_crit(d) * self.ts_s / (2.0 * self.l_output_h)
+
+    def at_temperature(self, temp_c: float) -> "ConverterDesign":
+        """This design with its resistances at ``temp_c`` (°C) instead of the ambient.
+
+        R(T) = R(T_amb)·(1 + α·(T − T_amb)) with the switch and copper tempcos of
+        ``thermal`` (linear law, common practice); everything else is unchanged.
+        """
+        dt = float(temp_c) - self.thermal.ambient_c
+        if dt == 0.0:
+            return self
+        ks = 1.0 + self.thermal.switch_tempco_per_k * dt
+        kc = 1.0 + self.thermal.copper_tempco_per_k * dt
+        if not (ks > 0.0 and kc > 0.0):
+            raise DesignError(f"design {self.name!r}: {temp_c!r} °C is outside the linear tempco range; "
+                              "give a temperature above the point where a resistance would reach zero")
+        ls = self.losses
+        warm = replace(ls, r_switch_ohm=ls.r_switch_ohm * ks, r_sync_ohm=ls.r_sync_ohm * ks,
+                       r_primary_ohm=ls.r_primary_ohm * kc, r_secondary_ohm=ls.r_secondary_ohm * kc)
+        return replace(self, losses=warm,
+                       bench=replace(self.bench, sense_to_terminal_r_ohm=self.bench.sense_to_terminal_r_ohm * kc))
 
     def lossless(self) -> "ConverterDesign":
         """This design with every loss coefficient, drop and bench resistance set to zero.

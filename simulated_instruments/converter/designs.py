@@ -6,10 +6,17 @@
     load.  200 V switch (0.12 Ω, 150 pF), Schottky rectifier (0.30 V + 10 mΩ), 2 × 330 µF
     polymer output (10 mΩ total ESR → ESR zero 24 kHz), 2 µH leakage with a 15 kΩ/10 nF
     RCD clamp, 10 Ω/1 nF RC snubber on the rectifier.  Voltage mode, 2.5 V reference,
-    H = 0.5, 2.5 V ramp.  Type-3: R1 49.9 kΩ, R2 12.4 kΩ, R3 2.61 kΩ, C1 270 nF, C2 180 pF,
-    C3 2.7 nF (zeros ≈ 48 Hz and 1.1 kHz, poles ≈ 23 kHz and 71 kHz).  In CCM the loop
-    crosses over at ≈ 2.4–4.2 kHz with PM ≈ 60–70°, below a quarter of the lowest RHP
-    zero (≈ 18 kHz at 36 V, full load); in DCM (light load) at tens of Hz with PM ≈ 50–120°.
+    H = 0.5, 2.5 V ramp.  Type-3 network chosen with the K factor (Venable 1983, as
+    ``benchctl.analysis.compensator.design_type3`` computes it): plant H·Gvd(s)/Vm of the
+    CCM model at the worst corner, 36 V / 5 A (lowest RHP zero ≈ 17.3 kHz, LC double pole
+    ≈ 1.35 kHz with Q ≈ 5.6, phase ≈ −180° at 4 kHz); crossover target fc = 4 kHz (below
+    f_RHPz/4 and fsw/37); phase-margin target 60°; R1 = 49.9 kΩ.  Boost 149.7° gives
+    K = 56.6: double zero at fc/√K ≈ 531 Hz, double pole at fc·√K ≈ 30 kHz.  Rounded parts
+    (E96 resistors, E12 capacitors): R2 12.4 kΩ, R3 887 Ω, C1 22 nF, C2 470 pF, C3 5.6 nF.
+    With the finite-gain op-amp the loop falls through one crossover at every corner of
+    36–75 V × 0.5–5 A: CCM ≈ 3.8–7.2 kHz with PM ≈ 59–66° and GM ≥ 14 dB; DCM (light load)
+    ≈ 150–300 Hz with PM ≈ 46–70°; |T| ≥ 30 dB at 10 Hz everywhere, and a 2.5 A step
+    recovers to within 5 mV in about 1 ms.
 ``buck-12v-1v2`` — synchronous point-of-load buck, 10.8–13.2 V in, 1.2 V / 10 A out.
     L = 0.68 µH (≈ 3 A ripple at 12 V), 600 µF output (3 mΩ ESR → 88 kHz), 8 mΩ / 3.3 mΩ
     switches, 2 mΩ DCR, 500 kHz.  Diode emulation: the low-side switch opens at zero
@@ -29,7 +36,7 @@ from __future__ import annotations
 import math
 
 from .design import (BenchWiring, Control, ConverterDesign, FaultSettings, LossCoefficients, Parasitics,
-                     PowerStage, Protection, Type3Network)
+                     PowerStage, Protection, ThermalPath, Type3Network)
 
 FLYBACK_48V_5V = ConverterDesign(
     name="flyback-48v-5v",
@@ -47,12 +54,13 @@ FLYBACK_48V_5V = ConverterDesign(
     parasitics=Parasitics(leakage_h=2e-6, switch_node_c_f=200e-12, clamp_r_ohm=15e3, clamp_c_f=10e-9,
                           snubber_r_ohm=10.0, snubber_c_f=1e-9, diode_c_f=400e-12),
     control=Control(vref_v=2.5, divider_h=0.5, ramp_vm_v=2.5, opamp_gain_db=56.0, opamp_gbw_hz=5e6,
-                    compensator=Type3Network(r1_ohm=49.9e3, r2_ohm=12.4e3, r3_ohm=2.61e3,
-                                             c1_f=270e-9, c2_f=180e-12, c3_f=2.7e-9)),
+                    compensator=Type3Network(r1_ohm=49.9e3, r2_ohm=12.4e3, r3_ohm=887.0,
+                                             c1_f=22e-9, c2_f=470e-12, c3_f=5.6e-9)),
     protection=Protection(uvlo_on_v=34.0, uvlo_off_v=32.0, current_limit_a=6.0),
     bench=BenchWiring(cable_r_ohm=0.05, sense_to_terminal_r_ohm=0.002, settle_tau_s=0.020,
-                      soft_start_tau_s=0.050),
+                      soft_start_tau_s=0.050, input_filter_tau_s=0.020),
     faults=FaultSettings(overheat_rate_w_per_s=0.05, overheat_max_w=5.0),
+    thermal=ThermalPath(r_th_k_per_w=12.0, c_th_j_per_k=15.0),
 )
 
 BUCK_12V_1V2 = ConverterDesign(
@@ -75,8 +83,9 @@ BUCK_12V_1V2 = ConverterDesign(
                                              c1_f=2.4e-9, c2_f=39e-12, c3_f=1.8e-9)),
     protection=Protection(uvlo_on_v=8.5, uvlo_off_v=7.8, current_limit_a=13.0),
     bench=BenchWiring(cable_r_ohm=0.02, sense_to_terminal_r_ohm=0.0003, settle_tau_s=0.005,
-                      soft_start_tau_s=0.010),
+                      soft_start_tau_s=0.010, input_filter_tau_s=0.005),
     faults=FaultSettings(overheat_rate_w_per_s=0.05, overheat_max_w=2.0),
+    thermal=ThermalPath(r_th_k_per_w=10.0, c_th_j_per_k=10.0),
 )
 
 DESIGNS: dict[str, ConverterDesign] = {d.name: d for d in (FLYBACK_48V_5V, BUCK_12V_1V2)}

@@ -3,9 +3,26 @@
 One ``ConverterModel`` sits between a DC source (feeding the DUT input through the
 cable) and an electronic load (on the output terminals); meters, a loop analyzer and
 a scope observe it.  Each setting call is an event at ``clock.now_s()``: the model
-solves the new steady state (``operating_point.solve_bench``) and every terminal
-quantity relaxes toward it exponentially (``dynamics.Relaxation``).  Values are true
-(noise-free); instruments add their own noise from ``model.rng``.  Thread-safe.
+solves the new steady state (``operating_point.solve_bench``) and the terminal
+quantities move toward it with their own dynamics (``dynamics``):
+
+* the load current ramps at the load's slew rate (``load_slew_a_per_s``, default
+  ``DEFAULT_LOAD_SLEW_A_PER_S`` = 1 A/ms);
+* the output voltage recovers through the closed loop (the closed-loop output
+  impedance's response to that ramp, linearised at the heavier end of the step);
+* the input current lags behind the DUT's demand with the bench's input-filter time
+  constant ``design.bench.input_filter_tau_s`` (20 ms flyback, 5 ms buck), so input
+  current and power settle after the output voltage;
+* with ``thermal_drift=True`` the hot parts warm with the loss through the design's
+  thermal path (τ = R·C = 3 min flyback, 100 s buck, model time) and the on-resistances
+  rise with them, so the losses creep up and the efficiency falls a little.  Off by
+  default: the parts then stay at the ambient and the losses are the design's.
+
+Starts, stops, lock-outs, faults and protection take the simpler path of one
+exponential for everything (soft-start or settle time constant).  Values are true
+(noise-free); instruments add their own errors.  The truth functions for tests are
+``steady_state`` (at the present temperature), ``terminals_at``/``mean_terminals``,
+``temperature_c`` and ``true_settling_time_s``.  Thread-safe.
 """
 
 from __future__ import annotations
@@ -13,21 +30,38 @@ from __future__ import annotations
 import logging
 import math
 import threading
+from collections import deque
 from dataclasses import dataclass
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
+from scipy.optimize import brentq
 
 from .clock import ModelClock, ScaledClock
 from .design import ConverterDesign
-from .dynamics import Relaxation, settling_time
+from .dynamics import (INPUT_A, INPUT_V, LOAD_A, OUTPUT_A, OUTPUT_V, QUANTITIES, SOURCE_A, SOURCE_V,
+                       RegulatedTransient, Relaxation, Transient, settling_time)
 from .errors import NotRegulatingError, SettingError
+from .load_response import ImpedanceExcess, LoadRamp
 from .margins import LoopTruth, loop_margins
 from .operating_point import (FAULT_NAMES, BenchPoint, LoadMode, LoadSetting, OperatingPoint, SourceSetting,
                               solve_bench, solve_dut)
 from .small_signal import RationalTF, closed_loop_output_impedance, control_chain, plant_gvd, plant_zout_open
+from .thermal import ThermalState
 
 log = logging.getLogger(__name__)
+
+#: Slew rate of the electronic load's current after a static setting, A/s (1 A/ms).  The slow
+#: end of a bench load's range, the setting used for static steps so that a step neither
+#: trips the DUT's protection nor rings its loop (common practice).
+DEFAULT_LOAD_SLEW_A_PER_S = 1e3
+#: Quasi-static samples along a load ramp (the targets are linear between them): at least this
+#: many, and four per input-filter time constant on a slow ramp, up to RAMP_SAMPLES_MAX.
+RAMP_SAMPLES = 8
+RAMP_SAMPLES_MAX = 64
+#: Quantities ``true_settling_time_s`` knows, beyond the terminal vector.
+DERIVED_QUANTITIES = ("source_w", "input_w", "output_w", "load_w", "efficiency")
+_HISTORY = 64
 
 
 @dataclass(frozen=True)
@@ -50,28 +84,90 @@ class Terminals:
     load_a: float
 
 
+@dataclass(frozen=True)
+class TerminalMeans:
+    """Means of the true terminal values over model times ``t0_s`` … ``t1_s``.  V, A, W.
+
+    Powers are means of the instantaneous products (what an integrating power meter
+    reads), not products of the means.  load_w = output_v·load_a.
+    """
+
+    t0_s: float
+    t1_s: float
+    source_v: float
+    source_a: float
+    input_v: float
+    input_a: float
+    output_v: float
+    output_a: float
+    load_a: float
+    source_w: float
+    input_w: float
+    output_w: float
+    load_w: float
+
+
+@dataclass(frozen=True)
+class _Segment:
+    """The settings and the transient in force from ``t0_s`` on."""
+
+    t0_s: float
+    transient: Transient
+    bench: BenchPoint
+    source: SourceSetting
+    load: LoadSetting
+    faults: tuple[str, ...]
+
+
 def _vector(bp: BenchPoint) -> tuple[float, ...]:
     op = bp.op
     return (bp.source_v, bp.source_a, bp.input_v, bp.input_a, op.vout_v, op.iout_a, op.load_a)
 
 
-class ConverterModel:
-    """Physical model of one converter on a bench (see module docstring)."""
+def _derived(v: NDArray[np.float64], name: str) -> NDArray[np.float64]:
+    if name in QUANTITIES:
+        return v[QUANTITIES.index(name)]
+    if name == "source_w":
+        return v[SOURCE_V] * v[SOURCE_A]
+    if name == "input_w":
+        return v[INPUT_V] * v[INPUT_A]
+    if name == "output_w":
+        return v[OUTPUT_V] * v[OUTPUT_A]
+    if name == "load_w":
+        return v[OUTPUT_V] * v[LOAD_A]
+    if name == "efficiency":
+        pin = v[INPUT_V] * v[INPUT_A]
+        return np.divide(v[OUTPUT_V] * v[OUTPUT_A], pin, out=np.zeros_like(pin), where=pin > 0.0)
+    raise ValueError(f"unknown quantity {name!r}; known: {', '.join(QUANTITIES + DERIVED_QUANTITIES)}")
 
-    def __init__(self, design: ConverterDesign, clock: ModelClock | None = None, seed: int = 0) -> None:
+
+class ConverterModel:
+    """Physical model of one converter on a bench (see module docstring).
+
+    ``thermal_drift`` turns the warming of the parts on (off by default, so a dry run's
+    losses are the design's and do not creep).
+    """
+
+    def __init__(self, design: ConverterDesign, clock: ModelClock | None = None, seed: int = 0, *,
+                 thermal_drift: bool = False) -> None:
         self.design = design
         self.clock: ModelClock = ScaledClock() if clock is None else clock
         self.rng = np.random.default_rng(seed)
         self._lock = threading.RLock()
         self._source = SourceSetting(0.0, 0.0, False)
         self._load = LoadSetting("CC", 0.0, False)
+        self._load_slew_a_per_s = DEFAULT_LOAD_SLEW_A_PER_S
         self._faults: dict[str, float] = {}
         self._running = False
         t = self.clock.now_s()
-        self._bench = self._solve(t, was_running=False)
-        v = _vector(self._bench)
-        self._relax = Relaxation(t, design.bench.settle_tau_s, v, v)
-        self._cache: tuple[float, BenchPoint] | None = None
+        self._thermal = ThermalState(design.thermal, t, enabled=thermal_drift)
+        self._cache: tuple[float, float, BenchPoint] | None = None
+        self._small_signal: dict[tuple, tuple[ImpedanceExcess | None, float]] = {}
+        bench = self._solve(t, was_running=False)
+        v = _vector(bench)
+        self._segments: deque[_Segment] = deque(maxlen=_HISTORY)
+        self._segments.append(_Segment(t, Relaxation(t, design.bench.settle_tau_s, v, v), bench,
+                                       self._source, self._load, ()))
 
     # ---- settings (events) ----------------------------------------------------------
     def set_source(self, voltage_v: float, current_limit_a: float, enabled: bool) -> None:
@@ -84,12 +180,21 @@ class ConverterModel:
             self._source = SourceSetting(float(voltage_v), float(current_limit_a), bool(enabled))
             self._event("source", f"{voltage_v:g} V, limit {current_limit_a:g} A, {'on' if enabled else 'off'}")
 
-    def set_load(self, mode: LoadMode, setting: float, enabled: bool) -> None:
-        """Program the electronic load: "CC" (setting in A) or "CR" (setting in Ω), on/off."""
+    def set_load(self, mode: LoadMode, setting: float, enabled: bool, *, slew_a_per_s: float | None = None) -> None:
+        """Program the electronic load: "CC" (setting in A) or "CR" (setting in Ω), on/off.
+
+        ``slew_a_per_s`` (A/s, > 0) is the rate at which the load's current moves to the new
+        value; None keeps the present one (default ``DEFAULT_LOAD_SLEW_A_PER_S``).
+        """
         if not math.isfinite(setting):
             raise SettingError(f"set_load: setting={setting!r} must be finite")
+        if slew_a_per_s is not None and not (math.isfinite(slew_a_per_s) and slew_a_per_s > 0.0):
+            raise SettingError(f"set_load: slew_a_per_s={slew_a_per_s!r} must be a finite value > 0 A/s")
         with self._lock:
-            self._load = LoadSetting(mode, float(setting), bool(enabled))
+            load = LoadSetting(mode, float(setting), bool(enabled))
+            if slew_a_per_s is not None:
+                self._load_slew_a_per_s = float(slew_a_per_s)
+            self._load = load
             self._event("load", f"{mode} {setting:g}, {'on' if enabled else 'off'}")
 
     def inject_fault(self, name: str) -> None:
@@ -113,17 +218,57 @@ class ConverterModel:
         with self._lock:
             return tuple(sorted(self._faults))
 
+    @property
+    def load_slew_a_per_s(self) -> float:
+        """Slew rate of the load current after a setting, A/s."""
+        with self._lock:
+            return self._load_slew_a_per_s
+
+    @property
+    def thermal_drift(self) -> bool:
+        """Whether the parts warm with their loss (see module docstring)."""
+        return self._thermal.enabled
+
     # ---- observation ----------------------------------------------------------------
     def terminals(self) -> Terminals:
         """True terminal values at the present model time, dynamics included."""
         with self._lock:
-            t = self.clock.now_s()
-            bp = self._target(t)
-            v = self._relax.value(t, _vector(bp))
-            return Terminals(t, v[0], v[1], bp.source_limited, v[2], v[3], v[4], v[5], v[6])
+            return self.terminals_at(self.clock.now_s())
+
+    def terminals_at(self, t_s: float) -> Terminals:
+        """True terminal values at model time ``t_s``.
+
+        ``t_s`` may lie in the recent past (the last settings are remembered) or ahead
+        (assuming no further setting and the present temperature).
+        """
+        with self._lock:
+            seg = self._segment_at(t_s)
+            v = seg.transient.values_at(t_s, self._target_vector(seg, t_s))[:, 0]
+            return Terminals(float(t_s), float(v[0]), float(v[1]), seg.bench.source_limited, float(v[2]),
+                             float(v[3]), float(v[4]), float(v[5]), float(v[6]))
+
+    def mean_terminals(self, t0_s: float, t1_s: float) -> TerminalMeans:
+        """Means of the true terminal values (and powers) over model times ``t0_s`` … ``t1_s``.
+
+        Gauss–Legendre quadrature (8 nodes) on sub-intervals split at every setting, at
+        the ramp samples and geometrically after each setting, so fast loop dynamics are
+        resolved; exact to well below the instruments' resolution.  ``t1_s == t0_s``
+        gives the values at that moment.
+        """
+        if not t1_s >= t0_s:
+            raise ValueError(f"mean_terminals: t1_s={t1_s!r} must not be before t0_s={t0_s!r}")
+        with self._lock:
+            if t1_s == t0_s:
+                v = self._values_at(np.array([t0_s]))[:, 0]
+                sums = np.concatenate([v, self._powers(v.reshape(-1, 1))[:, 0]])
+            else:
+                t, w = self._quadrature(t0_s, t1_s)
+                v = self._values_at(t)
+                sums = np.concatenate([v @ w, self._powers(v) @ w]) / (t1_s - t0_s)
+            return TerminalMeans(float(t0_s), float(t1_s), *(float(x) for x in sums))
 
     def operating_point(self) -> OperatingPoint:
-        """Steady state the DUT is heading to at the present model time."""
+        """Steady state the DUT is heading to at the present model time (and temperature)."""
         with self._lock:
             return self._target(self.clock.now_s()).op
 
@@ -131,17 +276,34 @@ class ConverterModel:
                      was_running: bool = False) -> OperatingPoint:
         """Truth for tests: the DUT at ``vin_v`` on its input terminals, load enabled, no dynamics.
 
-        Active faults apply.  ``was_running`` selects the UVLO threshold (off if True, on if False).
+        At the present temperature of the parts; active faults apply.  ``was_running``
+        selects the UVLO threshold (off if True, on if False).
         """
         with self._lock:
             t = self.clock.now_s()
-            return solve_dut(self.design, float(vin_v), LoadSetting(load_mode, float(load_setting), True),
+            return solve_dut(self._design_at(self._temperature(t)), float(vin_v),
+                             LoadSetting(load_mode, float(load_setting), True),
                              was_running=was_running, faults=self.faults, extra_loss_w=self._extra_loss_w(t))
+
+    def temperature_c(self) -> float:
+        """Temperature of the hot parts now, °C (the ambient while thermal drift is off)."""
+        with self._lock:
+            return self._temperature(self.clock.now_s())
+
+    @property
+    def ambient_c(self) -> float:
+        """Ambient temperature, °C (the loss coefficients hold there)."""
+        return self.design.thermal.ambient_c
+
+    @property
+    def thermal_time_constant_s(self) -> float:
+        """Thermal time constant R·C of the hot parts, model seconds."""
+        return self.design.thermal.tau_s
 
     @property
     def time_constant_s(self) -> float:
-        """Settling time constant after a change while running, model seconds."""
-        return self.design.bench.settle_tau_s
+        """Input-filter time constant: the slowest electrical lag after a change while running, model s."""
+        return self.design.bench.input_filter_tau_s
 
     @property
     def soft_start_time_constant_s(self) -> float:
@@ -150,27 +312,75 @@ class ConverterModel:
 
     @property
     def active_time_constant_s(self) -> float:
-        """Time constant of the transient in progress, model seconds."""
+        """Slowest time constant of the transient in progress, model seconds."""
         with self._lock:
-            return self._relax.tau_s
+            return self._segments[-1].transient.slowest_tau_s
+
+    @property
+    def transient_start_s(self) -> float:
+        """Model time of the last setting (the start of the transient in progress)."""
+        with self._lock:
+            return self._segments[-1].t0_s
+
+    def loop_time_constant_s(self) -> float:
+        """τ_loop = 1/(2π·f_c) of the present loop (model s): how the output follows a line step."""
+        with self._lock:
+            op = self.operating_point()
+            return self._small_signal_at(op)[1]
 
     def settling_time_s(self, step_fraction: float, rel_tol: float) -> float:
-        """True time (model s) for a step of relative size ``step_fraction`` to stay within ``rel_tol``.
+        """First-order estimate τ·ln(step_fraction/rel_tol), τ = ``active_time_constant_s`` (model s).
 
-        τ·ln(step_fraction/rel_tol) with τ of the transient in progress.
+        The model's exact figure, with the load ramp and every lag, is ``true_settling_time_s``.
         """
         return settling_time(self.active_time_constant_s, step_fraction, rel_tol)
+
+    def true_settling_time_s(self, quantity: str = "input_w", *, abs_tol: float | None = None,
+                             rel_tol: float | None = None) -> float:
+        """Model seconds from the last setting until ``quantity`` stays within tolerance of its final value.
+
+        quantity: a terminal quantity (``Terminals`` field names) or one of
+        ``DERIVED_QUANTITIES`` ("input_w", "output_w", "efficiency", ...).  The tolerance is
+        ``abs_tol`` (the quantity's unit) or ``rel_tol`` × |final value| (the larger when both are
+        given).  The final value is the steady state at the present temperature: the slow
+        thermal drift is the stability criterion's business, not the settling's.  Assumes no
+        further setting.  0 when the quantity never leaves the band.
+        """
+        if abs_tol is None and rel_tol is None:
+            raise ValueError("true_settling_time_s: give abs_tol or rel_tol (or both)")
+        with self._lock:
+            seg = self._segments[-1]
+            target = np.asarray(self._target_vector(seg, self.clock.now_s()), dtype=float)
+            final = float(_derived(target.reshape(-1, 1), quantity)[0])
+            tol = max(abs_tol or 0.0, (rel_tol or 0.0) * abs(final))
+            if not tol > 0.0:
+                raise ValueError(f"true_settling_time_s: the tolerance for {quantity!r} must be > 0 "
+                                 f"(final value {final!r})")
+            tr = seg.transient
+            t0 = seg.t0_s
+            horizon = (tr.end_of_drive_s - t0) + 60.0 * tr.slowest_tau_s + 1e-6
+
+            def deviation(t: NDArray[np.float64]) -> NDArray[np.float64]:
+                return np.abs(_derived(tr.values_at(t, target), quantity) - final) - tol
+
+            grid = np.unique(np.concatenate([
+                t0 + np.geomspace(1e-9, horizon, 4000), t0 + np.linspace(0.0, horizon, 4001),
+                np.asarray(getattr(tr, "sample_times_s", (t0,)))]))
+            dev = deviation(grid)
+            outside = np.nonzero(dev > 0.0)[0]
+            if outside.size == 0:
+                return 0.0
+            i = int(outside[-1])
+            if i + 1 >= grid.size:
+                return float(grid[-1] - t0)
+            a, b = float(grid[i]), float(grid[i + 1])
+            t_cross = brentq(lambda x: float(deviation(np.array([x]))[0]), a, b, xtol=1e-12, rtol=1e-12)
+            return float(t_cross - t0)
 
     # ---- small signal -----------------------------------------------------------------
     def loop_transfer(self) -> RationalTF:
         """Loop gain T(s) = H·Gc(s)·Gvd(s)/Vm at the present operating point (CCM or DCM model)."""
-        op = self.operating_point()
-        if op.state != "regulating":
-            raise NotRegulatingError(
-                f"{self.design.name}: no closed loop in state {op.state!r} ({op.reason}); "
-                "set the source and load so the converter regulates first")
-        gvd = plant_gvd(self.design, op.conduction_mode, op.vin_v, op.vsense_v, op.duty, op.r_load_eff_ohm)
-        return control_chain(self.design) * gvd
+        return self._loop_transfer(self.operating_point())
 
     def loop_gain(self, freq_hz: ArrayLike) -> NDArray[np.complex128]:
         """Complex loop gain T(j2πf) at ``freq_hz`` (Hz)."""
@@ -182,16 +392,46 @@ class ConverterModel:
 
     def output_impedance_transfer(self) -> RationalTF:
         """Closed-loop output impedance Zout(s) = Zout_open(s)/(1 + T(s)), Ω."""
-        op = self.operating_point()
-        loop = self.loop_transfer()
-        zo = plant_zout_open(self.design, op.conduction_mode, op.vin_v, op.vsense_v, op.duty, op.r_load_eff_ohm)
-        return closed_loop_output_impedance(zo, loop)
+        return self._zout_transfer(self.operating_point())
 
     def output_impedance(self, freq_hz: ArrayLike) -> NDArray[np.complex128]:
         """Complex closed-loop output impedance at ``freq_hz`` (Hz), Ω."""
         return self.output_impedance_transfer().response(freq_hz)
 
-    # ---- internals --------------------------------------------------------------------
+    # ---- internals: steady states -------------------------------------------------------
+    def _loop_transfer(self, op: OperatingPoint) -> RationalTF:
+        if op.state != "regulating":
+            raise NotRegulatingError(
+                f"{self.design.name}: no closed loop in state {op.state!r} ({op.reason}); "
+                "set the source and load so the converter regulates first")
+        gvd = plant_gvd(self.design, op.conduction_mode, op.vin_v, op.vsense_v, op.duty, op.r_load_eff_ohm)
+        return control_chain(self.design) * gvd
+
+    def _zout_transfer(self, op: OperatingPoint) -> RationalTF:
+        loop = self._loop_transfer(op)
+        zo = plant_zout_open(self.design, op.conduction_mode, op.vin_v, op.vsense_v, op.duty, op.r_load_eff_ohm)
+        return closed_loop_output_impedance(zo, loop)
+
+    def _small_signal_at(self, op: OperatingPoint) -> tuple[ImpedanceExcess | None, float]:
+        """(decaying part of Zcl, τ_loop) at ``op``; cached."""
+        key = (op.state, op.conduction_mode, round(op.vin_v, 6), round(op.load_a, 9), round(op.duty, 9))
+        hit = self._small_signal.get(key)
+        if hit is not None:
+            return hit
+        zout: ImpedanceExcess | None = None
+        tau = self.design.bench.settle_tau_s
+        try:
+            zout = ImpedanceExcess.from_tf(self._zout_transfer(op))
+            truth = loop_margins(self._loop_transfer(op), 1e-3, 100.0 * self.design.fsw_hz)
+            if truth.crossover_hz:
+                tau = 1.0 / (2.0 * math.pi * truth.crossover_hz)
+        except (NotRegulatingError, ValueError) as exc:
+            log.debug("no closed-loop response at %s: %s", key, exc)
+        if len(self._small_signal) > 256:
+            self._small_signal.clear()
+        self._small_signal[key] = (zout, tau)
+        return zout, tau
+
     def _extra_loss_w(self, t_s: float) -> float:
         t_on = self._faults.get("overheat")
         if t_on is None:
@@ -199,27 +439,170 @@ class ConverterModel:
         f = self.design.faults
         return min(f.overheat_rate_w_per_s * max(t_s - t_on, 0.0), f.overheat_max_w)
 
-    def _solve(self, t_s: float, was_running: bool) -> BenchPoint:
-        return solve_bench(self.design, self._source, self._load, was_running=was_running,
-                           faults=tuple(sorted(self._faults)), extra_loss_w=self._extra_loss_w(t_s))
+    def _design_at(self, temp_c: float) -> ConverterDesign:
+        return self.design.at_temperature(temp_c) if self._thermal.enabled else self.design
 
-    def _target(self, t_s: float) -> BenchPoint:
-        if "overheat" not in self._faults or not self._bench.op.running:
-            return self._bench
-        if self._cache is not None and self._cache[0] == t_s:
-            return self._cache[1]
-        bp = self._solve(t_s, was_running=True)
-        self._cache = (t_s, bp)
+    def _temperature(self, t_s: float) -> float:
+        if not self._thermal.enabled:
+            return self.design.thermal.ambient_c
+        if t_s > self._thermal.latest_s:
+            now = self.clock.now_s()
+            self._thermal.advance(min(t_s, now), self._loss_at)
+        return self._thermal.temperature_at(t_s)
+
+    def _loss_at(self, t_s: float, temp_c: float) -> float:
+        """DUT dissipation (W) with the present settings at ``temp_c``, for the thermal integration."""
+        seg = self._segments[-1]
+        return self._solve_with(seg.source, seg.load, seg.faults, t_s, temp_c, self._running).op.loss_w
+
+    def _solve_with(self, source: SourceSetting, load: LoadSetting, faults: tuple[str, ...], t_s: float,
+                    temp_c: float, was_running: bool) -> BenchPoint:
+        extra = self._extra_loss_w(t_s) if "overheat" in faults else 0.0
+        return solve_bench(self._design_at(temp_c), source, load, was_running=was_running, faults=faults,
+                           extra_loss_w=extra)
+
+    def _solve(self, t_s: float, was_running: bool) -> BenchPoint:
+        return self._solve_with(self._source, self._load, tuple(sorted(self._faults)), t_s,
+                                self._temperature(t_s), was_running)
+
+    def _moving(self, seg: _Segment) -> bool:
+        """Whether the target of ``seg`` moves with time (warming parts, an overheat fault)."""
+        return seg.bench.op.running and (self._thermal.enabled or "overheat" in seg.faults)
+
+    def _target_at(self, seg: _Segment, t_s: float) -> BenchPoint:
+        if not self._moving(seg):
+            return seg.bench
+        temp = self._temperature(t_s)
+        if self._cache is not None and self._cache[0] == t_s and self._cache[1] == temp and seg is self._segments[-1]:
+            return self._cache[2]
+        bp = self._solve_with(seg.source, seg.load, seg.faults, t_s, temp, was_running=True)
+        if seg is self._segments[-1]:
+            self._cache = (t_s, temp, bp)
         return bp
 
+    def _target(self, t_s: float) -> BenchPoint:
+        return self._target_at(self._segments[-1], t_s)
+
+    def _target_vector(self, seg: _Segment, t_s: float) -> tuple[float, ...]:
+        return _vector(self._target_at(seg, t_s))
+
+    # ---- internals: time ------------------------------------------------------------------
+    def _segment_at(self, t_s: float) -> _Segment:
+        for seg in reversed(self._segments):
+            if seg.t0_s <= t_s:
+                return seg
+        return self._segments[0]
+
+    def _values_at(self, t: NDArray[np.float64]) -> NDArray[np.float64]:
+        """Terminal vectors (7 × n) at sorted model times ``t`` across settings."""
+        out = np.empty((7, t.size))
+        segs = list(self._segments)
+        starts = np.array([s.t0_s for s in segs])
+        idx = np.clip(np.searchsorted(starts, t, side="right") - 1, 0, len(segs) - 1)
+        for k in np.unique(idx):
+            mask = idx == k
+            seg = segs[int(k)]
+            tk = t[mask]
+            mid = 0.5 * (float(tk[0]) + float(tk[-1]))
+            out[:, mask] = seg.transient.values_at(tk, self._target_vector(seg, mid))
+        return out
+
+    @staticmethod
+    def _powers(v: NDArray[np.float64]) -> NDArray[np.float64]:
+        return np.vstack([_derived(v, name) for name in ("source_w", "input_w", "output_w", "load_w")])
+
+    def _quadrature(self, t0_s: float, t1_s: float) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+        """Nodes and weights over [t0_s, t1_s] split where the dynamics change fast."""
+        cuts = {t0_s, t1_s}
+        segs = list(self._segments)
+        for k, seg in enumerate(segs):
+            if seg.t0_s >= t1_s or (k + 1 < len(segs) and segs[k + 1].t0_s <= t0_s):
+                continue            # not in force during the interval
+            cuts.update(t for t in getattr(seg.transient, "sample_times_s", ()) if t0_s < t < t1_s)
+            starts = {seg.t0_s}
+            for ramp in getattr(seg.transient, "ramps", ()):
+                starts.update((ramp.t_start_s, ramp.t_end_s))
+            for base in starts:             # fast loop dynamics begin at each of these
+                if t0_s < base < t1_s:
+                    cuts.add(base)
+                step = 1e-7
+                while base + step < t1_s:
+                    if base + step > t0_s:
+                        cuts.add(base + step)
+                    step *= 2.0
+        edges = np.array(sorted(cuts))
+        x, w = np.polynomial.legendre.leggauss(8)
+        a, b = edges[:-1], edges[1:]
+        half = 0.5 * (b - a)
+        nodes = (0.5 * (a + b))[:, None] + half[:, None] * x[None, :]
+        weights = half[:, None] * w[None, :]
+        return nodes.ravel(), weights.ravel()
+
+    # ---- internals: events -------------------------------------------------------------
     def _event(self, what: str, detail: str) -> None:
         t = self.clock.now_s()
-        present = self._relax.value(t, _vector(self._target(t)))
+        self._temperature(t)
+        prev = self._segments[-1]
+        present = tuple(float(x) for x in prev.transient.values_at(t, self._target_vector(prev, t))[:, 0])
         was_running = self._running
         self._cache = None
-        self._bench = self._solve(t, was_running)
-        self._running = self._bench.op.running
-        tau = (self.design.bench.soft_start_tau_s if self._running and not was_running
-               else self.design.bench.settle_tau_s)
-        self._relax = Relaxation(t, tau, present, _vector(self._bench))
-        log.debug("%s at t=%.6f s: %s -> state %s", what, t, detail, self._bench.op.state)
+        bench = self._solve(t, was_running)
+        self._running = bench.op.running
+        transient: Transient | None = None
+        if (what in ("source", "load") and was_running and prev.bench.op.state == "regulating"
+                and bench.op.state == "regulating" and self._recovered(prev.transient, t)):
+            transient = self._regulated(t, present, prev, bench)
+        if transient is None:
+            if self._running and not was_running:
+                tau = self.design.bench.soft_start_tau_s
+            elif self._running and isinstance(prev.transient, Relaxation) and not self._recovered(prev.transient, t):
+                tau = prev.transient.tau_s        # a change during a start continues the start
+            else:
+                tau = self.design.bench.settle_tau_s
+            transient = Relaxation(t, tau, present, _vector(bench))
+        self._segments.append(_Segment(t, transient, bench, self._source, self._load, tuple(sorted(self._faults))))
+        log.debug("%s at t=%.6f s: %s -> state %s (%s)", what, t, detail, bench.op.state, type(transient).__name__)
+
+    @staticmethod
+    def _recovered(transient: Transient, t_s: float) -> bool:
+        if isinstance(transient, RegulatedTransient):
+            return True
+        return t_s - transient.t0_s >= 10.0 * transient.tau_s
+
+    def _regulated(self, t: float, present: tuple[float, ...], prev: _Segment,
+                   bench: BenchPoint) -> RegulatedTransient | None:
+        i_from, i_to = present[LOAD_A], bench.op.load_a
+        slew = self._load_slew_a_per_s
+        duration = abs(i_to - i_from) / slew
+        temp = self._temperature(t)
+        faults = tuple(sorted(self._faults))
+        if duration <= 1e-12:
+            times = (t,)
+            samples = (_vector(bench),)
+            heavy = bench.op
+        else:
+            n = min(RAMP_SAMPLES_MAX, max(RAMP_SAMPLES, math.ceil(4.0 * duration / self.design.bench.input_filter_tau_s)))
+            times = tuple(t + duration * k / n for k in range(n + 1))
+            samples_list: list[tuple[float, ...]] = []
+            ops = []
+            for k in range(n):
+                i_k = i_from + (i_to - i_from) * k / n
+                bp = self._solve_with(self._source, LoadSetting("CC", max(i_k, 0.0), True), faults, t, temp,
+                                      was_running=True)
+                if bp.op.state != "regulating":
+                    return None
+                samples_list.append(_vector(bp))
+                ops.append(bp.op)
+            samples_list.append(_vector(bench))
+            ops.append(bench.op)
+            samples = tuple(samples_list)
+            heavy = max(ops, key=lambda op: op.load_a)   # linearised at the heavier end (module docstring)
+        ramps: list[LoadRamp] = []
+        if isinstance(prev.transient, RegulatedTransient):
+            ramps = [r.cut_at(t) for r in prev.transient.ramps if not r.faded(t)]
+        zout, _ = self._small_signal_at(heavy)
+        _, loop_tau = self._small_signal_at(bench.op)
+        if duration > 1e-12 and zout is not None:
+            ramps.append(LoadRamp(t, t + duration, (i_to - i_from) / duration, zout))
+        return RegulatedTransient(t, times, samples, present, self.design.bench.input_filter_tau_s, loop_tau,
+                                  self.design.bench.cable_r_ohm, tuple(ramps))

@@ -1,15 +1,26 @@
 """A simulated programmable DC source feeding the converter model's input.
 
 Voltage setpoint, current limit, over-voltage protection (OVP), output switch, and
-measured output voltage and current (at the source terminals, with noise). When the
-programmed voltage or the measured terminal voltage exceeds the OVP level while the
-output is on, the protection trips: the output turns off and stays off until cleared.
+measured output voltage and current at the source terminals. When the programmed
+voltage or the measured terminal voltage exceeds the OVP level while the output is on,
+the protection trips: the output turns off and stays off until cleared.
+
+Read-back: each MEASure query integrates over the aperture (``[SENSe:]APERture[:TIME]``,
+default 20 ms; see ``aperture``) and answers the mean plus the source's own error,
+always inside its documented accuracy ``ACCURACY``:
+
+    voltage  100 V: ±(0.03 % + 10 mV)
+    current  1 A: ±(0.05 % + 0.5 mA)   10 A: ±(0.05 % + 2 mA)
 """
 
 from __future__ import annotations
 
+import time
+from collections.abc import Callable
+
 from ..scpi import Boolean, Identity, Numeric, ScpiInstrument
-from .noise import MeterNoise, NoiseSpec
+from .accuracy import InstrumentErrors, QuantityAccuracy, ranged, single
+from .aperture import APERTURE_RANGE_S, DEFAULT_APERTURE_S, Aperture
 
 
 class SimulatedDcSource(ScpiInstrument):
@@ -18,13 +29,17 @@ class SimulatedDcSource(ScpiInstrument):
     VOLTAGE_MAX_V = 100.0
     CURRENT_MAX_A = 10.0
     OVP_MAX_V = 110.0
-    VOLTAGE_NOISE = NoiseSpec(gain_ppm=50.0, offset=1e-3)
-    CURRENT_NOISE = NoiseSpec(gain_ppm=200.0, offset=2e-4)
+    ACCURACY: dict[str, QuantityAccuracy] = {
+        "voltage": single("V", 100.0, 0.03, 10e-3),
+        "current": ranged("A", (1.0, 0.05, 0.5e-3), (10.0, 0.05, 2e-3)),
+    }
 
-    def __init__(self, model, *, serial: str = "S1001", seed: int = 0) -> None:
+    def __init__(self, model, *, serial: str = "S1001", seed: int = 0, aperture_s: float = DEFAULT_APERTURE_S,
+                 sleep: Callable[[float], None] = time.sleep) -> None:
         super().__init__(Identity(maker="benchctl-sim", model="DCS-100-10", serial=serial, firmware="1.0"))
         self.model = model
-        self._noise = MeterNoise([seed, 1])
+        self.errors = InstrumentErrors(self.ACCURACY, [seed, 1])
+        self.aperture = Aperture(model.clock, aperture_s, sleep)
         self._reset_state()
         self.add_command("[SOURce:]VOLTage[:LEVel][:IMMediate][:AMPLitude]", setter=self._set_voltage,
                          getter=lambda: self.voltage_v,
@@ -39,6 +54,9 @@ class SimulatedDcSource(ScpiInstrument):
         self.add_command("OUTPut[:STATe]", setter=self._set_output, getter=lambda: self.output_on, params=[Boolean()])
         self.add_command("MEASure[:SCALar]:VOLTage[:DC]", getter=self._measure_voltage)
         self.add_command("MEASure[:SCALar]:CURRent[:DC]", getter=self._measure_current)
+        lo, hi = APERTURE_RANGE_S
+        self.add_command("[SENSe:]APERture[:TIME]", setter=self.aperture.set, getter=lambda: self.aperture.seconds,
+                         params=[Numeric(unit="S", minimum=lo, maximum=hi, default=self.aperture.default_s)])
 
     def _reset_state(self) -> None:
         self.voltage_v = 0.0
@@ -50,6 +68,7 @@ class SimulatedDcSource(ScpiInstrument):
 
     def on_reset(self) -> None:
         was_on = self.output_on
+        self.aperture.reset()
         self._reset_state()
         if was_on:
             self.audit_state("output", False)
@@ -95,10 +114,16 @@ class SimulatedDcSource(ScpiInstrument):
             self.audit_state("output", self.output_on)
         self._check_ovp()
 
+    def _read(self, quantity: str) -> float:
+        interval = self.aperture.integrate()
+        self._check_ovp()
+        m = self.model.mean_terminals(interval.t0_s, interval.t1_s)
+        return self.errors.read(quantity, m.source_v if quantity == "voltage" else m.source_a)
+
     def _measure_voltage(self) -> float:
         self._check_ovp()
-        return self._noise.add(self.model.terminals().source_v, self.VOLTAGE_NOISE)
+        return self._read("voltage")
 
     def _measure_current(self) -> float:
         self._check_ovp()
-        return self._noise.add(self.model.terminals().source_a, self.CURRENT_NOISE)
+        return self._read("current")

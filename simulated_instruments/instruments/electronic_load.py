@@ -2,7 +2,21 @@
 
 Constant-current (CC) and constant-resistance (CR) modes, input switch, its own
 over-current and over-power protection (trip: input off until switched on again), and
-measured voltage, current and power at its terminals with noise.
+measured voltage, current and power at its terminals.
+
+A new static level is not drawn at once: the current moves to it at the static slew
+rate, ``[SOURce:]CURRent:SLEW[:BOTH] <A/s>`` (100 A/s … 2.5e9 A/s, default
+``STATIC_SLEW_A_PER_S`` = 1000 A/s = 1 A/ms: the slow setting used for static steps so a
+step neither trips the DUT nor rings its loop; 0 → 5 A takes 5 ms).  It applies in CC and
+CR mode; dynamic-mode edges use their own slew (below).
+
+Read-back: each MEASure query integrates over the aperture (``[SENSe:]APERture[:TIME]``,
+default 20 ms; see ``aperture``) and answers the mean plus the load's own error, always
+inside its documented accuracy ``ACCURACY``:
+
+    voltage  15 V: ±(0.02 % + 1.5 mV)   150 V: ±(0.02 % + 15 mV)
+    current  3 A: ±(0.04 % + 0.3 mA)    30 A: ±(0.04 % + 3 mA)
+    power    30 W: ±(0.1 % + 6 mW)      300 W: ±(0.1 % + 60 mW)
 
 Dynamic (transient) mode of the CC function, commands of our own under SCPI-1999 names::
 
@@ -24,10 +38,14 @@ EXTernal trigger source.
 
 from __future__ import annotations
 
+import time
+from collections.abc import Callable
+
 from ..scpi import Boolean, Choice, Identity, Numeric, ScpiInstrument
 from ..scpi.errors import ScpiExecutionError
 from ..waveforms import LoadStep, PulseTrain, activity_for
-from .noise import MeterNoise, NoiseSpec
+from .accuracy import InstrumentErrors, QuantityAccuracy, ranged
+from .aperture import APERTURE_RANGE_S, DEFAULT_APERTURE_S, Aperture
 
 
 class SimulatedElectronicLoad(ScpiInstrument):
@@ -38,14 +56,20 @@ class SimulatedElectronicLoad(ScpiInstrument):
     RESISTANCE_RANGE_OHM = (0.02, 10000.0)
     SLEW_RANGE_A_PER_S = (1e2, 2.5e9)
     TRANSIENT_FREQ_RANGE_HZ = (0.1, 50e3)
-    VOLTAGE_NOISE = NoiseSpec(gain_ppm=50.0, offset=2e-4)
-    CURRENT_NOISE = NoiseSpec(gain_ppm=200.0, offset=5e-4)
+    STATIC_SLEW_A_PER_S = 1e3
+    ACCURACY: dict[str, QuantityAccuracy] = {
+        "voltage": ranged("V", (15.0, 0.02, 1.5e-3), (150.0, 0.02, 15e-3)),
+        "current": ranged("A", (3.0, 0.04, 0.3e-3), (30.0, 0.04, 3e-3)),
+        "power": ranged("W", (30.0, 0.1, 6e-3), (300.0, 0.1, 60e-3)),
+    }
 
-    def __init__(self, model, *, serial: str = "L2001", seed: int = 0) -> None:
+    def __init__(self, model, *, serial: str = "L2001", seed: int = 0, aperture_s: float = DEFAULT_APERTURE_S,
+                 sleep: Callable[[float], None] = time.sleep) -> None:
         super().__init__(Identity(maker="benchctl-sim", model="ELD-150-30", serial=serial, firmware="1.0"))
         self.model = model
         self.activity = activity_for(model)
-        self._noise = MeterNoise([seed, 2])
+        self.errors = InstrumentErrors(self.ACCURACY, [seed, 2])
+        self.aperture = Aperture(model.clock, aperture_s, sleep)
         self._reset_state()
         self.add_command("[SOURce:]FUNCtion[:MODE]", setter=self._set_mode, getter=lambda: self.mode,
                          params=[Choice("CURRent", "RESistance")])
@@ -65,6 +89,9 @@ class SimulatedElectronicLoad(ScpiInstrument):
         self.add_command("MEASure[:SCALar]:VOLTage[:DC]", getter=self._measure_voltage)
         self.add_command("MEASure[:SCALar]:CURRent[:DC]", getter=self._measure_current)
         self.add_command("MEASure[:SCALar]:POWer[:DC]", getter=self._measure_power)
+        lo_a, hi_a = APERTURE_RANGE_S
+        self.add_command("[SENSe:]APERture[:TIME]", setter=self.aperture.set, getter=lambda: self.aperture.seconds,
+                         params=[Numeric(unit="S", minimum=lo_a, maximum=hi_a, default=self.aperture.default_s)])
         amps = Numeric(unit="A", minimum=0.0, maximum=self.CURRENT_MAX_A, default=0.0)
         self.add_command("[SOURce:]CURRent:TRANsient[:STATe]", setter=self._set_transient_state,
                          getter=lambda: self.transient_on, params=[Boolean()])
@@ -73,6 +100,9 @@ class SimulatedElectronicLoad(ScpiInstrument):
         self.add_command("[SOURce:]CURRent:TRANsient:BLEVel", setter=self._transient_setter("level_b_a"),
                          getter=lambda: self.level_b_a, params=[amps])
         lo_s, hi_s = self.SLEW_RANGE_A_PER_S
+        self.add_command("[SOURce:]CURRent:SLEW[:BOTH]", setter=self._set_static_slew,
+                         getter=lambda: self.static_slew_a_per_s,
+                         params=[Numeric(minimum=lo_s, maximum=hi_s, default=self.STATIC_SLEW_A_PER_S)])
         self.add_command("[SOURce:]CURRent:TRANsient:SLEW", setter=self._transient_setter("slew_a_per_s"),
                          getter=lambda: self.slew_a_per_s, params=[Numeric(minimum=lo_s, maximum=hi_s, default=hi_s)])
         self.add_command("[SOURce:]CURRent:TRANsient:MODE", setter=self._transient_setter("transient_mode"),
@@ -98,6 +128,7 @@ class SimulatedElectronicLoad(ScpiInstrument):
         self.level_a_a = 0.0
         self.level_b_a = 0.0
         self.slew_a_per_s = self.SLEW_RANGE_A_PER_S[1]
+        self.static_slew_a_per_s = self.STATIC_SLEW_A_PER_S
         self.transient_mode = "SING"
         self.transient_freq_hz = 100.0
         self.trigger_out = True
@@ -107,6 +138,7 @@ class SimulatedElectronicLoad(ScpiInstrument):
 
     def on_reset(self) -> None:
         was_on = self.input_on
+        self.aperture.reset()
         self._reset_state()
         if was_on:
             self.audit_state("input", False)
@@ -122,10 +154,14 @@ class SimulatedElectronicLoad(ScpiInstrument):
         return self.level_b_a if self._at_b else self.level_a_a
 
     def _apply(self) -> None:
+        slew = self.slew_a_per_s if self._dynamic() else self.static_slew_a_per_s
         if self.mode == "CURR":
-            self.model.set_load("CC", self._present_level(), self.input_on)
+            self.model.set_load("CC", self._present_level(), self.input_on, slew_a_per_s=slew)
         else:
-            self.model.set_load("CR", self.resistance_ohm, self.input_on)
+            self.model.set_load("CR", self.resistance_ohm, self.input_on, slew_a_per_s=slew)
+
+    def _set_static_slew(self, value: float) -> None:
+        self.static_slew_a_per_s = float(value)
 
     def _check_protection(self) -> None:
         if not self.input_on:
@@ -216,15 +252,19 @@ class SimulatedElectronicLoad(ScpiInstrument):
         if changed:
             self.audit_state("input", self.input_on)
 
-    def _measure_voltage(self) -> float:
+    def _read(self, quantity: str) -> float:
         self._check_protection()
-        return self._noise.add(self.model.terminals().output_v, self.VOLTAGE_NOISE)
+        interval = self.aperture.integrate()
+        self._check_protection()
+        m = self.model.mean_terminals(interval.t0_s, interval.t1_s)
+        true = {"voltage": m.output_v, "current": m.output_a, "power": m.output_w}[quantity]
+        return self.errors.read(quantity, true)
+
+    def _measure_voltage(self) -> float:
+        return self._read("voltage")
 
     def _measure_current(self) -> float:
-        self._check_protection()
-        return self._noise.add(self.model.terminals().output_a, self.CURRENT_NOISE)
+        return self._read("current")
 
     def _measure_power(self) -> float:
-        self._check_protection()
-        t = self.model.terminals()
-        return self._noise.add(t.output_v * t.output_a, NoiseSpec(gain_ppm=300.0, offset=1e-3))
+        return self._read("power")
