@@ -295,6 +295,10 @@ class Writer:
             row = conn.execute(select(s.runs.c.status, s.runs.c.ended_utc_s).where(s.runs.c.id == run_id)).first()
             if row is None:
                 raise StoreError(f"store {self._where} has no run {run_id}; nothing to resume")
+            if row.status == RUNNING:
+                raise StoreError(f"run {run_id} is still running according to the store; if its process is gone "
+                                 f"(another host, a renamed machine), mark it with `benchctl mark-interrupted {run_id}`"
+                                 " first")
             if row.status not in ("interrupted", "tripped"):
                 raise StoreError(f"run {run_id} is {row.status}; only interrupted or tripped runs can be resumed")
             now = self._clock()
