@@ -4,7 +4,6 @@ plan() (or import) fails is named with its file and line, in one line, without a
 from __future__ import annotations
 
 import sys
-import textwrap
 
 import pytest
 

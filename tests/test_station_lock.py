@@ -9,9 +9,7 @@ from __future__ import annotations
 
 import json
 import logging
-import os
 import signal
-import sqlite3
 import subprocess
 import sys
 import textwrap
