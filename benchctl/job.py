@@ -6,7 +6,8 @@ A job file is TOML (data only; nothing in it is evaluated)::
     name = "nightly FB-48S05 rev B"
     dut_part = "FB-48S05"            # optional defaults for every step
     dut_revision = "B"
-    dut_serial = "0007"
+    dut_serials = ["0007", "0008", "0011"]   # or dut_serial = "0007" for one unit
+    unit_change = "operator"         # how the next unit gets connected (see benchctl.job_units)
 
     [[step]]
     procedure = "efficiency_map"     # bundled name or a path (relative to the job file)
@@ -15,8 +16,10 @@ A job file is TOML (data only; nothing in it is evaluated)::
     [step.parameters]                # optional inline values (override the file's)
     vin_v = [36.0, 48.0, 75.0]
 
-Every step becomes a run with the same ``job_id``; the job's exit code is 0 only when
-every run completed and every limit passed (otherwise the worst step's code).
+Every step becomes a run with the same ``job_id``, for each unit in turn (all steps of the
+first unit, then of the next: one change of unit each); ``benchctl job --dut-serial A,B,C``
+gives the units on the command line instead. The job's exit code is 0 only when every run
+completed and every limit passed (otherwise the worst step's code).
 """
 
 from __future__ import annotations
@@ -29,7 +32,8 @@ from typing import Any, Mapping
 from benchctl.errors import ConfigurationError
 from benchctl.config_file import read_config_text
 
-_JOB_KEYS = {"name", "description", "dut_part", "dut_revision", "dut_serial"}
+_JOB_KEYS = {"name", "description", "dut_part", "dut_revision", "dut_serial", "dut_serials", "unit_change"}
+_TEXT_KEYS = _JOB_KEYS - {"dut_serials"}
 _STEP_KEYS = {"procedure", "params", "limits", "parameters", "name"}
 
 
@@ -55,6 +59,28 @@ class Job:
     dut_revision: str = ""
     dut_serial: str = ""
     path: Path | None = None
+    dut_serials: tuple[str, ...] = ()
+    unit_change: str = ""
+
+    @property
+    def units(self) -> tuple[str, ...]:
+        """The serials the job runs its steps on, in order (one, maybe ``""``, when none is listed)."""
+        return self.dut_serials or (self.dut_serial,)
+
+
+def parse_serials(text: str) -> tuple[str, ...]:
+    """``"A, B,C"`` -> ``("A", "B", "C")``; refuses empty items and repeats (JobFileError)."""
+    items = tuple(s.strip() for s in text.split(","))
+    return _check_serials(items, "--dut-serial")
+
+
+def _check_serials(items: tuple[str, ...], where: str) -> tuple[str, ...]:
+    if not items or any(not s for s in items):
+        raise JobFileError(f"{where}: give serial numbers separated by commas, none empty (got {', '.join(items)!r})")
+    repeated = sorted({s for s in items if items.count(s) > 1})
+    if repeated:
+        raise JobFileError(f"{where}: serial(s) {', '.join(repeated)} given twice; each unit runs once per job")
+    return items
 
 
 def _resolve(base: Path | None, value: str) -> Path:
@@ -79,9 +105,26 @@ def parse_job(text: str, *, path: Path | None = None) -> Job:
         job = {}
     for key in sorted(set(job) - _JOB_KEYS):
         problems.append(f"job.{key}: unknown key; known keys: {', '.join(sorted(_JOB_KEYS))}")
-    for key in _JOB_KEYS:
+    for key in _TEXT_KEYS:
         if key in job and not isinstance(job[key], str):
             problems.append(f"job.{key}: must be text")
+    serials: tuple[str, ...] = ()
+    if "dut_serials" in job:
+        raw = job["dut_serials"]
+        if not isinstance(raw, list) or not raw or not all(isinstance(s, str) and s.strip() for s in raw):
+            problems.append("job.dut_serials: must be a list of serial numbers (text, none empty)")
+        elif "dut_serial" in job:
+            problems.append("job.dut_serials: give either dut_serial (one unit) or dut_serials (several), not both")
+        else:
+            try:
+                serials = _check_serials(tuple(s.strip() for s in raw), "job.dut_serials")
+            except JobFileError as exc:
+                problems.append(str(exc))
+    from benchctl.job_units import UNIT_CHANGES
+
+    change = job.get("unit_change", "")
+    if isinstance(change, str) and change and change not in UNIT_CHANGES:
+        problems.append(f"job.unit_change: {change!r} is not known; choose {' or '.join(sorted(UNIT_CHANGES))}")
     raw_steps = data.get("step", [])
     if not isinstance(raw_steps, list) or not raw_steps:
         problems.append("[[step]]: at least one step with procedure = \"...\" is required")
@@ -124,6 +167,7 @@ def parse_job(text: str, *, path: Path | None = None) -> Job:
         name=str(job.get("name", path.stem if path else "job")), steps=tuple(steps),
         description=str(job.get("description", "")), dut_part=str(job.get("dut_part", "")),
         dut_revision=str(job.get("dut_revision", "")), dut_serial=str(job.get("dut_serial", "")), path=path,
+        dut_serials=serials, unit_change=str(job.get("unit_change", "")),
     )
 
 

@@ -77,8 +77,10 @@ def shutdown_notice(text: str) -> None:
 
 def run_procedure(procedure, params, station, store, *, dut, operator: str | None = None, settle: bool = True,
                   quiet: bool = False, job_id: int | None = None, resume_run_id: int | None = None,
-                  accept_station_change: bool = False):
+                  accept_station_change: bool = False, on_begin=None):
     """Check roles, show the caution when the station is hazardous, then execute with a progress view.
+
+    ``on_begin(run_id)`` is called once the run is stored (a job notes its place in the job there).
 
     Ctrl-C, SIGTERM and SIGHUP stop the run the same safe way; the console says so (:func:`shutdown_notice`).
     """
@@ -92,6 +94,8 @@ def run_procedure(procedure, params, station, store, *, dut, operator: str | Non
                   notify=shutdown_notice)
     if accept_station_change:
         kwargs["accept_station_change"] = True
+    if on_begin is not None:
+        kwargs["on_begin"] = on_begin
     if quiet:
         return execute(procedure, params, station, store, **kwargs)
     with _ProgressView(f"{procedure.name} on {station.name}") as view:

@@ -459,3 +459,43 @@ def check_limits(limits: LimitsFile, data: RunData, *, checked_utc: datetime | N
         limits_name=limits.name, limits_path=str(limits.path or ""), limits_sha256=limits.sha256,
         not_applicable=skipped, checked_utc=checked_utc, summary=summary,
     )
+
+
+# ---------------------------------------------------------------- the values a limit covers
+@dataclass(frozen=True)
+class CoveredValue:
+    """One value a limit covers in a run (its filters hold): ``value`` (NaN when absent,
+    ±inf for a quantity that does not exist and is unbounded), ``scope`` (where it was
+    found: setpoints, ``seq``), ``expanded_uncertainty`` (U, k = 2, None when not stored)
+    and the quality ``flags`` of the result and its point."""
+
+    value: float
+    scope: Mapping[str, Any]
+    expanded_uncertainty: float | None
+    flags: tuple[str, ...]
+    not_exist: bool = False
+
+
+def covered_values(spec: LimitSpec, data: RunData) -> tuple[list[CoveredValue], str, str]:
+    """The values of run ``data`` that limit ``spec`` covers, with their unit and source
+    (``"result"``/``"point"``), chosen exactly as :func:`evaluate_limit` chooses them; an
+    empty list when none (the reason is what :func:`evaluate_limit` says)."""
+    rated_a = data.context.rated_current_a
+    rows, unit = ([], "") if spec.source == SOURCE_POINT else _result_rows(data, spec.quantity)
+    source = SOURCE_RESULT
+    if not rows and spec.source != SOURCE_RESULT:
+        rows, unit = _point_rows(data, spec.quantity)
+        source = SOURCE_POINT
+    if not rows:
+        return [], unit or unit_from_name(spec.quantity), ""
+    all_rows = rows
+    for f in spec.where:
+        extremes = None
+        if f.at is not None:
+            known = [_as_float(_key_value(r, f.key, rated_a)) for r in all_rows]
+            known = [k for k in known if not math.isnan(k)]
+            extremes = (min(known), max(known)) if known else None
+        rows = [r for r in rows if _matches(f, _key_value(r, f.key, rated_a), extremes)]
+    out = [CoveredValue(r.value, dict(r.scope), r.expanded_u if math.isfinite(r.expanded_u) else None, r.flags,
+                        r.not_exist) for r in rows]
+    return out, unit or unit_from_name(spec.quantity), source
