@@ -122,6 +122,53 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--report", metavar="DIR", default=None, help="also write a side-by-side report here")
     p.add_argument("--json", action="store_true")
 
+    p = sub.add_parser("compare-revisions",
+                       help="compare two revisions of a part: the change of each figure's mean over their units")
+    p.add_argument("part", help="DUT part number")
+    p.add_argument("revision_a", help="the reference revision")
+    p.add_argument("revision_b", help="the new revision")
+    _add_db(p)
+    p.add_argument("--tolerance", action="append", default=[], metavar="QUANTITY=DELTA",
+                   help="flag a change beyond DELTA (in the quantity's unit), e.g. --tolerance efficiency=0.003")
+    p.add_argument("--report", metavar="DIR", default=None, help="also write the difference plots and a page here")
+    p.add_argument("--json", action="store_true")
+
+    p = sub.add_parser("stats", help="spread and capability (Cp/Cpk, Pp/Ppk) across a revision's units, per limit "
+                                     "and operating point")
+    p.add_argument("part", help="DUT part number")
+    p.add_argument("revision", help="DUT revision")
+    p.add_argument("--limits", action="append", default=[], metavar="FILE",
+                   help="spec limits file (repeatable): its limits choose the quantities, points and bounds")
+    p.add_argument("--quantity", action="append", default=[], metavar="NAME",
+                   help="also summarise this result name, without bounds (repeatable)")
+    p.add_argument("--per-serial", action="store_true", help="also list each unit's value, z-score and outlier flag")
+    _add_db(p)
+    p.add_argument("--json", action="store_true")
+
+    p = sub.add_parser("revision", help="write a revision's one-page summary (HTML + PNGs) from the latest completed "
+                                        "run of each procedure on each unit")
+    p.add_argument("part", help="DUT part number")
+    p.add_argument("revision", help="DUT revision")
+    p.add_argument("--limits", action="append", default=[], metavar="FILE",
+                   help="spec limits file (repeatable): verdicts and capability; without it the checks stored "
+                        "with the runs are shown")
+    p.add_argument("--against", metavar="REVISION", default=None,
+                   help="add the change from this earlier revision (difference plots with the tolerance band)")
+    p.add_argument("--out", metavar="DIR", default=None,
+                   help="directory for revision.html and its PNGs (default ./benchctl-data/revision-<part>-<rev>/)")
+    _add_db(p)
+
+    p = sub.add_parser("serve", help="the read-only lab web view of a store (stations, runs, live progress, "
+                                     "revision summaries, trends, nightly jobs)")
+    _add_db(p)
+    p.add_argument("--host", default="127.0.0.1",
+                   help="address to bind (default 127.0.0.1; any other needs an access token)")
+    p.add_argument("--port", type=int, default=8470, help="TCP port (default 8470; 0: a free one)")
+    p.add_argument("--token-file", metavar="FILE", default=None,
+                   help="file holding the access token (else $BENCHCTL_WEB_TOKEN); required off loopback")
+    p.add_argument("--limits", action="append", default=[], metavar="FILE",
+                   help="limits files for the revision pages' verdicts and capability (repeatable)")
+
     p = sub.add_parser("demo", help="run the efficiency map on a simulated bench started in-process")
     p.add_argument("--model", default="flyback-48v-5v", help="converter model")
     _add_db(p)

@@ -30,6 +30,10 @@ _MODULES = {
     "export-runs": "benchctl.commands.db",
     "import-runs": "benchctl.commands.db",
     "compare": "benchctl.commands.compare",
+    "compare-revisions": "benchctl.commands.compare",
+    "stats": "benchctl.commands.stats",
+    "revision": "benchctl.commands.revision",
+    "serve": "benchctl.commands.serve",
 }
 
 
