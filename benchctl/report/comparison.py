@@ -15,11 +15,21 @@ from .html import EmbeddedImage, render_html
 from .run_data import load_run_data
 
 
-def build_comparison_report(store: Any, run_a: int, run_b: int, out_dir: str | os.PathLike[str]) -> ReportFiles:
-    """Write run B's report into ``out_dir`` with run A drawn dashed on the efficiency plot."""
+def build_comparison_report(store: Any, run_a: int, run_b: int, out_dir: str | os.PathLike[str], *,
+                            comparison: Any = None) -> ReportFiles:
+    """Write run B's report into ``out_dir`` with run A drawn dashed on the efficiency plot,
+    led by the difference plots of ``comparison`` (a :class:`benchctl.compare.Comparison`
+    of the two runs; made with the default tolerances when not given)."""
+    from benchctl.compare import compare_points
+
+    from .compare_revisions import comparison_images
+
     a = load_run_data(store, run_a)
     b = load_run_data(store, run_b)
-    images: list[EmbeddedImage] = []
+    if comparison is None:
+        comparison = compare_points(a.points, b.points, run_a=run_a, run_b=run_b, results_a=a.results,
+                                    results_b=b.results)
+    images: list[EmbeddedImage] = list(comparison_images(comparison, f"run {run_b} − run {run_a}", "00-change"))
     if {"iout_set_a", "pin_w", "pout_w", "vin_set_v"} <= set(a.points.columns) & set(b.points.columns):
         fig = plots.efficiency_vs_load(b.points, run_id=run_b, other_points=a.points, other_run_id=run_a)
         w, h = fig.get_size_inches()
