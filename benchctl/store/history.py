@@ -186,3 +186,55 @@ def summarize_by_revision(points: pd.DataFrame) -> pd.DataFrame:
     return out.sort_values(["_order", "dut_revision"], kind="stable").reset_index(drop=True).loc[
         :, list(REVISION_SUMMARY_COLUMNS)
     ]
+
+
+JOB_RUN_COLUMNS = (
+    "job_id", "job_name", "job_station", "job_started_utc", "run_id", "procedure", "dut_part", "dut_revision",
+    "dut_serial", "status", "started_utc", "ended_utc", "check_exit_code", "check_summary",
+)
+
+
+def job_runs(conn: Connection, *, limit_jobs: int = 50) -> pd.DataFrame:
+    """The runs of the newest ``limit_jobs`` jobs, each with its job's name, station and start
+    and the outcome of its latest limit check (``check_exit_code``: the ``exit_code`` of the
+    run's last ``limit_check`` event, NaN when it was never checked; ``check_summary`` its
+    text). Newest job first, then run order. Columns: :data:`JOB_RUN_COLUMNS`."""
+    from .codec import from_json
+
+    if limit_jobs < 1:
+        raise StoreError(f"limit_jobs must be a positive number of jobs, got {limit_jobs}")
+    r, j, d, e = s.runs, s.jobs, s.duts, s.events
+    newest = (select(r.c.job_id).where(r.c.job_id.is_not(None)).group_by(r.c.job_id)
+              .order_by(r.c.job_id.desc()).limit(int(limit_jobs))).subquery()
+    rows = conn.execute(
+        select(r.c.job_id, j.c.name.label("job_name"), j.c.station_name, j.c.started_utc_s.label("job_started"),
+               r.c.id.label("run_id"), r.c.procedure, d.c.part_number, d.c.revision, d.c.serial, r.c.status,
+               r.c.started_utc_s, r.c.ended_utc_s)
+        .select_from(r.join(newest, newest.c.job_id == r.c.job_id).outerjoin(j, j.c.id == r.c.job_id)
+                     .outerjoin(d, d.c.id == r.c.dut_id))
+        .order_by(r.c.job_id.desc(), r.c.id)
+    ).all()
+    run_ids = [row.run_id for row in rows]
+    checks: dict[int, tuple[float, str]] = {}
+    if run_ids:
+        for ev in conn.execute(select(e.c.run_id, e.c.message, e.c.details_json)
+                               .where(e.c.run_id.in_(run_ids), e.c.kind == "limit_check").order_by(e.c.id)):
+            details = from_json(ev.details_json)
+            code = details.get("exit_code") if isinstance(details, dict) else None
+            checks[ev.run_id] = (float(code) if isinstance(code, (int, float)) else math.nan, ev.message)
+    return pd.DataFrame({
+        "job_id": pd.Series([row.job_id for row in rows], dtype="int64"),
+        "job_name": pd.Series([row.job_name or "" for row in rows], dtype="object"),
+        "job_station": pd.Series([row.station_name or "" for row in rows], dtype="object"),
+        "job_started_utc": _utc_series([row.job_started for row in rows]),
+        "run_id": pd.Series(run_ids, dtype="int64"),
+        "procedure": pd.Series([row.procedure for row in rows], dtype="object"),
+        "dut_part": pd.Series([row.part_number or "" for row in rows], dtype="object"),
+        "dut_revision": pd.Series([row.revision or "" for row in rows], dtype="object"),
+        "dut_serial": pd.Series([row.serial or "" for row in rows], dtype="object"),
+        "status": pd.Series([row.status for row in rows], dtype="object"),
+        "started_utc": _utc_series([row.started_utc_s for row in rows]),
+        "ended_utc": _utc_series([row.ended_utc_s for row in rows]),
+        "check_exit_code": pd.Series([checks.get(i, (math.nan, ""))[0] for i in run_ids], dtype="float64"),
+        "check_summary": pd.Series([checks.get(i, (math.nan, ""))[1] for i in run_ids], dtype="object"),
+    }).loc[:, list(JOB_RUN_COLUMNS)]

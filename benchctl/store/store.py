@@ -505,6 +505,11 @@ class Store:
             pout_name=pout_name, procedure=procedure, status=status,
         )
 
+    def job_runs(self, *, limit_jobs: int = 50) -> pd.DataFrame:
+        """The runs of the newest jobs with their job's name and each run's latest limit check
+        (see :func:`benchctl.store.history.job_runs`)."""
+        return self._read(history.job_runs, limit_jobs=limit_jobs)
+
     def copy_runs_from(
         self,
         source: Store,
