@@ -49,10 +49,15 @@ def _wait_for(condition, proc: subprocess.Popen, what: str, timeout_s: float = S
     deadline = time.monotonic() + timeout_s
     while not condition():
         if proc.poll() is not None:
-            raise AssertionError(f"the run ended (exit {proc.returncode}) before {what}")
+            raise AssertionError(f"the run ended (exit {proc.returncode}) before {what}: {_stderr(proc)}")
         if time.monotonic() > deadline:
-            raise AssertionError(f"timed out waiting for {what}")
+            raise AssertionError(f"timed out waiting for {what}: {_stderr(proc)}")
         time.sleep(0.005)
+
+
+def _stderr(proc: subprocess.Popen) -> str:
+    path = getattr(proc, "stderr_path", None)
+    return path.read_text()[-2000:] if path is not None and path.exists() else ""
 
 
 def _start_run(bench, tmp_path: Path, sets: list[str]) -> tuple[subprocess.Popen, Path, Path]:
@@ -66,6 +71,7 @@ def _start_run(bench, tmp_path: Path, sets: list[str]) -> tuple[subprocess.Popen
         args += ["--set", s]
     proc = subprocess.Popen(args, stdout=subprocess.DEVNULL, stderr=err.open("w"), cwd=tmp_path,
                             env={**os.environ, "PYTHONUNBUFFERED": "1"})
+    proc.stderr_path = err  # type: ignore[attr-defined]
     return proc, db, err
 
 
