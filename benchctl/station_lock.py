@@ -335,7 +335,7 @@ class _Reentry:
 
 
 def _registry_keys(station: Any, store: Any, lock_path: Path | None) -> tuple[tuple[str, ...], ...]:
-    keys = []
+    keys: list[tuple[str, ...]] = []
     if lock_path is not None:
         keys.append(("file", os.path.realpath(lock_path)))
     if store is not None and getattr(store, "url", None):

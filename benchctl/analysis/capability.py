@@ -38,6 +38,7 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
+from numpy.typing import ArrayLike
 
 #: d2 for subgroups of two: E|X1 − X2| / σ = 2/√π for normal values (closed form).
 D2_TWO = 2.0 / math.sqrt(math.pi)
@@ -112,8 +113,8 @@ def grubbs_critical(n: int, alpha: float = 0.05) -> float:
     return (n - 1) / math.sqrt(n) * math.sqrt(t * t / (n - 2 + t * t))
 
 
-def grubbs_test(values: Sequence[float], alpha: float = 0.05) -> OutlierTest:
-    """Grubbs' test for one outlier among ``values`` (finite numbers)."""
+def grubbs_test(values: ArrayLike, alpha: float = 0.05) -> OutlierTest:
+    """Grubbs' test for one outlier among ``values`` (finite numbers, a sequence or an array)."""
     x = np.asarray(values, dtype=float)
     n = int(x.size)
     if n < 3:

@@ -338,14 +338,15 @@ def _ideal_parts(kind: int, boost: float, fc: float, g: float, r1: float
 
 def _rounded_parts(ideal: CompensatorParts, resistor_series: str, capacitor_series: str) -> CompensatorParts:
     """The ideal parts rounded to the nearest preferred values (IEC 60063); R1 is kept as chosen."""
-    def r(value: float | None) -> float | None:
-        return None if value is None else nearest_preferred(value, resistor_series)
+    def r(value: float) -> float:
+        return nearest_preferred(value, resistor_series)
 
-    def c(value: float | None) -> float | None:
-        return None if value is None else nearest_preferred(value, capacitor_series)
+    def c(value: float) -> float:
+        return nearest_preferred(value, capacitor_series)
 
     return CompensatorParts(kind=ideal.kind, r1_ohm=ideal.r1_ohm, r2_ohm=r(ideal.r2_ohm), c1_f=c(ideal.c1_f),
-                            c2_f=c(ideal.c2_f), r3_ohm=r(ideal.r3_ohm), c3_f=c(ideal.c3_f))
+                            c2_f=c(ideal.c2_f), r3_ohm=None if ideal.r3_ohm is None else r(ideal.r3_ohm),
+                            c3_f=None if ideal.c3_f is None else c(ideal.c3_f))
 
 
 def _rule_of_thumb_warnings(fc: float, fsw_hz: float | None, rhp_zeros_hz: list[float]) -> list[str]:
@@ -394,8 +395,8 @@ def _plant_access(
                 f"{f0:g}..{f1:g} Hz; measure a wider band or choose fc inside it"
             )
 
-        def evaluate(freq: NDArray[np.float64]) -> NDArray[np.complex128]:
-            return interpolate_response(plant.freq_hz, plant.response, freq)
+        def evaluate(freq_hz: NDArray[np.float64]) -> NDArray[np.complex128]:
+            return interpolate_response(plant.freq_hz, plant.response, freq_hz)
 
         decades = math.log10(f1 / f0)
         default_grid = np.logspace(
@@ -407,8 +408,8 @@ def _plant_access(
         default_grid = np.logspace(math.log10(fc) - 3.0, math.log10(fc) + 2.0, 1001)
     elif callable(plant):
 
-        def evaluate(freq: NDArray[np.float64]) -> NDArray[np.complex128]:
-            return np.asarray(plant(freq), dtype=complex)
+        def evaluate(freq_hz: NDArray[np.float64]) -> NDArray[np.complex128]:
+            return np.asarray(plant(freq_hz), dtype=complex)
 
         default_grid = np.logspace(math.log10(fc) - 3.0, math.log10(fc) + 2.0, 1001)
     else:
@@ -468,4 +469,5 @@ def _practical_range(parts: CompensatorParts) -> list[str]:
 
 
 def _parallel(a: NDArray[np.complex128] | float, b: NDArray[np.complex128] | float) -> NDArray[np.complex128]:
-    return a * b / (a + b)
+    """Two impedances in parallel (ohms), as a complex array."""
+    return np.asarray(a * b / (a + b), dtype=complex)

@@ -34,6 +34,7 @@ from __future__ import annotations
 import logging
 import math
 from dataclasses import dataclass, field, replace
+from typing import Any
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
@@ -174,7 +175,7 @@ def fit_plant(
         sol, *_ = np.linalg.lstsq(a_real / scale, r_real, rcond=None)
         sol = sol / scale
         b_new, a_new = sol[: m + 1], sol[m + 1 :]
-        change = np.linalg.norm(sol - np.concatenate([b, a])) / max(np.linalg.norm(sol), 1e-300)
+        change = float(np.linalg.norm(sol - np.concatenate([b, a]))) / max(float(np.linalg.norm(sol)), 1e-300)
         b, a = b_new, a_new
         d_prev = 1.0 + s_den @ a
         if np.any(d_prev == 0.0):
@@ -322,6 +323,6 @@ def _check_weights(weights: ArrayLike | None, size: int) -> NDArray[np.float64]:
     return w
 
 
-def _sorted_roots(r: NDArray[np.complex128]) -> NDArray[np.complex128]:
-    """Roots by ascending magnitude, then imaginary part."""
+def _sorted_roots(r: NDArray[np.floating[Any] | np.complexfloating[Any, Any]]) -> NDArray[np.complex128]:
+    """Roots (real or complex, as ``numpy.roots`` returns them) by ascending magnitude, then imaginary part."""
     return np.array(sorted(r, key=lambda z: (abs(z), z.imag)), dtype=complex)

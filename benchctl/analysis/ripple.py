@@ -153,8 +153,9 @@ def analog_low_pass(v: ArrayLike, dt_s: float, cutoff_hz: float, order: int = 1)
     x = np.asarray(v, dtype=float)
     if x.size < 2:
         return x.copy()
-    a, b, c, d = signal.zpk2ss(*signal.butter(order, 2 * math.pi * cutoff_hz, btype="low", analog=True,
-                                               output="zpk"))
+    # a Butterworth low-pass has real coefficients, so its state-space matrices are real
+    a, b, c, d = (np.real(mat) for mat in signal.zpk2ss(*signal.butter(order, 2 * math.pi * cutoff_hz, btype="low",
+                                                                        analog=True, output="zpk")))
     phi = expm(a * dt_s)
     gammas = _hermite_weights(a * dt_s, b * dt_s)
     idx = np.arange(x.size, dtype=float)

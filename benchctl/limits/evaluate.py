@@ -10,9 +10,10 @@ from datetime import datetime
 from typing import Any
 
 import numpy as np
+import pandas as pd
 
 from benchctl.analysis.quality import LOWER_BOUND, NOT_EXIST, UPPER_BOUND, point_flags, result_flags
-from benchctl.cli import EXIT_FAILED, EXIT_NOT_CHECKED, EXIT_OK
+from benchctl.exit_codes import EXIT_FAILED, EXIT_NOT_CHECKED, EXIT_OK, ExitCode
 from benchctl.units import unit_from_name
 
 from .outcomes import CheckedValue, CheckReport, LimitOutcome, RunData
@@ -65,6 +66,11 @@ def _as_float(value: Any) -> float:
         return math.nan
 
 
+def _records(frame: pd.DataFrame) -> list[dict[str, Any]]:
+    """The frame's rows as dicts keyed by column name (the store's columns are named by text)."""
+    return [{str(k): v for k, v in rec.items()} for rec in frame.to_dict("records")]
+
+
 def _result_rows(data: RunData, quantity: str) -> tuple[list[_Row], str]:
     frame = data.results
     if frame.empty or "name" not in frame.columns:
@@ -75,10 +81,11 @@ def _result_rows(data: RunData, quantity: str) -> tuple[list[_Row], str]:
     units = [u for u in sel["unit"] if isinstance(u, str) and u] if "unit" in sel.columns else []
     by_seq: dict[int, Mapping[str, Any]] = {}
     if not data.points.empty and "seq" in data.points.columns:
-        by_seq = {int(r["seq"]): r for r in data.points.to_dict("records")}
+        by_seq = {int(r["seq"]): r for r in _records(data.points)}
     rows = []
     for _, r in sel.iterrows():
-        scope = r.get("scope") if isinstance(r.get("scope"), Mapping) else {}
+        stored_scope = r.get("scope")
+        scope: Mapping[str, Any] = stored_scope if isinstance(stored_scope, Mapping) else {}
         details = r.get("details")
         lookup: dict[str, Any] = {}
         point = None
@@ -113,7 +120,7 @@ def _point_rows(data: RunData, quantity: str) -> tuple[list[_Row], str]:
     if frame.empty or quantity not in frame.columns:
         return [], ""
     rows = []
-    for rec in frame.to_dict("records"):
+    for rec in _records(frame):
         scope: dict[str, Any] = {}
         if "seq" in rec:
             scope["seq"] = int(rec["seq"])
@@ -418,7 +425,7 @@ def _judge(spec: LimitSpec, row: _Row) -> tuple[str, float, str, float, str]:
     return SUSPECT, m, bname, bvalue, f"flagged {why}"
 
 
-def exit_code_for(outcomes: Sequence[LimitOutcome], run_status: str) -> int:
+def exit_code_for(outcomes: Sequence[LimitOutcome], run_status: str) -> ExitCode:
     """The check's exit code (module docstring, "Exit code of a check")."""
     if not outcomes:
         return EXIT_NOT_CHECKED

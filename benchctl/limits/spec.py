@@ -7,7 +7,7 @@ import math
 import tomllib
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any
+from typing import Any, TypeGuard
 
 from benchctl.config_file import read_config_text
 from benchctl.errors import LimitsFileError
@@ -163,7 +163,8 @@ class LimitsFile:
     sha256: str = ""
 
 
-def _is_number(value: Any) -> bool:
+def _is_number(value: Any) -> TypeGuard[float]:
+    """True for a finite int or float (not a bool): a number a bound or a value may be."""
     return isinstance(value, (int, float)) and not isinstance(value, bool) and math.isfinite(value)
 
 
@@ -290,8 +291,8 @@ def _parse_limit(index: int, item: Any, problems: list[str], names: dict[str, in
         problems.append(f"{key}.decision: {decision!r} must be one of {', '.join(repr(c) for c in DECISIONS)} "
                         "(the value alone, or the value with its expanded uncertainty)")
 
-    if len(problems) > before:
-        return None
+    if len(problems) > before or not isinstance(name, str) or not isinstance(quantity, str):
+        return None  # (a name or quantity that is not text was listed among the problems above)
     return LimitSpec(
         index=index, name=name.strip(), quantity=quantity,
         minimum=None if lo is None else float(lo), maximum=None if hi is None else float(hi),

@@ -94,7 +94,7 @@ def bode_figure(freq_hz: ArrayLike, response: ArrayLike, *, phase_convention: st
         return fig
 
 
-def margin_map_figure(vin_v: Sequence[float], iout_a: Sequence[float], phase_margin_deg: Sequence[float | None],
+def margin_map_figure(vin_v: ArrayLike, iout_a: ArrayLike, phase_margin_deg: Sequence[float | None],
                       *, crossover_hz: Sequence[float | None] | None = None,
                       gain_margin_db: Sequence[float | None] | None = None, pm_limit_deg: float = 45.0,
                       title: str = "Phase margin over line and load", subtitle: str = "") -> Figure:
@@ -120,10 +120,11 @@ def margin_map_figure(vin_v: Sequence[float], iout_a: Sequence[float], phase_mar
                        label=f"PM < {pm_limit_deg:g}°")
         for k in range(x.size):
             parts = [f"PM {pm[k]:.1f}°" if found[k] else "PM n/a"]
-            if fc[k] is not None and np.isfinite(fc[k]):
-                parts.append(f"fc {fc[k]:.3g} Hz")
-            if gm[k] is not None and np.isfinite(gm[k]):
-                parts.append(f"GM {gm[k]:.1f} dB")
+            fc_hz, gm_db = fc[k], gm[k]
+            if fc_hz is not None and np.isfinite(fc_hz):
+                parts.append(f"fc {fc_hz:.3g} Hz")
+            if gm_db is not None and np.isfinite(gm_db):
+                parts.append(f"GM {gm_db:.1f} dB")
             ax.annotate("\n".join(parts), (x[k], y[k]), textcoords="offset points", xytext=(12, -4),
                         fontsize=style.CAPTION_SIZE_PT, color=style.INK)
         cbar = fig.colorbar(sc, ax=ax)

@@ -31,6 +31,7 @@ from typing import Any, TypeVar
 import matplotlib
 import numpy as np
 import pandas as pd
+from matplotlib.artist import Artist
 from matplotlib.axes import Axes
 from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
@@ -161,8 +162,9 @@ def _quality_handles(n_doubtful: int, has_error_bars: bool) -> tuple[list[Line2D
 
 
 def _pass_legend(ax: Axes, extra_handles: list[Line2D], extra_labels: list[str], has_descending: bool, title: str) -> None:
-    handles, labels = ax.get_legend_handles_labels()
-    handles, labels = list(handles) + extra_handles, list(labels) + extra_labels
+    drawn, drawn_labels = ax.get_legend_handles_labels()
+    handles: list[Artist] = [*drawn, *extra_handles]
+    labels: list[str] = [*drawn_labels, *extra_labels]
     if has_descending:
         handles += [
             Line2D([], [], color=style.MUTED_INK, linewidth=style.LINE_WIDTH_PT, markersize=style.MARKER_SIZE_PT,
@@ -198,7 +200,7 @@ def _draw_by_line(
             if not sel.any():
                 continue
             order = np.argsort(x[sel].to_numpy(float), kind="stable")
-            kwargs = dict(pass_style)
+            kwargs = pass_style.copy()
             if linestyle is not None:
                 kwargs["linestyle"] = linestyle
             label = f"{label_prefix}{_volts(float(vin))}" if tag == ASCENDING else "_nolegend_"
@@ -299,14 +301,14 @@ def efficiency_vs_load(
     """
     fig, (ax,) = style.new_figure()
     comparing = other_points is not None
-    vins = line_voltages_v(points) + (line_voltages_v(other_points) if comparing else [])
+    vins = line_voltages_v(points) + (line_voltages_v(other_points) if other_points is not None else [])
     colours = _colours_for(vins)
     kept, eta = _efficiency_pct(points)
     prefix = f"run {run_id} · " if comparing and run_id is not None else ("this run · " if comparing else "")
     u = point_uncertainty(results, "efficiency", kept, 100.0)
     has_desc = _draw_by_line(ax, kept, _load_x(kept), eta, colours, label_prefix=prefix, yerr=u)
     n_bad = _mark_doubtful(ax, kept, _load_x(kept), eta, colours)
-    if comparing:
+    if other_points is not None:
         o_kept, o_eta = _efficiency_pct(other_points)
         o_prefix = f"run {other_run_id} · " if other_run_id is not None else "other run · "
         has_desc |= _draw_by_line(ax, o_kept, _load_x(o_kept), o_eta, colours, label_prefix=o_prefix,
@@ -412,7 +414,7 @@ def vout_vs_line(
             if not sel.any():
                 continue
             order = np.argsort(x[sel].to_numpy(float), kind="stable")
-            kwargs = {**pass_style, "marker": LOAD_MARKERS[k % len(LOAD_MARKERS)]}
+            kwargs: style.PassStyle = {**pass_style, "marker": LOAD_MARKERS[k % len(LOAD_MARKERS)]}
             ax.plot(x[sel].to_numpy(float)[order], y[sel].to_numpy(float)[order], color=colour,
                     linewidth=style.LINE_WIDTH_PT if tag == ASCENDING else 1.2, markersize=style.MARKER_SIZE_PT,
                     markeredgewidth=1.2, label=_amps(iout) if tag == ASCENDING else "_nolegend_", **kwargs)

@@ -70,8 +70,8 @@ def result_lines(results: pd.DataFrame) -> list[ResultLine]:
     per_point_u: dict[str, list[float]] = {}
     per_point_flags: dict[str, int] = {}
     per_point_unit: dict[str, str] = {}
-    order: list[tuple[str, int]] = []  # ("series", name) or ("row", index)
-    for idx, row in results.iterrows():
+    order: list[tuple[str, int]] = []  # (name, -1): a per-point series; (name, row position): one result
+    for pos, (_, row) in enumerate(results.iterrows()):
         name = str(row["name"])
         if name.startswith(LIMIT_PREFIX):
             continue
@@ -88,7 +88,7 @@ def result_lines(results: pd.DataFrame) -> list[ResultLine]:
             details = row.get("details")
             per_point_flags[name] += bool(isinstance(details, Mapping) and details.get("flags"))
         else:
-            order.append((name, int(idx)))
+            order.append((name, pos))
     for name, idx in order:
         if idx < 0:
             values = np.asarray(per_point[name], dtype=float)
@@ -106,7 +106,7 @@ def result_lines(results: pd.DataFrame) -> list[ResultLine]:
             lines.append(ResultLine(name, text, per_point_unit[name], f"per point ({values.size} points): min … max",
                                     "; ".join(notes), ("flagged",) if per_point_flags[name] else ()))
             continue
-        row = results.loc[idx]
+        row = results.iloc[idx]
         value = row["value"]
         text = format_value(None if pd.isna(value) else float(value))
         u = _u(row)

@@ -12,10 +12,14 @@ ink for text, a pale dotted grid, no top or right spine.
 
 from __future__ import annotations
 
-from typing import Final
+from typing import TYPE_CHECKING, Final, TypedDict
 
+from matplotlib.artist import Artist
 from matplotlib.axes import Axes
 from matplotlib.figure import Figure
+
+if TYPE_CHECKING:
+    from matplotlib.typing import FillStyleType, LineStyleType, MarkerType, RcKeyType
 
 FIG_WIDTH_IN: Final = 8.0
 FIG_HEIGHT_IN: Final = 5.0
@@ -49,21 +53,38 @@ CAPTION_SIZE_PT: Final = 8.5
 LINE_WIDTH_PT: Final = 1.8
 MARKER_SIZE_PT: Final = 5.5
 
+
+
+class PassStyle(TypedDict, total=False):
+    """Keyword arguments of ``Axes.plot`` and ``Line2D`` that tell one load pass from the other."""
+
+    linestyle: LineStyleType
+    marker: MarkerType
+    fillstyle: FillStyleType
+
+
+class RingStyle(PassStyle, total=False):
+    """A :class:`PassStyle` with its own marker size and edge width (pt)."""
+
+    markersize: float
+    markeredgewidth: float
+
+
 # Ascending-pass points are filled; descending-pass points are hollow on a dotted line.
-ASCENDING_STYLE: Final = {"linestyle": "-", "marker": "o", "fillstyle": "full"}
-DESCENDING_STYLE: Final = {"linestyle": ":", "marker": "D", "fillstyle": "none"}
+ASCENDING_STYLE: Final[PassStyle] = {"linestyle": "-", "marker": "o", "fillstyle": "full"}
+DESCENDING_STYLE: Final[PassStyle] = {"linestyle": ":", "marker": "D", "fillstyle": "none"}
 COMPARE_LINESTYLE: Final = (0, (5, 3))  # second run of a comparison: dashed
 
 # Points that did not settle or whose setpoints were not verified: the data marker is drawn
 # hollow and ringed in a dark amber (6:1 against white, WCAG 2.1 1.4.11), never the limit ink.
 DOUBTFUL_INK: Final = "#8a5a00"
-DOUBTFUL_RING: Final = {"linestyle": "none", "marker": "o", "fillstyle": "none", "markersize": 12.0,
+DOUBTFUL_RING: Final[RingStyle] = {"linestyle": "none", "marker": "o", "fillstyle": "none", "markersize": 12.0,
                         "markeredgewidth": 1.5}
 # Error bars: the expanded uncertainty U (k = 2) of the plotted figure.
 ERRORBAR_WIDTH_PT: Final = 1.0
 ERRORBAR_CAPSIZE_PT: Final = 2.5
 
-_RC: Final = {
+_RC: Final[dict[RcKeyType, str | float]] = {
     "font.family": FONT_FAMILY,
     "font.size": LABEL_SIZE_PT,
     "text.color": INK,
@@ -104,8 +125,8 @@ def style_axes(ax: Axes) -> None:
     ax.grid(True, which="major", color=GRID, linestyle=(0, (1, 2)), linewidth=0.9)
     ax.set_axisbelow(True)
     ax.tick_params(labelsize=TICK_SIZE_PT, colors=INK, length=3.5, width=0.8)
-    ax.xaxis.label.set_size(LABEL_SIZE_PT)
-    ax.yaxis.label.set_size(LABEL_SIZE_PT)
+    ax.xaxis.label.set_fontsize(LABEL_SIZE_PT)
+    ax.yaxis.label.set_fontsize(LABEL_SIZE_PT)
     ax.xaxis.label.set_color(INK)
     ax.yaxis.label.set_color(INK)
 
@@ -117,7 +138,7 @@ def set_title(ax: Axes, title: str, subtitle: str = "") -> None:
         ax.set_title(subtitle, loc="right", fontsize=CAPTION_SIZE_PT, color=MUTED_INK, pad=10)
 
 
-def legend_outside(ax: Axes, title: str = "", handles: list | None = None, labels: list[str] | None = None) -> None:
+def legend_outside(ax: Axes, title: str = "", handles: list[Artist] | None = None, labels: list[str] | None = None) -> None:
     """A legend to the right of the data area, so it never hides a curve."""
     kwargs = {} if handles is None else {"handles": handles, "labels": labels}
     leg = ax.legend(
@@ -135,6 +156,6 @@ def legend_outside(ax: Axes, title: str = "", handles: list | None = None, label
         leg.get_title().set_color(MUTED_INK)
 
 
-def matplotlib_rc() -> dict[str, object]:
+def matplotlib_rc() -> dict[RcKeyType, str | float]:
     """rc settings to wrap figure creation in (``with matplotlib.rc_context(matplotlib_rc())``)."""
     return dict(_RC)

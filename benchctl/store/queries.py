@@ -7,13 +7,14 @@ fields). Values stored as NULL (NaN or ``None`` when written) come back as NaN.
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from datetime import datetime, timezone
-from typing import Any
+from typing import Any, Unpack
 
 import numpy as np
 import pandas as pd
 from sqlalchemy import func, select
-from sqlalchemy.engine import Connection
+from sqlalchemy.engine import Connection, Row
 
 from benchctl.errors import StoreError
 
@@ -23,10 +24,17 @@ from .records import RUN_STATUSES, ArrayData, InstrumentInfo, RunInfo
 
 POINT_COLUMNS = ("seq", "t_utc", "tag", "settled", "settle_time_s", "settle_info", "settle_reason")
 
+_Rows = Sequence[Row[Unpack[tuple[Any, ...]]]]  # result rows of any width
+
+
+def utc_time(t_utc_s: float) -> datetime:
+    """UTC seconds since the epoch -> aware datetime."""
+    return datetime.fromtimestamp(t_utc_s, tz=timezone.utc)
+
 
 def utc_datetime(t_utc_s: float | None) -> datetime | None:
     """UTC seconds since the epoch -> aware datetime (``None`` stays ``None``)."""
-    return None if t_utc_s is None else datetime.fromtimestamp(t_utc_s, tz=timezone.utc)
+    return None if t_utc_s is None else utc_time(t_utc_s)
 
 
 def _utc_series(values: list[float | None]) -> pd.Series:
@@ -111,7 +119,7 @@ def run_info(conn: Connection, run_id: int) -> RunInfo:
         job_id=None if row.job_id is None else int(row.job_id),
         status=row.status,
         message=row.message,
-        started_utc=utc_datetime(row.started_utc_s),
+        started_utc=utc_time(row.started_utc_s),  # NOT NULL in the schema
         ended_utc=utc_datetime(row.ended_utc_s),
         n_points=int(n_points or 0),
     )
@@ -226,7 +234,7 @@ def quantity_units(conn: Connection, run_id: int) -> dict[str, str]:
     }
 
 
-def _point_rows(conn: Connection, run_id: int) -> list[Any]:
+def _point_rows(conn: Connection, run_id: int) -> _Rows:
     p = s.points
     return conn.execute(
         select(p.c.seq, p.c.t_utc_s, p.c.tag, p.c.settled, p.c.settle_time_s, p.c.settle_json)
@@ -235,7 +243,7 @@ def _point_rows(conn: Connection, run_id: int) -> list[Any]:
     ).all()
 
 
-def _point_frame(rows: list[Any]) -> dict[str, pd.Series]:
+def _point_frame(rows: _Rows) -> dict[str, pd.Series]:
     infos = [_settle_info(r.settle_json) for r in rows]
     return {
         "seq": pd.Series([r.seq for r in rows], dtype="int64"),

@@ -42,6 +42,7 @@ from benchctl.errors import StoreError
 
 from . import schema as s
 from .codec import from_json, to_json
+from .inserted import inserted_id
 from .records import RUNNING
 from .url import mask_secrets
 
@@ -175,7 +176,7 @@ def _target_job_id(conn: Connection, job: dict[str, Any]) -> int:
     if found is not None:
         return int(found)
     values = {k: job[k] for k in ("job_uuid", "name", "station_name", "host", "started_utc_s")}
-    return int(conn.execute(insert(t).values(**values)).inserted_primary_key[0])
+    return inserted_id(conn.execute(insert(t).values(**values)), "jobs")
 
 
 def _masked_json(text: str | None) -> str | None:
@@ -227,7 +228,7 @@ def _station_id(conn: Connection, station: dict[str, Any]) -> int:
     values = {k: station[k] for k in ("name", "description", "station_text", "station_sha256")}
     if values["station_text"] is not None:
         values["station_text"] = mask_secrets(values["station_text"])
-    return int(conn.execute(insert(t).values(**values)).inserted_primary_key[0])
+    return inserted_id(conn.execute(insert(t).values(**values)), "stations")
 
 
 def _dut_id(conn: Connection, dut: dict[str, Any]) -> int:
@@ -240,7 +241,7 @@ def _dut_id(conn: Connection, dut: dict[str, Any]) -> int:
     if row is not None:
         return int(row.id)
     values = {k: dut[k] for k in ("part_number", "revision", "serial")}
-    return int(conn.execute(insert(t).values(**values)).inserted_primary_key[0])
+    return inserted_id(conn.execute(insert(t).values(**values)), "duts")
 
 
 def write_run_rows(conn: Connection, rows: _RunRows, *, note: dict[str, Any], now_utc_s: float) -> int:
@@ -250,7 +251,7 @@ def write_run_rows(conn: Connection, rows: _RunRows, *, note: dict[str, Any], no
     run_values = {k: v for k, v in rows.run.items() if k != "id"}
     run_values.update(station_id=station_id, dut_id=dut_id,
                       job_id=_target_job_id(conn, rows.job) if rows.job is not None else None)
-    run_id = int(conn.execute(insert(s.runs).values(**run_values)).inserted_primary_key[0])
+    run_id = inserted_id(conn.execute(insert(s.runs).values(**run_values)), "runs")
     if rows.instruments:
         conn.execute(
             insert(s.instruments),
@@ -259,10 +260,10 @@ def write_run_rows(conn: Connection, rows: _RunRows, *, note: dict[str, Any], no
         )
     quantity_ids: dict[int, int] = {}
     for q in rows.quantities:
-        new = conn.execute(
+        new = inserted_id(conn.execute(
             insert(s.quantities).values(run_id=run_id, name=q["name"], unit=q["unit"])
-        ).inserted_primary_key[0]
-        quantity_ids[int(q["id"])] = int(new)
+        ), "quantities")
+        quantity_ids[int(q["id"])] = new
     if rows.points:
         conn.execute(insert(s.points), [{**p, "run_id": run_id} for p in rows.points])
     if rows.values:
@@ -291,8 +292,8 @@ def write_run_rows(conn: Connection, rows: _RunRows, *, note: dict[str, Any], no
     for arr in rows.arrays:
         values = {k: v for k, v in arr.items() if k != "id"}
         values["run_id"] = run_id
-        new = conn.execute(insert(s.arrays).values(**values)).inserted_primary_key[0]
-        array_ids[int(arr["id"])] = int(new)
+        new = inserted_id(conn.execute(insert(s.arrays).values(**values)), "arrays")
+        array_ids[int(arr["id"])] = new
     if rows.array_columns:
         conn.execute(
             insert(s.array_columns),

@@ -35,6 +35,7 @@ from benchctl.errors import StoreError, StoreFullError
 from . import schema as s
 from .engine import WRITE_OPTIONS
 from .codec import encode_column, to_float_or_none, to_json
+from .inserted import inserted_id
 from .url import mask_secrets
 from benchctl.units import unit_from_name  # noqa: F401  (re-exported: documented here before)
 
@@ -209,7 +210,7 @@ class Writer:
                 with self._transaction(f"beginning a run of {start.procedure!r}") as conn:
                     station_id = _station_id(conn, start, station_sha)
                     dut_id = _dut_id(conn, start) if start.dut_part else None
-                    run_id = conn.execute(
+                    run_id = inserted_id(conn.execute(
                         insert(s.runs).values(
                             run_uuid=str(uuid.uuid4()),
                             procedure=start.procedure,
@@ -226,7 +227,7 @@ class Writer:
                             message="",
                             started_utc_s=now,
                         )
-                    ).inserted_primary_key[0]
+                    ), "runs")
                     if start.instruments:
                         conn.execute(
                             insert(s.instruments),
@@ -256,11 +257,11 @@ class Writer:
     def begin_job(self, name: str, station_name: str, host: str) -> int:
         """Store a new job and return its id, assigned by the database (unique across stations)."""
         with self._transaction(f"beginning job {name!r}") as conn:
-            job_id = conn.execute(
+            job_id = inserted_id(conn.execute(
                 insert(s.jobs).values(job_uuid=str(uuid.uuid4()), name=name, station_name=station_name, host=host,
                                       started_utc_s=self._clock())
-            ).inserted_primary_key[0]
-        return int(job_id)
+            ), "jobs")
+        return job_id
 
     def end_run(self, run_id: int, status: str, message: str = "") -> None:
         """Give a running run its final status and end time."""
@@ -436,10 +437,10 @@ class Writer:
                 given = units.get(name)
                 if known is None:
                     unit = given if given is not None else unit_from_name(name)
-                    qid = conn.execute(
+                    qid = inserted_id(conn.execute(
                         self._insert_quantity, {"run_id": run_id, "name": name, "unit": unit}
-                    ).inserted_primary_key[0]
-                    known = (int(qid), unit)
+                    ), "quantities")
+                    known = (qid, unit)
                     new_quantities[name] = known
                 elif given is not None and given != known[1]:
                     raise StoreError(
@@ -469,13 +470,13 @@ class Writer:
         t = self._clock() if t_utc_s is None else float(t_utc_s)
         with self._transaction(f"recording event {kind!r} of run {run_id}", run_id) as conn:
             self._require_run(conn, run_id)
-            event_id = conn.execute(
+            event_id = inserted_id(conn.execute(
                 insert(s.events).values(
                     run_id=run_id, t_utc_s=t, kind=kind, message=message,
                     details_json=details_json, point_seq=point_seq,
                 )
-            ).inserted_primary_key[0]
-        return int(event_id)
+            ), "events")
+        return event_id
 
     def record_result(
         self,
@@ -495,13 +496,13 @@ class Writer:
         scope_json = to_json(f"scope of result {name!r}", dict(scope or {}))
         with self._transaction(f"recording result {name!r} of run {run_id}", run_id) as conn:
             self._require_run(conn, run_id)
-            result_id = conn.execute(
+            result_id = inserted_id(conn.execute(
                 insert(s.results).values(
                     run_id=run_id, t_utc_s=self._clock(), name=name, value=number, unit=unit,
                     details_json=details_json, scope_json=scope_json,
                 )
-            ).inserted_primary_key[0]
-        return int(result_id)
+            ), "results")
+        return result_id
 
     def record_results(self, run_id: int, results: Iterable[Mapping[str, Any]]) -> int:
         """Store many derived results in one transaction (one commit); returns how many.
@@ -591,11 +592,11 @@ class Writer:
                 raise StoreError(
                     f"run {run_id} already holds an array {name!r} for {where}; choose another name"
                 )
-            array_id = conn.execute(
+            array_id = inserted_id(conn.execute(
                 insert(s.arrays).values(
                     run_id=run_id, point_seq=point_seq, name=name, t_utc_s=self._clock(), meta_json=meta_json
                 )
-            ).inserted_primary_key[0]
+            ), "arrays")
             conn.execute(insert(s.array_columns), [dict(row, array_id=array_id) for row in encoded])
         return int(array_id)
 
@@ -717,7 +718,7 @@ def _station_id(conn: Connection, start: RunStart, sha: str) -> int:
     if row is not None:
         return int(row.id)
     return int(
-        conn.execute(
+        inserted_id(conn.execute(
             insert(t).values(
                 name=start.station_name,
                 description=start.station_description,
@@ -725,7 +726,7 @@ def _station_id(conn: Connection, start: RunStart, sha: str) -> int:
                 station_text=None if start.station_text is None else mask_secrets(start.station_text),
                 station_sha256=sha,
             )
-        ).inserted_primary_key[0]
+        ), "stations")
     )
 
 
@@ -739,9 +740,9 @@ def _dut_id(conn: Connection, start: RunStart) -> int:
     if row is not None:
         return int(row.id)
     return int(
-        conn.execute(
+        inserted_id(conn.execute(
             insert(t).values(part_number=start.dut_part, revision=start.dut_revision, serial=start.dut_serial)
-        ).inserted_primary_key[0]
+        ), "duts")
     )
 
 

@@ -11,11 +11,12 @@ from __future__ import annotations
 
 from alembic import context
 from sqlalchemy import engine_from_config, pool
+from sqlalchemy.engine import Connection
 
 config = context.config
 
 
-def _run(connection) -> None:  # type: ignore[no-untyped-def]
+def _run(connection: Connection) -> None:
     context.configure(
         connection=connection,
         target_metadata=None,
