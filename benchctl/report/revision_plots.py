@@ -145,4 +145,30 @@ def first_bound(limits: Sequence[object], quantity: str) -> float | None:
     return max(mins) if mins else None
 
 
-__all__ = ["efficiency_by_unit", "first_bound", "margins_by_unit", "spread_chart"]
+__all__ = ["efficiency_by_unit", "first_bound", "margins_by_unit", "spread_chart", "trend_figure"]
+
+
+def trend_figure(frame: pd.DataFrame, quantity: str, point: str) -> Figure:
+    """``quantity`` at operating point ``point`` across revisions (x, in order of first run)
+    and serials (a marker each), with each revision's mean joined by a line."""
+    sel = frame[frame["point"] == point] if point else frame
+    revisions = list(dict.fromkeys(sel["revision"]))
+    serials = list(dict.fromkeys(sel["serial"]))
+    with matplotlib.rc_context(style.matplotlib_rc()):
+        fig, (ax,) = style.new_figure()
+        x_of = {r: k for k, r in enumerate(revisions)}
+        width = 0.5 / max(1, len(serials))
+        for k, serial in enumerate(serials):
+            s = sel[sel["serial"] == serial]
+            xs = [x_of[r] + (k - (len(serials) - 1) / 2) * width for r in s["revision"]]
+            ax.plot(xs, s["value"], linestyle="none", marker=_marker(k), markersize=6, color=style.line_colour(k),
+                    label=serial or "(no serial)")
+        means = [sel.loc[sel["revision"] == r, "value"].mean() for r in revisions]
+        ax.plot(range(len(revisions)), means, color=style.MUTED_INK, linewidth=1.4, marker="_", markersize=18,
+                label="mean of the units")
+        ax.ticklabel_format(axis="y", useOffset=False)
+        ax.set_xticks(range(len(revisions)), [f"rev {r}" if r else "(no revision)" for r in revisions])
+        ax.set_ylabel(quantity)
+        style.set_title(ax, f"{quantity} across revisions", point or "every point")
+        style.legend_outside(ax, "unit")
+    return fig
