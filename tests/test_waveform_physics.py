@@ -58,7 +58,7 @@ def test_load_step_response_follows_closed_loop_zout():
     di = np.clip((t - 1e-4) / (2.5 / slew), 0.0, 1.0) * 2.5
     _, dv, _ = signal.lsim((z.num, z.den), di, t)
     assert np.max(np.abs((op_lo.vout_v - v) - dv)) < 1e-3 * np.max(np.abs(dv))
-    assert np.max(dv) > 0.1  # a real dip: about 0.15 V for this step
+    assert np.max(dv) > 0.08  # a real dip: about 0.1 V for this step (the flyback's K-factor type-3 loop)
 
 
 @pytest.mark.parametrize("extra_c_f", [0.0, 220e-12])

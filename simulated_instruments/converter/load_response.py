@@ -26,7 +26,7 @@ from numpy.typing import ArrayLike, NDArray
 from .small_signal import RationalTF
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class ImpedanceExcess:
     """The decaying part of an impedance's step and ramp responses (see module docstring).
 
@@ -76,7 +76,7 @@ class ImpedanceExcess:
         return np.where(t > 0.0, y, 0.0)
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class LoadRamp:
     """A linear change of load current at ``slope_a_per_s`` from ``t_start_s`` to ``t_end_s`` (model s)."""
 
