@@ -82,14 +82,14 @@ class _Progress:
     """The planned totals of runs (they do not change while a run runs)."""
 
     def __init__(self) -> None:
-        self._totals: dict[int, int | None] = {}
+        self._totals: dict[str, int | None] = {}  # by run_uuid: the same in every store
         self._lock = threading.Lock()
 
     def total(self, info: Any) -> int | None:
         with self._lock:
-            if info.run_id not in self._totals:
-                self._totals[info.run_id] = planned_total(info)
-            return self._totals[info.run_id]
+            if info.run_uuid not in self._totals:
+                self._totals[info.run_uuid] = planned_total(info)
+            return self._totals[info.run_uuid]
 
 
 PROGRESS = _Progress()
@@ -116,7 +116,7 @@ class PlotCache:
     """PNG figures of runs from the report's registry, kept per (run, status, points)."""
 
     def __init__(self, size: int = 16) -> None:
-        self._items: "OrderedDict[tuple[int, str, int], tuple[list[Any], list[str]]]" = OrderedDict()
+        self._items: "OrderedDict[tuple[str, str, int], tuple[list[Any], list[str]]]" = OrderedDict()
         self._size = size
         self._lock = RENDER_LOCK
 
@@ -125,7 +125,7 @@ class PlotCache:
         from benchctl.report.run_data import load_run_data
 
         info = store.run(run_id)
-        key = (run_id, info.status, info.n_points)
+        key = (info.run_uuid, info.status, info.n_points)
         with self._lock:  # matplotlib's rc settings are process-wide
             if key in self._items:
                 self._items.move_to_end(key)
