@@ -31,6 +31,15 @@ class MissingEvidence:
 
 
 @dataclass(frozen=True)
+class LatestRun:
+    """One row of :attr:`RevisionRuns.latest`: the run that stands for a unit and a procedure."""
+
+    serial: str
+    procedure: str
+    run_id: int
+
+
+@dataclass(frozen=True)
 class RevisionRuns:
     """The runs of one part and revision.
 
@@ -48,6 +57,11 @@ class RevisionRuns:
     serials: tuple[str, ...]
     procedures: tuple[str, ...]
     missing: tuple[MissingEvidence, ...]
+
+    def latest_runs(self) -> tuple[LatestRun, ...]:
+        """The rows of ``latest`` (serial, procedure, run id), in its order."""
+        return tuple(LatestRun(str(serial), str(procedure), int(run_id)) for serial, procedure, run_id
+                     in zip(self.latest["serial"], self.latest["procedure"], self.latest["run_id"]))
 
     def run_of(self, serial: str, procedure: str) -> int | None:
         """The run that stands for ``serial`` and ``procedure``, None when there is none."""

@@ -149,7 +149,7 @@ def _statistics_section(ev: RevisionEvidence) -> str:
     # the tightest point of each limit first (smallest Ppk), the rest on request
     tight = []
     for _limit, grp in t[t["limit"] != ""].groupby("limit", sort=False):
-        tight.append(grp.loc[grp["ppk"].fillna(math.inf).idxmin()])
+        tight.append(grp.iloc[int(grp["ppk"].fillna(math.inf).to_numpy().argmin())])  # the first smallest Ppk
 
     def rows_of(frame_rows: Sequence[Any]) -> list[list[str]]:
         out = []
@@ -169,9 +169,10 @@ def _statistics_section(ev: RevisionEvidence) -> str:
     notes: list[str] = []
     normality = sorted({n for n in t["normality_note"] if n})
     per = ev.per_serial
-    per_rows = [[esc(r.limit), esc(r.point), esc(r.serial), esc(_num(r.value, 6)), esc(_num(r.expanded_uncertainty, 2)),
-                 esc(_num(r.z, 3)), '<b class="bad">outlier</b>' if r.outlier else "", esc(", ".join(r.flags))]
-                for r in per.itertuples(index=False)]
+    per_rows = [[esc(r["limit"]), esc(r["point"]), esc(r["serial"]), esc(_num(r["value"], 6)),
+                 esc(_num(r["expanded_uncertainty"], 2)), esc(_num(r["z"], 3)),
+                 '<b class="bad">outlier</b>' if r["outlier"] else "", esc(", ".join(r["flags"]))]
+                for r in per.to_dict("records")]
     return "".join([
         "<h2>Spread across units</h2>",
         '<p class="note">Per limit, the operating point with the smallest Ppk. Cp/Cpk use the within-unit-to-unit '
@@ -253,7 +254,7 @@ def _instrument_section(ev: RevisionEvidence) -> str:
 
 def _provenance_section(ev: RevisionEvidence, store_url: str) -> str:
     rows = []
-    for item in ev.runs.latest.itertuples(index=False):
+    for item in ev.runs.latest_runs():
         info = ev.infos[item.run_id]
         dur = "—" if info.ended_utc is None else f"{(info.ended_utc - info.started_utc).total_seconds():.0f} s"
         rows.append([esc(item.serial), esc(item.procedure), esc(item.run_id), esc(info.status),
@@ -322,7 +323,7 @@ def revision_images(ev: RevisionEvidence) -> list[EmbeddedImage]:
     """The summary's figures (efficiency of every unit, spread at the tightest points, loop margins)."""
     images = []
     label = f"{ev.part} rev {ev.revision}"
-    emap = {item.serial: ev.points[item.run_id] for item in ev.runs.latest.itertuples(index=False)
+    emap = {item.serial: ev.points[item.run_id] for item in ev.runs.latest_runs()
             if item.procedure == "efficiency_map"}
     if emap:
         images.append(_embed(efficiency_by_unit(emap, title=label), "01-efficiency-by-unit.png",
@@ -334,7 +335,7 @@ def revision_images(ev: RevisionEvidence) -> list[EmbeddedImage]:
         images.append(_embed(spread, "02-spread.png", "Spread across units",
                              "Each limit at its tightest operating point: every unit's value (marker; an outlier in "
                              "the limit colour), the limit's bounds (lines), the mean ± 3 s (band)."))
-    loop = {item.serial: ev.results[item.run_id] for item in ev.runs.latest.itertuples(index=False)
+    loop = {item.serial: ev.results[item.run_id] for item in ev.runs.latest_runs()
             if item.procedure == "loop_gain"}
     if loop:
         fig = margins_by_unit(loop, phase_min_deg=first_bound(ev.limits, "phase_margin_deg"),

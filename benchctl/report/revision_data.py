@@ -133,20 +133,21 @@ class RevisionEvidence:
         none), flags per serial in ``<serial> flags``."""
         rows: dict[str, dict[str, Any]] = {}
         order: list[str] = []
-        for item in self.runs.latest.itertuples(index=False):
+        for item in self.runs.latest_runs():
             res = self.results.get(item.run_id)
             if res is None or res.empty:
                 continue
             sel = res[res["name"] == name]
-            for r in sel.itertuples(index=False):
-                scope = r.scope if isinstance(r.scope, dict) else {}
+            for stored_scope, stored_details, value, expanded_u in zip(sel["scope"], sel["details"], sel["value"],
+                                                                       sel["expanded_uncertainty"]):
+                scope: dict[str, Any] = stored_scope if isinstance(stored_scope, dict) else {}
                 point = point_text(scope)
                 if point not in rows:
                     rows[point] = {"point": point, "_scope": {k: v for k, v in scope.items() if k != "seq"}}
                     order.append(point)
-                details = r.details if isinstance(r.details, dict) else {}
-                rows[point][item.serial] = float(r.value)
-                rows[point][f"{item.serial} U"] = float(r.expanded_uncertainty)
+                details: dict[str, Any] = stored_details if isinstance(stored_details, dict) else {}
+                rows[point][item.serial] = float(value)
+                rows[point][f"{item.serial} U"] = float(expanded_u)
                 rows[point][f"{item.serial} flags"] = tuple(details.get("flags") or ())
         if not rows:
             return pd.DataFrame()
@@ -191,9 +192,11 @@ def revision_evidence(store: Any, part: str, revision: str, *,
     files = tuple(x if isinstance(x, LimitsFile) else load_limits(x) for x in limits)
     expected = [p for lf in files for spec in lf.limits for p in spec.procedures]
     runs = revision_runs(store, part, revision, expected=expected)
-    infos, results, points = {}, {}, {}
+    infos: dict[int, Any] = {}
+    results: dict[int, pd.DataFrame] = {}
+    points: dict[int, pd.DataFrame] = {}
     verdicts: list[UnitVerdict] = []
-    for item in runs.latest.itertuples(index=False):
+    for item in runs.latest_runs():
         data = limit_run_data(store, item.run_id)
         infos[item.run_id] = store.run(item.run_id)
         results[item.run_id] = data.results

@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Mapping, Sequence
+from typing import TYPE_CHECKING, Any
 
 import matplotlib
 import numpy as np
@@ -20,6 +21,9 @@ import pandas as pd
 from matplotlib.figure import Figure
 
 from . import style
+
+if TYPE_CHECKING:
+    from benchctl.limits import LimitsFile
 
 UNIT_MARKERS = ("o", "s", "^", "D", "v", "P", "X", "*", "<", ">")
 MAX_SPREAD_ROWS = 8
@@ -61,7 +65,7 @@ def spread_chart(statistics: pd.DataFrame, per_serial: pd.DataFrame, *, title: s
     rows = []
     for limit, grp in statistics[statistics["limit"] != ""].groupby("limit", sort=False):
         key = grp["ppk"].fillna(np.inf)
-        rows.append(grp.loc[key.idxmin()])
+        rows.append(grp.iloc[int(key.to_numpy().argmin())])  # the first smallest Ppk
     rows = rows[:MAX_SPREAD_ROWS]
     if not rows:
         return None
@@ -111,12 +115,13 @@ def margins_by_unit(results_by_serial: Mapping[str, pd.DataFrame], *, phase_min_
         if res.empty:
             continue
         for name, _label, _lim in names:
-            for r in res[res["name"] == name].itertuples(index=False):
-                scope = r.scope if isinstance(r.scope, dict) else {}
+            sel = res[res["name"] == name]
+            for stored_scope, value in zip(sel["scope"], sel["value"]):
+                scope: dict[str, Any] = stored_scope if isinstance(stored_scope, dict) else {}
                 label = " ".join(f"{scope[k]:g} {u}" for k, u in (("vin_set_v", "V"), ("iout_set_a", "A")) if k in scope)
                 if label not in points:
                     points.append(label)
-                data.setdefault(name, {}).setdefault(serial, {})[label] = float(r.value)
+                data.setdefault(name, {}).setdefault(serial, {})[label] = float(value)
     if not points:
         return None
     with matplotlib.rc_context(style.matplotlib_rc()):
@@ -139,7 +144,7 @@ def margins_by_unit(results_by_serial: Mapping[str, pd.DataFrame], *, phase_min_
     return fig
 
 
-def first_bound(limits: Sequence[object], quantity: str) -> float | None:
+def first_bound(limits: Sequence[LimitsFile], quantity: str) -> float | None:
     """The largest minimum any limit sets on ``quantity`` (for drawing), None when none."""
     mins = [s.minimum for lf in limits for s in lf.limits if s.quantity == quantity and s.minimum is not None]
     return max(mins) if mins else None
