@@ -208,6 +208,7 @@ class Bench:
         min_dwell_s: float = 0.0,
         interval_s: float = 0.0,
         timeout_s: float = 10.0,
+        max_tau_s: float = 10.0,
     ) -> SettleResult:
         """Settle several quantities read together (one thread per instrument) by fitting each
         one's approach (:func:`benchctl.settle.settle_exponential`).
@@ -216,24 +217,29 @@ class Bench:
         first being the one the point is for. ``time_constant_s`` defaults to the station's
         ``dut_time_constant_s``; τ fitted at earlier points is the hint when a point's own
         readings do not show a transient. ``min_dwell_s`` counts from the last setpoint change.
+        Changes slower than ``max_tau_s`` are slow drift, left to :meth:`wait_stable`.
         """
         names = list(readers) if settle_on is None else list(settle_on)
         if not self.settle_enabled:
             r = self.measure_together({n: readers[n] for n in names}, n=1)
             return disabled_result(r.mean(names[0]), names[0])
         subset = {n: readers[n] for n in names}
-
-        def one_round() -> dict[str, tuple[float, float]]:
-            r = self._reader.read(subset, 1)
-            return {n: (r.times_s[n][0], r.values[n][0]) for n in names}
-
         tau = self.dut_time_constant_s if time_constant_s is None else time_constant_s
-        result = settle_exponential(
-            one_round, settle_on=names, rel_tol=rel_tol, abs_tol=abs_tol, time_constant_s=tau,
-            tau_memory=self.fitted_time_constants, min_readings=min_readings, min_window_s=min_window_s,
-            min_dwell_s=min_dwell_s, timeout_s=timeout_s, interval_s=interval_s, clock=self.clock,
-            sleep=self.interlock.wait, t_change_s=self._changed_at,
-        )
+        self.interlock.raise_if_tripped()
+        # Each instrument reads continuously at its own pace (readings carry their own times),
+        # so an instrument the interlock watch holds up for a moment delays only its own series.
+        with self._reader.stream(subset) as stream:
+
+            def new_readings() -> dict[str, list[tuple[float, float]]]:
+                self.interlock.raise_if_tripped()
+                return stream.take()
+
+            result = settle_exponential(
+                new_readings, settle_on=names, rel_tol=rel_tol, abs_tol=abs_tol, time_constant_s=tau,
+                tau_memory=self.fitted_time_constants, min_readings=min_readings, min_window_s=min_window_s,
+                min_dwell_s=min_dwell_s, timeout_s=timeout_s, interval_s=interval_s, max_tau_s=max_tau_s,
+                clock=self.clock, sleep=self.interlock.wait, t_change_s=self._changed_at,
+            )
         self.interlock.raise_if_tripped()
         self.fitted_time_constants.update(fitted_time_constants(result))
         return result

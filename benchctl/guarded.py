@@ -208,6 +208,19 @@ class GuardedMeter(Guarded):
         self._before()
         return self._check(self._p_limit, self._driver.measure_power(), "measured power (W)")
 
+    @property
+    def has_measure_all(self) -> bool:
+        """Whether the driver reads V, I and P of one integration (trigger-then-fetch)."""
+        return callable(getattr(self._driver, "measure_all", None))
+
+    def measure_all(self) -> tuple[float, float, float]:
+        """(V, A, W) of one integration (the driver's trigger-then-fetch), each checked like its own reading."""
+        self._before()
+        v, i, p = self._driver.measure_all()
+        return (self._check(self._v_limit, v, "measured voltage (V)"),
+                self._check(self._i_limit, i, "measured current (A)"),
+                self._check(self._p_limit, p, "measured power (W)"))
+
     def set_averaging(self, count: int) -> None:
         self._before()
         self._driver.set_averaging(count)

@@ -4,7 +4,10 @@ Readings are grouped by instrument (the object a bound method belongs to: one gu
 driver per role); each instrument is read in a thread of its own, so independent
 instruments measure at the same time, and a barrier starts every round of readings on
 all instruments together (an instrument's own readings within a round follow one
-another: an instrument answers one query at a time). The drivers are thread-safe per
+another: an instrument answers one query at a time). A reader may return several values
+of one instrument taken together, named by a tuple key: ``{("vin_v", "iin_a", "pin_w"):
+meter.measure_all}`` (a meter's trigger-then-fetch: voltage, current and power of one
+integration). The drivers are thread-safe per
 instrument (each holds a lock), so the interlock watch may read the same instrument
 meanwhile.
 
@@ -21,11 +24,14 @@ import threading
 import time
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
-from typing import Any, Callable, Mapping
+from typing import Any, Callable, Mapping, Tuple, Union
 
 from benchctl.units import SUFFIX_UNITS
 
-Reader = Callable[[], float]
+Reader = Callable[[], Any]
+#: A quantity's name, or the names of the values one reading returns together (a meter's
+#: trigger-then-fetch giving voltage, current and power of one integration).
+Key = Union[str, Tuple[str, ...]]
 
 #: How long a round waits for the slowest instrument of the round before giving up (s).
 ROUND_TIMEOUT_S = 120.0
@@ -76,9 +82,89 @@ class Readings:
         return out
 
 
+def _names(key: Key) -> tuple[str, ...]:
+    return (key,) if isinstance(key, str) else tuple(key)
+
+
+def _split(key: Key, answer: Any) -> list[tuple[str, float]]:
+    """The (name, value) pairs of one reading: one float, or one per name of a tuple key."""
+    if isinstance(key, str):
+        return [(key, float(answer))]
+    values = tuple(answer)
+    if len(values) != len(key):
+        raise ValueError(f"a reading for {', '.join(key)} returned {len(values)} values, not {len(key)}")
+    return [(name, float(v)) for name, v in zip(key, values)]
+
+
 def _instrument_of(read: Reader) -> Any:
     owner = getattr(read, "__self__", None)
     return owner if owner is not None else read
+
+
+class ReadingStream:
+    """Readers read continuously, one thread per instrument, each at its own pace, until stopped.
+
+    For settling: every quantity's readings carry their own times, so no instrument waits for
+    another (one held up by the interlock watch delays only its own readings). :meth:`take`
+    returns what arrived since the last call, waiting until every quantity has something new;
+    an error in any reading is raised there. Use as a context manager (:meth:`stop` joins the
+    threads; a reading in progress is finished first).
+    """
+
+    def __init__(self, groups: list[list[tuple[Key, Reader]]], clock: Callable[[], float]) -> None:
+        self._clock = clock
+        self._cond = threading.Condition()
+        self._new: dict[str, list[tuple[float, float]]] = {name: [] for g in groups for key, _ in g
+                                                           for name in _names(key)}
+        self._error: BaseException | None = None
+        self._stop = threading.Event()
+        self._threads = [threading.Thread(target=self._loop, args=(g,), name="benchctl-reading-stream", daemon=True)
+                         for g in groups]
+        for t in self._threads:
+            t.start()
+
+    def _loop(self, group: list[tuple[Key, Reader]]) -> None:
+        try:
+            while not self._stop.is_set():
+                for key, read in group:
+                    t_a = self._clock()
+                    values = _split(key, read())
+                    t_b = self._clock()
+                    with self._cond:
+                        for name, value in values:
+                            self._new[name].append((0.5 * (t_a + t_b), value))
+                        self._cond.notify_all()
+        except BaseException as exc:  # noqa: BLE001 - handed to the caller's thread by take()
+            with self._cond:
+                if self._error is None:
+                    self._error = exc
+                self._cond.notify_all()
+
+    def take(self, timeout_s: float = ROUND_TIMEOUT_S) -> dict[str, list[tuple[float, float]]]:
+        """Readings ``{name: [(t_s, value), ...]}`` since the last call, at least one of each quantity."""
+        with self._cond:
+            ok = self._cond.wait_for(lambda: self._error is not None or all(self._new.values()), timeout=timeout_s)
+            if self._error is not None:
+                raise self._error
+            if not ok:
+                raise TimeoutError(f"no new reading of {', '.join(n for n, v in self._new.items() if not v)} "
+                                   f"within {timeout_s:g} s")
+            out = {name: list(v) for name, v in self._new.items()}
+            for v in self._new.values():
+                v.clear()
+            return out
+
+    def stop(self) -> None:
+        self._stop.set()
+        for t in self._threads:
+            if t is not threading.current_thread():
+                t.join(timeout=ROUND_TIMEOUT_S)
+
+    def __enter__(self) -> "ReadingStream":
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self.stop()
 
 
 class SimultaneousReader:
@@ -116,22 +202,31 @@ class SimultaneousReader:
             return self._pool
 
     @staticmethod
-    def groups(readers: Mapping[str, Reader]) -> list[list[tuple[str, Reader]]]:
+    def groups(readers: Mapping[Key, Reader]) -> list[list[tuple[Key, Reader]]]:
         """Quantities grouped by the instrument that reads them, in the order given."""
-        by_owner: dict[int, list[tuple[str, Reader]]] = {}
+        by_owner: dict[int, list[tuple[Key, Reader]]] = {}
         for name, read in readers.items():
             by_owner.setdefault(id(_instrument_of(read)), []).append((name, read))
         return list(by_owner.values())
 
-    def read(self, readers: Mapping[str, Reader], n: int = 1) -> Readings:
+    def stream(self, readers: Mapping[Key, Reader]) -> ReadingStream:
+        """Start reading every quantity continuously (see :class:`ReadingStream`)."""
+        if not readers:
+            raise ValueError("no quantity to read")
+        return ReadingStream(self.groups(readers), self.clock)
+
+    def read(self, readers: Mapping[Key, Reader], n: int = 1) -> Readings:
         """``n`` rounds of every reader; instruments in parallel, each round started together."""
         if n < 1:
             raise ValueError(f"the number of readings must be >= 1, not {n}")
         if not readers:
             raise ValueError("no quantity to read")
         groups = self.groups(readers)
-        values: dict[str, list[float]] = {name: [] for name in readers}
-        times: dict[str, list[float]] = {name: [] for name in readers}
+        names = [name for key in readers for name in _names(key)]
+        if len(set(names)) != len(names):
+            raise ValueError(f"a quantity is read twice: {', '.join(sorted(n for n in names if names.count(n) > 1))}")
+        values: dict[str, list[float]] = {name: [] for name in names}
+        times: dict[str, list[float]] = {name: [] for name in names}
         t_start = self.clock()
         if len(groups) == 1:
             self._read_group(groups[0], n, values, times, None)
@@ -155,18 +250,19 @@ class SimultaneousReader:
         return Readings({k: tuple(v) for k, v in values.items()}, {k: tuple(v) for k, v in times.items()},
                         t_start, self.clock())
 
-    def _read_group(self, group: list[tuple[str, Reader]], n: int, values: dict[str, list[float]],
+    def _read_group(self, group: list[tuple[Key, Reader]], n: int, values: dict[str, list[float]],
                     times: dict[str, list[float]], barrier: threading.Barrier | None) -> None:
         try:
             for _ in range(n):
                 if barrier is not None:
                     barrier.wait(timeout=ROUND_TIMEOUT_S)
-                for name, read in group:
+                for key, read in group:
                     t_a = self.clock()
-                    value = float(read())
+                    pairs = _split(key, read())
                     t_b = self.clock()
-                    values[name].append(value)
-                    times[name].append(0.5 * (t_a + t_b))
+                    for name, value in pairs:
+                        values[name].append(value)
+                        times[name].append(0.5 * (t_a + t_b))
         except BaseException:
             if barrier is not None:
                 barrier.abort()

@@ -15,10 +15,16 @@ first-order propagation) is within the tolerance for every quantity settled on. 
 constant comes from the procedure or the station (``[station] dut_time_constant_s``), from
 the readings themselves when the fit resolves the transient (amplitude ≥ 8 σ of the
 scatter, τ shorter than the readings' span, τ known to 25 %), or from earlier points of
-the run; when none is known, the readings' own span is taken as τ, so a drift slower than
-the window shows as a residual. It therefore cannot stop on a trend that is still
-moving: a slope is a large residual, not "agreement". Where a time constant is given
-and the readings want a slower one, the slower one is used.
+the run; when none is known, the slowest τ the readings allow (profile least squares) —
+at most their own span — is taken, so a trend over the window is a residual of its own
+size, not "agreement" (a transient much slower than that window cannot be told from a
+flat line by any settle: give its time constant). Components slower than ``max_tau_s``
+(default 10 s) are slow drift — parts warming — and are reported, not waited out: that is
+the stability criterion's job (:mod:`benchctl.stability`).
+Where a time constant is given and the readings want a slower one, the slower one is
+used. When the single exponential says settled and there are 8 readings or more, a sum
+of two exponentials is fitted too; if the second one is significant (F test) and leaves
+a larger residual, that one decides (a fast large step riding on a slow small one).
 
 ``settle_adaptive`` (``method="window"``) — the trailing readings agree within the
 tolerance (max − min ≤ tol, tol = max(abs_tol, rel_tol·|value|)); then the settling time
@@ -175,6 +181,9 @@ class ExponentialFit:
     residual_end_se: float
     tau_se_s: float | None  # None when τ was fixed
     fixed_tau: bool
+    #: The slowest τ the readings allow (profile least squares, 95 %): RSS(τ) within
+    #: RSS_min·(1 + F(0.95; 1, n − 3)/(n − 3)) (Bates & Watts 1988, 6.1); None when τ was fixed.
+    tau_upper_s: float | None = None
 
     @property
     def resolved(self) -> bool:
@@ -279,7 +288,12 @@ def fit_exponential(
     if dof < 1:
         sigma = 0.0
         return ExponentialFit(c, a, tau, float(t[0]), float(t[-1]), sigma, n, a * math.exp(-span / tau),
-                              math.inf, math.inf, False)
+                              math.inf, math.inf, False, hi)
+    from scipy.stats import f as f_dist
+
+    threshold = rss_best * (1.0 + float(f_dist.ppf(0.95, 1, dof)) / dof)
+    above = np.nonzero((grid > tau) & (rss > threshold))[0]
+    tau_upper = float(grid[above[0]]) if len(above) else float(hi)  # the first slower τ the readings reject
     sigma = math.sqrt(max(rss_best, 0.0) / dof)
     # Jacobian of (final, amplitude, τ) and the covariance σ²(JᵀJ)⁻¹
     jac = np.column_stack([np.ones(n), e, a * e * (t - t[0]) / (tau * tau)])
@@ -294,7 +308,8 @@ def fit_exponential(
     tau_var = float(cov[2, 2])
     return ExponentialFit(c, a, tau, float(t[0]), float(t[-1]), sigma, n, a * decay,
                           math.sqrt(var_r) if var_r >= 0 and math.isfinite(var_r) else math.inf,
-                          math.sqrt(tau_var) if tau_var >= 0 and math.isfinite(tau_var) else math.inf, False)
+                          math.sqrt(tau_var) if tau_var >= 0 and math.isfinite(tau_var) else math.inf, False,
+                          tau_upper)
 
 
 @dataclass(frozen=True)
@@ -311,10 +326,16 @@ class TwoExponentialFit:
     rss: float
     residual_end: float
     residual_end_se: float
+    fast_residual_end: float  # the faster term alone at the last reading
+    fast_residual_end_se: float
 
     @property
     def residual_bound(self) -> float:
         return abs(self.residual_end) + COVERAGE_K * self.residual_end_se
+
+    @property
+    def fast_residual_bound(self) -> float:
+        return abs(self.fast_residual_end) + COVERAGE_K * self.fast_residual_end_se
 
 
 def _ls_basis(x: np.ndarray, basis: np.ndarray) -> tuple[np.ndarray, float]:
@@ -324,12 +345,18 @@ def _ls_basis(x: np.ndarray, basis: np.ndarray) -> tuple[np.ndarray, float]:
     return coef, float(r @ r)
 
 
+#: The slower of two fitted exponentials is at least this many times slower than the faster.
+MIN_TAU_RATIO = 2.0
+
+
 def fit_two_exponentials(t_s: Sequence[float], x: Sequence[float], *, tau_min_s: float | None = None,
-                         tau_max_s: float | None = None) -> TwoExponentialFit:
+                         tau_max_s: float | None = None, tau1_hint_s: float | None = None) -> TwoExponentialFit:
     """Fit a sum of two exponentials (variable projection: final value and amplitudes by
-    linear least squares, the two τ by a logarithmic grid of pairs then Nelder-Mead,
-    scipy.optimize.minimize); standard error of the residual at the last reading from the
-    5-parameter covariance σ²(JᵀJ)⁻¹. Needs at least 7 readings."""
+    linear least squares, the two τ by a logarithmic grid then Nelder-Mead, scipy.optimize.minimize,
+    over log τ1 and log τ2/τ1 ≥ log ``MIN_TAU_RATIO``, so the two stay distinct); ``tau1_hint_s``
+    (the single-exponential fit's τ) starts the faster one there and searches the slower one
+    above it. Standard error of the residual at the last reading from the 5-parameter
+    covariance σ²(JᵀJ)⁻¹. Needs at least 7 readings."""
     from scipy.optimize import minimize
 
     t = np.asarray(t_s, dtype=float)
@@ -344,50 +371,58 @@ def fit_two_exponentials(t_s: Sequence[float], x: Sequence[float], *, tau_min_s:
     u = t - t[0]
     xm = xv.mean()
     xc = xv - xm
-    grid = np.geomspace(lo, hi, 24)
-    ex = np.exp(-u[None, :] / grid[:, None])  # (m, n)
-    ex_c = ex - ex.mean(axis=1, keepdims=True)  # centring removes the constant column
-    i, j = np.triu_indices(len(grid), k=2)  # τ2/τ1 at least two grid steps apart: distinct terms
-    s11 = np.einsum("ij,ij->i", ex_c, ex_c)
-    s12 = ex_c @ ex_c.T
-    sx = ex_c @ xc
-    a11, a22, a12 = s11[i], s11[j], s12[i, j]
-    b1, b2 = sx[i], sx[j]
-    det = a11 * a22 - a12 * a12
-    with np.errstate(divide="ignore", invalid="ignore"):
-        c1 = np.where(det > 1e-300, (a22 * b1 - a12 * b2) / det, 0.0)
-        c2 = np.where(det > 1e-300, (a11 * b2 - a12 * b1) / det, 0.0)
-    rss_grid = float(xc @ xc) - c1 * b1 - c2 * b2
-    rss_grid = np.where(det > 1e-9 * a11 * a22, rss_grid, np.inf)  # nearly collinear pairs: no trust
-    k = int(np.argmin(rss_grid))
-    start = np.log([grid[i[k]], grid[j[k]]])
+    log_lo, log_hi, log_ratio = math.log(lo), math.log(hi), math.log(MIN_TAU_RATIO)
 
-    def rss_of(logs: np.ndarray) -> float:
-        t1, t2 = np.exp(logs)
+    def taus(p: np.ndarray) -> tuple[float, float]:
+        l1 = min(max(float(p[0]), log_lo), log_hi - log_ratio)
+        l2 = min(l1 + max(float(p[1]), log_ratio), log_hi)
+        return math.exp(l1), math.exp(l2)
+
+    def rss_of(p: np.ndarray) -> float:
+        t1, t2 = taus(p)
         basis = np.column_stack([np.ones(n), np.exp(-u / t1), np.exp(-u / t2)])
-        return _ls_basis(xv, basis)[1]
+        try:
+            return _ls_basis(xv, basis)[1]
+        except np.linalg.LinAlgError:
+            return math.inf
 
+    if tau1_hint_s is not None and lo < tau1_hint_s < hi / MIN_TAU_RATIO:
+        firsts = [math.log(tau1_hint_s)]
+    else:
+        firsts = list(np.log(np.geomspace(lo, hi / MIN_TAU_RATIO, 16)))
+    candidates = [np.array([l1, lr]) for l1 in firsts
+                  for lr in np.linspace(log_ratio, max(log_hi - l1, log_ratio), 16)]
+    rss_start = [rss_of(p) for p in candidates]
+    k = int(np.argmin(rss_start))
+    start = candidates[k]
     res = minimize(rss_of, start, method="Nelder-Mead",
-                   options={"xatol": 1e-3, "fatol": 1e-12 * max(float(xc @ xc), 1e-300), "maxiter": 200})
-    logs = res.x if res.fun <= rss_grid[k] else start
-    logs = np.clip(logs, math.log(lo), math.log(hi))
-    tau1, tau2 = sorted(float(v) for v in np.exp(logs))
+                   options={"xatol": 1e-4, "fatol": 1e-12 * max(float(xc @ xc), 1e-300), "maxiter": 400})
+    best = res.x if res.fun <= rss_start[k] else start
+    tau1, tau2 = taus(best)
     e1, e2 = np.exp(-u / tau1), np.exp(-u / tau2)
-    coef, rss = _ls_basis(xv, np.column_stack([np.ones(n), e1, e2]))
+    try:
+        coef, rss = _ls_basis(xv, np.column_stack([np.ones(n), e1, e2]))
+    except np.linalg.LinAlgError:  # degenerate: no second exponential can be told apart
+        coef, rss = np.array([xm, 0.0, 0.0]), float(xc @ xc)
     c, a1, a2 = (float(v) for v in coef)
     sigma = math.sqrt(max(rss, 0.0) / (n - 5)) if n > 5 else 0.0
     d1, d2 = math.exp(-span / tau1), math.exp(-span / tau2)
     jac = np.column_stack([np.ones(n), e1, e2, a1 * e1 * u / tau1**2, a2 * e2 * u / tau2**2])
     grad = np.array([0.0, d1, d2, a1 * d1 * span / tau1**2, a2 * d2 * span / tau2**2])
+    grad_fast = np.array([0.0, d1, 0.0, a1 * d1 * span / tau1**2, 0.0])
     try:
         with np.errstate(all="ignore"):
             cov = sigma * sigma * np.linalg.pinv(jac.T @ jac)
             var_r = float(grad @ cov @ grad)
+            var_fast = float(grad_fast @ cov @ grad_fast)
     except np.linalg.LinAlgError:
-        var_r = math.inf
-    se = math.sqrt(var_r) if math.isfinite(var_r) and var_r >= 0 else math.inf
+        var_r = var_fast = math.inf
+
+    def root(v: float) -> float:
+        return math.sqrt(v) if math.isfinite(v) and v >= 0 else math.inf
+
     return TwoExponentialFit(c, (a1, a2), (tau1, tau2), float(t[0]), float(t[-1]), sigma, n, rss,
-                             a1 * d1 + a2 * d2, se)
+                             a1 * d1 + a2 * d2, root(var_r), a1 * d1, root(var_fast))
 
 
 def second_exponential_significant(one: ExponentialFit, two: TwoExponentialFit, *, confidence: float = 0.99) -> bool:
@@ -399,6 +434,8 @@ def second_exponential_significant(one: ExponentialFit, two: TwoExponentialFit, 
     if dof2 < 1:
         return False
     rss1 = one.sigma ** 2 * max(one.n - 3, 1)
+    if rss1 <= one.n * (1e-9 * max(abs(one.final), abs(one.amplitude))) ** 2:
+        return False  # one exponential already fits to the numbers' own precision
     if two.rss <= 0:
         return rss1 > 0
     stat = ((rss1 - two.rss) / 2.0) / (two.rss / dof2)
@@ -418,23 +455,8 @@ class ResidualAssessment:
     tau_source: str
     fitted_tau_s: float | None  # τ of the free fit when it resolved the transient
     span_s: float
-
-
-def _trend_significant(t: np.ndarray, x: np.ndarray, *, t_crit: float = 3.0) -> bool:
-    """Is the least-squares slope of the readings more than ``t_crit`` standard errors from zero?"""
-    n = len(t)
-    if n < 4:
-        return False
-    tc = t - t.mean()
-    stt = float(tc @ tc)
-    if stt <= 0:
-        return False
-    slope = float(tc @ (x - x.mean())) / stt
-    r = x - x.mean() - slope * tc
-    s2 = float(r @ r) / (n - 2)
-    if s2 <= 0:
-        return slope != 0.0
-    return abs(slope) > t_crit * math.sqrt(s2 / stt)
+    drift_tau_s: float | None = None  # a component slower than max_tau_s, left to the drift criterion
+    drift_per_s: float | None = None  # its rate of change at the last reading (unit/s)
 
 
 def assess_residual(
@@ -445,6 +467,7 @@ def assess_residual(
     abs_tol: float,
     tau_given_s: float | None = None,
     tau_earlier_s: float | None = None,
+    max_tau_s: float = math.inf,
 ) -> ResidualAssessment:
     """Judge whether readings ``x`` at ``t_s`` have settled (see the module docstring).
 
@@ -452,29 +475,33 @@ def assess_residual(
     transient; the fit with τ fixed at the given time constant (procedure or station);
     when the free fit does not resolve the transient, the fit with τ from earlier points
     (``tau_earlier_s``), or else with τ equal to the readings' span. The largest bound counts,
-    so a given τ slower than the fit is kept (conservative).
+    so a given τ slower than the fit is kept (conservative). A component slower than
+    ``max_tau_s`` is slow drift (parts warming), not settling: it is reported, and left to the
+    drift criterion (:mod:`benchctl.stability`).
     """
     t = np.asarray(t_s, dtype=float)
     xv = np.asarray(x, dtype=float)
     span = float(t[-1] - t[0])
     free = fit_exponential(t, xv)
+    resolved = free.resolved and free.tau_s <= max_tau_s
     candidates: list[tuple[ExponentialFit, str]] = []
     fitted = None
-    if free.resolved:
+    if resolved:
         candidates.append((free, "fit"))
         fitted = free.tau_s
     if tau_given_s is not None and tau_given_s > 0:
         candidates.append((fit_exponential(t, xv, tau_s=tau_given_s), "given"))
-    if not free.resolved:
+    if not resolved:
         if tau_earlier_s is not None and tau_earlier_s > 0:
             candidates.append((fit_exponential(t, xv, tau_s=tau_earlier_s), "earlier points"))
         elif tau_given_s is None:
-            if _trend_significant(t, xv):
-                # Moving, and no time constant says how far: a slope is not agreement.
-                tol = max(abs_tol, rel_tol * abs(float(xv[-1])))
-                return ResidualAssessment(False, math.inf, math.inf, tol, float(xv[-1]), span, "window span",
-                                          None, span)
-            candidates.append((fit_exponential(t, xv, tau_s=span), "window span"))
+            # The slowest τ the readings allow, at most their own span: a clear step over within
+            # the first reading rejects every slow τ; flat readings reject none, so the span stands in.
+            cap = min(span, max_tau_s)
+            step_seen = abs(free.amplitude) >= RESOLVED_AMPLITUDE_SIGMAS * free.sigma
+            tau_c = min(free.tau_upper_s or cap, cap) if step_seen else cap
+            candidates.append((fit_exponential(t, xv, tau_s=tau_c),
+                               "window span" if tau_c >= cap else "fit, slowest the readings allow"))
     best, source = max(candidates, key=lambda c: c[0].residual_bound)
     final = best.final
     tol = max(abs_tol, rel_tol * abs(final))
@@ -483,12 +510,21 @@ def assess_residual(
     if bound <= tol and len(t) >= 8:
         # The single exponential says settled: check that a slower second one is not hiding
         # in its residuals (a fast large step riding on a slow small one).
-        two = fit_two_exponentials(t, xv)
-        if second_exponential_significant(free, two) and two.residual_bound > bound:
-            bound, final, tau, source = two.residual_bound, two.final, two.taus_s[1], "fit, two exponentials"
-            tol = max(abs_tol, rel_tol * abs(final))
-            return ResidualAssessment(bound <= tol and math.isfinite(bound), abs(two.residual_end), bound, tol,
-                                      final, tau, source, fitted, span)
+        two = fit_two_exponentials(t, xv, tau1_hint_s=free.tau_s)
+        if second_exponential_significant(free, two):
+            if two.taus_s[1] > max_tau_s:  # the slower one is drift: judge the faster one alone
+                a2, tau2 = two.amplitudes[1], two.taus_s[1]
+                drift = -a2 / tau2 * math.exp(-span / tau2)
+                if two.fast_residual_bound > bound:
+                    bound, tau, source = two.fast_residual_bound, two.taus_s[0], "fit, two exponentials"
+                return ResidualAssessment(bound <= tol and math.isfinite(bound), abs(two.fast_residual_end)
+                                          if source.startswith("fit, two") else abs(best.residual_end), bound,
+                                          tol, final, tau, source, fitted, span, tau2, drift)
+            if two.residual_bound > bound:
+                bound, final, tau, source = two.residual_bound, two.final, two.taus_s[1], "fit, two exponentials"
+                tol = max(abs_tol, rel_tol * abs(final))
+                return ResidualAssessment(bound <= tol and math.isfinite(bound), abs(two.residual_end), bound, tol,
+                                          final, tau, source, fitted, span)
     return ResidualAssessment(bound <= tol and math.isfinite(bound), abs(best.residual_end), bound, tol, final,
                               tau, source, fitted, span)
 
@@ -507,19 +543,22 @@ def settle_exponential(
     timeout_s: float = 10.0,
     interval_s: float = 0.0,
     max_readings: int = 400,
+    max_tau_s: float = 10.0,
     clock: Callable[[], float] = time.monotonic,
     sleep: Callable[[float], None] = time.sleep,
     t_change_s: float | None = None,
 ) -> SettleResult:
     """Read until every quantity of ``settle_on`` is predicted within its tolerance.
 
-    ``read()`` returns ``{name: (t_s, value)}`` for one round of readings taken together
-    (``t_s`` on ``clock``; see :mod:`benchctl.readings`). Tolerances are per quantity
+    ``read()`` returns ``{name: (t_s, value)}`` for one round of readings, or ``{name: [(t_s,
+    value), ...]}`` with every reading that arrived since the last call (``t_s`` on ``clock``;
+    see :mod:`benchctl.readings`). Tolerances are per quantity
     (a mapping) or common: tol = max(abs_tol, rel_tol·|x∞|). ``time_constant_s`` is the DUT's
     dominant time constant when known (procedure or station); ``tau_memory`` holds τ fitted
     at earlier points per quantity. The first quantity of ``settle_on`` is the one the point
     is for (``quantity`` of the result). ``min_dwell_s`` is counted from ``t_change_s`` (the
-    setpoint change; default: the start of the settle).
+    setpoint change; default: the start of the settle). Components slower than ``max_tau_s``
+    are slow drift, not settling (reported per quantity as ``drift_tau_s`` and ``drift_per_s``).
     """
     names = list(settle_on)
     if not names:
@@ -541,15 +580,16 @@ def settle_exponential(
     last: dict[str, ResidualAssessment] = {}
     while True:
         round_ = read()
-        count += 1
         for name in names:
             ts, xs = series[name]
-            t_read, value = round_[name]
-            ts.append(t_read - t0)
-            xs.append(float(value))
+            got = round_[name]
+            for t_read, value in (got if isinstance(got, list) else [got]):
+                ts.append(t_read - t0)
+                xs.append(float(value))
             if len(ts) > max_readings:  # thin the older half: the span (and the early transient) stays
                 half = len(ts) // 2
                 ts[:half], xs[:half] = ts[:half:2], xs[:half:2]
+        count = min(len(series[n][0]) for n in names)
         now = clock()
         elapsed = now - t0
         # Judge after every reading, but at most about every 2 % of the time spent so far when
@@ -565,7 +605,7 @@ def settle_exponential(
                     continue
                 a = assess_residual(ts, xs, rel_tol=tol_of(rel_tol, name), abs_tol=tol_of(abs_tol, name),
                                     tau_given_s=time_constant_s,
-                                    tau_earlier_s=(tau_memory or {}).get(name))
+                                    tau_earlier_s=(tau_memory or {}).get(name), max_tau_s=max_tau_s)
                 last[name] = a
                 all_ok = all_ok and a.settled
             dwell = now - t_ref
@@ -600,6 +640,8 @@ def _exponential_result(settled: bool, names: list[str], last: Mapping[str, Resi
                      "fitted_tau_s": q.fitted_tau_s, "predicted_residual": q.residual,
                      "predicted_residual_rel": q.residual / abs(q.final) if q.final else None,
                      "residual_bound": q.bound, "tolerance": q.tolerance}
+        if q.drift_tau_s is not None:
+            per[name].update(drift_tau_s=q.drift_tau_s, drift_per_s=q.drift_per_s)
     value = a.final if a is not None else (series[primary][1][-1] if series[primary][1] else math.nan)
     return SettleResult(
         settled=settled,

@@ -4,8 +4,10 @@ Both talk to the same simulated bench, served by a separate process as real inst
 would be (in-process servers would share the interpreter lock with the client's threads
 and charge the framework's interlock thread to the instruments), with settling disabled, so only the instrument
 exchanges count) and send the same SCPI: the bare script sets each operating point,
-checks the error queue after each setting, as the drivers do, and reads the six meter
-quantities plus the two settle readings. benchctl adds the interlock (limit checks and
+checks the error queue after each setting, as the drivers do, and reads what
+``efficiency_map`` reads with ``n_readings = 1``: one settle round (input and output power),
+each meter's voltage, current and power of one integration (INIT, then FETC), and the
+source's voltage read-back. benchctl adds the interlock (limit checks and
 its background watch), the guarded drivers and a durable commit of every point into
 SQLite. Prints ratios measured in this one run: for the whole run (benchctl also opens,
 identifies and resets the instruments, programs their protection and computes the
@@ -66,10 +68,14 @@ def bare_script(resources: dict[str, str], plan: list[dict], ilimit_a: float) ->
             setting(src, f"VOLT {p['vin_set_v']:g}")
             vin_now = p["vin_set_v"]
         setting(load, f"CURR {p['iout_set_a']:g}")
-        mo.query("MEAS:VOLT?")
-        mi.query("MEAS:CURR?")
-        rows.append([float(m.query(q)) for m, q in ((mi, "MEAS:VOLT?"), (mi, "MEAS:CURR?"), (mi, "MEAS:POW?"),
-                                                    (mo, "MEAS:VOLT?"), (mo, "MEAS:CURR?"), (mo, "MEAS:POW?"))])
+        mi.query("MEAS:POW?")  # the settle's one round (settling disabled): Pin, Pout
+        mo.query("MEAS:POW?")
+        row = []
+        for m in (mi, mo):  # each meter's V, I, P of one integration, as the driver reads them
+            setting(m, "INIT")
+            row += [float(m.query(q)) for q in ("FETC:VOLT?", "FETC:CURR?", "FETC:POW?")]
+        row.append(float(src.query("MEAS:VOLT?")))  # the source read-back the setpoint is verified with
+        rows.append(row)
     sweep = time.perf_counter() - t_sweep
     setting(load, "INP OFF")
     setting(src, "OUTP OFF")
@@ -115,7 +121,8 @@ def main() -> None:
         time.sleep(0.2)
         station = parse_station(station_file.read_text())
         resources = {role: cfg.resource for role, cfg in station.instruments.items()}
-        values = {**design.procedure_parameters(), "load_pct": [float(x) for x in range(0, 101, 2)]}
+        values = {**design.procedure_parameters(), "load_pct": [float(x) for x in range(0, 101, 2)],
+                  "n_readings": 1}  # one reading per quantity, as the bare script takes
         proc = load_procedure("efficiency_map")
         plan = proc.plan(proc.resolve_parameters(values=values))
         text = station_file.read_text().replace("watch_period_s = 0.05", "watch_period_s = 0.1")

@@ -6,7 +6,8 @@ thread per meter) until the fit of their approach predicts both within the settl
 tolerance (:mod:`benchctl.settle`); optionally the input power must also be stable over a
 longer window (slow thermal drift, :mod:`benchctl.stability`; a warm-up at full load can
 precede the first point). Then input and output voltage, current and power and the
-source's read-back are read ``n_readings`` times, every instrument at the same moment, and
+source's read-back are read ``n_readings`` times, every instrument at the same moment (a
+meter's V, I and P of one integration where its driver can trigger then fetch), and
 recorded as means with their standard deviations; the load current and the source
 voltage are verified against their setpoints first, and a point that fails either check
 is recorded with ``settled = False`` and the reason.
@@ -48,6 +49,8 @@ PARAMETERS = [
     Parameter("settle_timeout_s", "s", 10.0, minimum=0.0, maximum=600.0, help="settle: give up (point unsettled)"),
     Parameter("settle_min_dwell_s", "s", 0.0, minimum=0.0, maximum=3600.0,
               help="settle: least time at each point after its setpoint changed"),
+    Parameter("settle_max_tau_s", "s", 10.0, minimum=0.001, maximum=3600.0,
+              help="settle: slowest time constant waited out; slower changes are drift (see drift_window_s)"),
     Parameter("dut_time_constant_s", "s", None, minimum=0.0, maximum=3600.0, optional=True,
               help="the DUT's slowest settling time constant (default: the station's, else fitted from the readings)"),
     Parameter("n_readings", "", 5, minimum=1, maximum=1000, kind="int",
@@ -93,17 +96,15 @@ def run(bench, p: Parameters) -> None:
     if p.warmup_s > 0:
         _warm_up(bench, p, points[0]["vin_set_v"], max(load_currents(p)))
     powers = {"pin_w": meter_in.measure_power, "pout_w": meter_out.measure_power}
-    readers = {
-        "vin_v": meter_in.measure_voltage, "iin_a": meter_in.measure_current, "pin_w": meter_in.measure_power,
-        "vout_v": meter_out.measure_voltage, "iout_a": meter_out.measure_current, "pout_w": meter_out.measure_power,
-        "vsrc_v": source.measure_voltage,
-    }
+    readers = {**_meter_readers(meter_in, "vin_v", "iin_a", "pin_w"),
+               **_meter_readers(meter_out, "vout_v", "iout_a", "pout_w"), "vsrc_v": source.measure_voltage}
     for point in bench.sweep(points):
         vin_set, iout_set = point["vin_set_v"], point["iout_set_a"]
         bench.set_operating_point(vin_set, iout_set)
         settled = bench.settle_readings(
             powers, settle_on=("pin_w", "pout_w"), rel_tol=p.settle_rel_tol, abs_tol=p.settle_abs_tol_w,
             time_constant_s=p.dut_time_constant_s, min_dwell_s=p.settle_min_dwell_s, timeout_s=p.settle_timeout_s,
+            max_tau_s=p.settle_max_tau_s,
         )
         if p.drift_window_s > 0 and bench.settle_enabled:
             drift = bench.wait_stable(meter_in.measure_power, window_s=p.drift_window_s,
@@ -122,6 +123,13 @@ def run(bench, p: Parameters) -> None:
         bench.record({"vin_set_v": vin_set, "iout_set_a": iout_set}, readings=readings, settle=settled,
                      tag=point["tag"])
     bench.power_down()
+
+
+def _meter_readers(meter, v_name: str, i_name: str, p_name: str) -> dict:
+    """A meter's V, I and P: of one integration where the driver can trigger then fetch, else one by one."""
+    if getattr(meter, "has_measure_all", False):
+        return {(v_name, i_name, p_name): meter.measure_all}
+    return {v_name: meter.measure_voltage, i_name: meter.measure_current, p_name: meter.measure_power}
 
 
 def _warm_up(bench, p: Parameters, vin_v: float, iout_a: float) -> None:

@@ -123,6 +123,7 @@ CASES = [
     ("same, 20 ms readings", 10.0, [(3.0, 0.002), (0.3, 0.05)], 0.02, 1e-4),
     ("slow tail 100x slower", 10.0, [(3.0, 0.002), (0.05, 0.2)], 0.02, 1e-4),
     ("light load, large relative step", 0.25, [(29.0, 0.02)], 0.02, 2e-5),
+    ("step over within the first 20 ms reading", 6.69, [(1.3, 0.005)], 0.02, 9e-5),
 ]
 
 
@@ -159,7 +160,8 @@ def test_window_of_few_fast_readings_stops_early_where_the_fit_does_not():
 
 
 def test_a_ramp_never_settles_and_says_why():
-    dut = FakeDut(5.0, [], ramp_per_s=0.05, noise=1e-4, overhead_s=1e-3)  # 1 %/s of creep
+    # 10 %/s: over the readings' own span it moves more than the tolerance, and ever more so.
+    dut = FakeDut(5.0, [], ramp_per_s=0.5, noise=1e-4, overhead_s=1e-3)
     result = _settle(dut, rel_tol=2e-4, timeout_s=2.0)
     assert not result.settled and result.settling_time_s is None
     assert "not settled within 2 s" in result.reason and "x" in result.reason
@@ -177,6 +179,36 @@ def test_given_time_constant_is_used_and_is_never_faster_than_the_readings():
     flat = FakeDut(10.0, [], aperture_s=0.005, noise=1e-4)
     result = _settle(flat, time_constant_s=0.03)
     assert result.settled and result.tau_source == "given" and result.tau_s == 0.03
+
+
+def test_a_transient_too_slow_for_the_readings_needs_its_time_constant_given():
+    # 1 % left of a 1 s transient, read every millisecond: eight readings look flat (the readings'
+    # own span is all the settle can go by) - the limit of any settle without a time constant.
+    # Given the DUT's time constant (procedure or station), it waits until the residual is gone.
+    unknown = FakeDut(5.0, [(0.05, 1.0)], overhead_s=1e-3, noise=1e-5)
+    r = _settle(unknown, rel_tol=2e-4)
+    assert r.settled and r.tau_source == "window span" and abs(unknown.x(unknown.t) - 5.0) > 0.01
+    known = FakeDut(5.0, [(0.05, 1.0)], overhead_s=1e-3, noise=1e-5)
+    r = _settle(known, rel_tol=2e-4, time_constant_s=1.0)
+    assert r.settled and abs(known.x(known.t) - 5.0) <= 1e-3
+
+
+def test_thermal_creep_slower_than_max_tau_is_drift_not_settling():
+    # A 20 ms electrical step riding on losses that creep with a 100 s thermal time constant
+    # (0.2 % of the reading still to come). Settling waits out the electrical part only and
+    # reports the creep; the drift criterion (benchctl.stability) is the one that waits for parts
+    # to warm. Told to wait out every time constant, it cannot finish within its timeout.
+    # A dwell of 3 s makes the creep plain in the readings (30 σ over the window).
+    terms = [(3.0, 0.02), (-0.02, 100.0)]
+    dut = FakeDut(10.0, terms, aperture_s=0.02, noise=2e-5)
+    r = _settle(dut, rel_tol=2e-4, timeout_s=8.0, min_dwell_s=3.0)
+    assert r.settled and dut.t < 3.2
+    assert abs(3.0 * math.exp(-dut.t / 0.02)) <= 2e-3  # the electrical part is gone
+    q = r.quantities["x"]
+    assert q["drift_tau_s"] > 10.0 and q["drift_per_s"] > 0  # losses rising: the reading creeps up
+    patient = FakeDut(10.0, terms, aperture_s=0.02, noise=2e-5)
+    r2 = _settle(patient, rel_tol=2e-4, timeout_s=8.0, min_dwell_s=3.0, max_tau_s=math.inf)
+    assert not r2.settled and "not settled within 8 s" in r2.reason and "two exponentials" in r2.reason
 
 
 def test_time_constant_of_earlier_points_is_the_hint_when_a_point_shows_no_transient():

@@ -103,3 +103,30 @@ def test_disabled_settling_is_not_settled():
     bench.settle_enabled = False
     r = bench.settle(lambda: 1.5, rel_tol=1e-3, abs_tol=1e-3, window=4, window_s=0.0, interval_s=0.0, timeout_s=1.0)
     assert not r.settled and r.method == "disabled" and "disabled" in r.reason
+
+
+STATION = """
+[station]
+name = "t"
+{extra}
+[limits]
+source_voltage_max_v = 50.0
+source_current_max_a = 2.0
+dut_output_voltage_max_v = 6.0
+load_current_max_a = 5.0
+load_power_max_w = 30.0
+[instruments.source]
+driver = "dc_source"
+resource = "TCPIP::127.0.0.1::5025::SOCKET"
+"""
+
+
+def test_station_gives_the_dut_time_constant_or_is_refused_with_the_key():
+    from benchctl.errors import StationFileError
+    from benchctl.station import parse_station
+
+    assert parse_station(STATION.format(extra="")).dut_time_constant_s is None
+    assert parse_station(STATION.format(extra="dut_time_constant_s = 0.02")).dut_time_constant_s == 0.02
+    for bad in ("-1", "0", '"fast"', "1e9"):
+        with pytest.raises(StationFileError, match="station.dut_time_constant_s"):
+            parse_station(STATION.format(extra=f"dut_time_constant_s = {bad}"))
