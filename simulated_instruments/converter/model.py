@@ -31,7 +31,7 @@ import logging
 import math
 import threading
 from collections import deque
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
@@ -55,13 +55,18 @@ log = logging.getLogger(__name__)
 #: end of a bench load's range, the setting used for static steps so that a step neither
 #: trips the DUT's protection nor rings its loop (common practice).
 DEFAULT_LOAD_SLEW_A_PER_S = 1e3
-#: Quasi-static samples along a load ramp (the targets are linear between them): at least this
-#: many, and four per input-filter time constant on a slow ramp, up to RAMP_SAMPLES_MAX.
-RAMP_SAMPLES = 8
+#: Quasi-static intervals along a load ramp (the targets are linear within each): eight per
+#: input-filter time constant, at least RAMP_SAMPLES and at most RAMP_SAMPLES_MAX.
+RAMP_SAMPLES = 2
 RAMP_SAMPLES_MAX = 64
 #: Quantities ``true_settling_time_s`` knows, beyond the terminal vector.
 DERIVED_QUANTITIES = ("source_w", "input_w", "output_w", "load_w", "efficiency")
 _HISTORY = 64
+#: Spacing of the temperatures at which a warming steady state is solved; between them the
+#: terminal targets and the loss are interpolated linearly (K).  The interpolation error is
+#: second order in this spacing: below 1e-7 of any quantity.
+THERMAL_GRID_K = 0.05
+_GL_NODES, _GL_WEIGHTS = np.polynomial.legendre.leggauss(8)
 
 
 @dataclass(frozen=True)
@@ -109,7 +114,11 @@ class TerminalMeans:
 
 @dataclass(frozen=True)
 class _Segment:
-    """The settings and the transient in force from ``t0_s`` on."""
+    """The settings and the transient in force from ``t0_s`` on.
+
+    ``warm`` caches the steady state at temperatures on the ``THERMAL_GRID_K`` grid:
+    grid index -> (terminal vector, DUT loss W).
+    """
 
     t0_s: float
     transient: Transient
@@ -117,6 +126,7 @@ class _Segment:
     source: SourceSetting
     load: LoadSetting
     faults: tuple[str, ...]
+    warm: dict = field(default_factory=dict, compare=False, repr=False)
 
 
 def _vector(bp: BenchPoint) -> tuple[float, ...]:
@@ -414,7 +424,7 @@ class ConverterModel:
 
     def _small_signal_at(self, op: OperatingPoint) -> tuple[ImpedanceExcess | None, float]:
         """(decaying part of Zcl, τ_loop) at ``op``; cached."""
-        key = (op.state, op.conduction_mode, round(op.vin_v, 6), round(op.load_a, 9), round(op.duty, 9))
+        key = (op.state, op.conduction_mode, round(op.vin_v, 3), round(op.load_a, 4))
         hit = self._small_signal.get(key)
         if hit is not None:
             return hit
@@ -453,7 +463,27 @@ class ConverterModel:
     def _loss_at(self, t_s: float, temp_c: float) -> float:
         """DUT dissipation (W) with the present settings at ``temp_c``, for the thermal integration."""
         seg = self._segments[-1]
-        return self._solve_with(seg.source, seg.load, seg.faults, t_s, temp_c, self._running).op.loss_w
+        if "overheat" in seg.faults or not seg.bench.op.running:
+            return self._solve_with(seg.source, seg.load, seg.faults, t_s, temp_c, self._running).op.loss_w
+        return float(self._warm_interpolated(seg, temp_c)[1])
+
+    def _warm_point(self, seg: _Segment, k: int) -> tuple[NDArray[np.float64], float]:
+        hit = seg.warm.get(k)
+        if hit is None:
+            bp = self._solve_with(seg.source, seg.load, seg.faults, seg.t0_s, k * THERMAL_GRID_K, was_running=True)
+            hit = (np.asarray(_vector(bp), dtype=float), bp.op.loss_w)
+            if len(seg.warm) > 4096:
+                seg.warm.clear()
+            seg.warm[k] = hit
+        return hit
+
+    def _warm_interpolated(self, seg: _Segment, temp_c: float) -> tuple[NDArray[np.float64], float]:
+        """(terminal vector, loss W) of ``seg``'s settings at ``temp_c``, interpolated on the grid."""
+        x = temp_c / THERMAL_GRID_K
+        k = math.floor(x)
+        w = x - k
+        (v0, p0), (v1, p1) = self._warm_point(seg, k), self._warm_point(seg, k + 1)
+        return (1.0 - w) * v0 + w * v1, (1.0 - w) * p0 + w * p1
 
     def _solve_with(self, source: SourceSetting, load: LoadSetting, faults: tuple[str, ...], t_s: float,
                     temp_c: float, was_running: bool) -> BenchPoint:
@@ -484,7 +514,10 @@ class ConverterModel:
         return self._target_at(self._segments[-1], t_s)
 
     def _target_vector(self, seg: _Segment, t_s: float) -> tuple[float, ...]:
-        return _vector(self._target_at(seg, t_s))
+        if not self._moving(seg) or "overheat" in seg.faults:
+            return _vector(self._target_at(seg, t_s))
+        v, _ = self._warm_interpolated(seg, self._temperature(t_s))
+        return tuple(float(x) for x in v)
 
     # ---- internals: time ------------------------------------------------------------------
     def _segment_at(self, t_s: float) -> _Segment:
@@ -531,7 +564,7 @@ class ConverterModel:
                         cuts.add(base + step)
                     step *= 2.0
         edges = np.array(sorted(cuts))
-        x, w = np.polynomial.legendre.leggauss(8)
+        x, w = _GL_NODES, _GL_WEIGHTS
         a, b = edges[:-1], edges[1:]
         half = 0.5 * (b - a)
         nodes = (0.5 * (a + b))[:, None] + half[:, None] * x[None, :]
@@ -581,7 +614,7 @@ class ConverterModel:
             samples = (_vector(bench),)
             heavy = bench.op
         else:
-            n = min(RAMP_SAMPLES_MAX, max(RAMP_SAMPLES, math.ceil(4.0 * duration / self.design.bench.input_filter_tau_s)))
+            n = min(RAMP_SAMPLES_MAX, max(RAMP_SAMPLES, math.ceil(8.0 * duration / self.design.bench.input_filter_tau_s)))
             times = tuple(t + duration * k / n for k in range(n + 1))
             samples_list: list[tuple[float, ...]] = []
             ops = []
