@@ -24,7 +24,8 @@ from .small_signal import (RationalTF, buck_ccm_gvd, buck_dcm_gvd, closed_loop_o
 
 __all__ = [
     "BUCK_12V_1V2", "DEFAULT_LOAD_SLEW_A_PER_S", "DERIVED_QUANTITIES", "DESIGNS", "FAULT_NAMES", "QUANTITIES",
-    "ImpedanceExcess", "LoadRamp", "RegulatedTransient", "TerminalMeans", "ThermalPath", "FLYBACK_48V_5V", "BenchWiring", "Control", "ConverterDesign",
+    "ImpedanceExcess", "LoadRamp", "RegulatedTransient", "TerminalMeans", "ThermalPath",
+    "FLYBACK_48V_5V", "BenchWiring", "Control", "ConverterDesign",
     "ConverterModel", "ConverterModelError", "DesignError", "FaultSettings", "LoadLine", "LoadSetting",
     "LoopTruth", "LossBreakdown", "LossCoefficients", "ManualClock", "ModelClock", "NotRegulatingError",
     "OperatingPoint", "Parasitics", "PowerStage", "Protection", "RationalTF", "Relaxation", "ScaledClock",

@@ -614,7 +614,8 @@ class ConverterModel:
             samples = (_vector(bench),)
             heavy = bench.op
         else:
-            n = min(RAMP_SAMPLES_MAX, max(RAMP_SAMPLES, math.ceil(8.0 * duration / self.design.bench.input_filter_tau_s)))
+            per_tau = math.ceil(8.0 * duration / self.design.bench.input_filter_tau_s)
+            n = min(RAMP_SAMPLES_MAX, max(RAMP_SAMPLES, per_tau))
             times = tuple(t + duration * k / n for k in range(n + 1))
             samples_list: list[tuple[float, ...]] = []
             ops = []
