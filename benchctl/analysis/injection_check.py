@@ -66,9 +66,9 @@ def scatter_db(freq_hz: np.ndarray, small: np.ndarray, large: np.ndarray, centre
 
 def summarize(freq_hz: np.ndarray, response: np.ndarray, phase_convention: str) -> TraceSummary:
     """Margins of one trace (benchctl.analysis.margins.loop_margins), None where not found."""
-    from benchctl.analysis.margins import NotFound, loop_margins
+    from benchctl.analysis.margins import NotFound, checked_phase_convention, loop_margins
 
-    m = loop_margins(freq_hz, response, phase_convention=phase_convention)  # type: ignore[arg-type]
+    m = loop_margins(freq_hz, response, phase_convention=checked_phase_convention(phase_convention))
     fc = m.crossover_hz
     wpm, wgm = m.worst_phase_margin, m.worst_gain_margin
     return TraceSummary(

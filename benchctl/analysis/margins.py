@@ -65,6 +65,7 @@ __all__ = [
     "GainCrossover",
     "PhaseCrossover",
     "LoopMargins",
+    "checked_phase_convention",
     "loop_margins",
     "response_from_gain_phase",
     "closed_loop_q",
@@ -223,6 +224,19 @@ class _Crossing:
     level: float
 
 
+def checked_phase_convention(value: str, where: str = "loop_margins") -> PhaseConvention:
+    """``value`` (text from a caller, a file or the store) as a :data:`PhaseConvention`:
+    ``"loop"`` when the data are T, ``"inverted"`` when the analyzer shows -T."""
+    if value == "loop":
+        return "loop"
+    if value == "inverted":
+        return "inverted"
+    raise AnalysisInputError(
+        f"{where}: phase_convention {value!r} is unknown; use 'loop' when "
+        "the data are T, or 'inverted' when the analyzer shows -T"
+    )
+
+
 def loop_margins(
     freq_hz: ArrayLike,
     response: ArrayLike,
@@ -242,15 +256,7 @@ def loop_margins(
     interpolation, noise and band-edge rules.
     """
     f, h = check_response(freq_hz, response, min_points=_MIN_POINTS, where="loop_margins")
-    if phase_convention == "loop":
-        t = h
-    elif phase_convention == "inverted":
-        t = -h
-    else:
-        raise AnalysisInputError(
-            f"loop_margins: phase_convention {phase_convention!r} is unknown; use 'loop' when "
-            "the data are T, or 'inverted' when the analyzer shows -T"
-        )
+    t = -h if checked_phase_convention(phase_convention) == "inverted" else h
     if smooth_points < 1 or smooth_points % 2 == 0:
         raise AnalysisInputError(
             f"loop_margins: smooth_points must be an odd number >= 1, got {smooth_points}"

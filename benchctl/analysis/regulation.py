@@ -140,13 +140,14 @@ def load_regulation_by_line(
         if len(by_load) < 2:
             continue
         lo, hi = min(by_load), max(by_load)
-        denominator = by_load[hi] if convention == "textbook" else vout_rated_v
+        pct = load_regulation_pct(by_load[lo], by_load[hi], convention, vout_rated_v)  # checks the convention
+        denominator = vout_rated_v if convention == "rated" and vout_rated_v is not None else by_load[hi]
         results.append(
             LoadRegulation(
-                load_regulation_pct=load_regulation_pct(by_load[lo], by_load[hi], convention, vout_rated_v),
+                load_regulation_pct=pct,
                 convention=convention, vin_v=float(line), iout_min_a=lo, iout_max_a=hi,
                 vout_at_min_load_v=by_load[lo], vout_at_max_load_v=by_load[hi],
-                denominator_v=float(denominator),  # type: ignore[arg-type]
+                denominator_v=float(denominator),
             )
         )
     return results

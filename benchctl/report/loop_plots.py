@@ -21,7 +21,7 @@ from matplotlib.figure import Figure
 from numpy.typing import ArrayLike
 
 from benchctl.analysis.frequency_response import unwrapped_phase_deg
-from benchctl.analysis.margins import LoopMargins, loop_margins
+from benchctl.analysis.margins import LoopMargins, NotFound, checked_phase_convention, loop_margins
 
 from . import style
 from .registry import ReportFigure, register_plot
@@ -43,8 +43,9 @@ def bode_figure(freq_hz: ArrayLike, response: ArrayLike, *, phase_convention: st
     with matplotlib.rc_context(style.matplotlib_rc()):
         f = np.asarray(freq_hz, dtype=float)
         h = np.asarray(response, dtype=complex)
-        t = -h if phase_convention == "inverted" else h
-        m = margins if margins is not None else loop_margins(f, h, phase_convention=phase_convention)  # type: ignore[arg-type]
+        convention = checked_phase_convention(phase_convention, where="bode_figure")
+        t = -h if convention == "inverted" else h
+        m = margins if margins is not None else loop_margins(f, h, phase_convention=convention)
         gain = 20.0 * np.log10(np.abs(t))
         phase = unwrapped_phase_deg(t)
         fig, (ax_g, ax_p) = style.new_figure(2, height_in=6.0, sharex=True)
@@ -77,15 +78,15 @@ def bode_figure(freq_hz: ArrayLike, response: ArrayLike, *, phase_convention: st
             ax_g.text(0.01, 0.02, f"no crossover: {getattr(g, 'reason', '')}"[:110], transform=ax_g.transAxes,
                       fontsize=style.CAPTION_SIZE_PT, color=style.MUTED_INK)
         pc = m.worst_gain_margin
-        if m.worst_gain_margin_db is not None:
-            f180 = pc.freq_hz  # type: ignore[union-attr]
-            g180 = -m.worst_gain_margin_db
+        if not isinstance(pc, NotFound):
+            f180 = pc.freq_hz
+            g180 = -pc.gain_margin_db
             for ax in (ax_g, ax_p):
                 ax.axvline(f180, color=GM_COLOUR, linewidth=1.0, linestyle=":")
             ax_g.annotate("", xy=(f180, g180), xytext=(f180, 0.0),
                           arrowprops={"arrowstyle": "<->", "color": GM_COLOUR, "linewidth": 1.4})
             ax_g.plot([f180], [g180], "s", color=GM_COLOUR, markersize=style.MARKER_SIZE_PT, label="phase crossover")
-            ax_g.text(f180 * 1.15, g180 / 2.0, f"GM {m.worst_gain_margin_db:.1f} dB\nf180 {f180:.4g} Hz",
+            ax_g.text(f180 * 1.15, g180 / 2.0, f"GM {pc.gain_margin_db:.1f} dB\nf180 {f180:.4g} Hz",
                       color=GM_COLOUR, fontsize=style.LEGEND_SIZE_PT, va="center")
         else:
             ax_p.text(0.01, 0.02, "gain margin: no -180° crossing in the band", transform=ax_p.transAxes,

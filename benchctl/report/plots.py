@@ -26,7 +26,7 @@ from __future__ import annotations
 from collections.abc import Callable, Mapping, Sequence
 import textwrap
 from functools import wraps
-from typing import Any, TypeVar
+from typing import Any, ParamSpec
 
 import matplotlib
 import numpy as np
@@ -42,7 +42,7 @@ from benchctl.analysis.quality import point_flags
 from . import style
 from .limit_marks import LimitMark
 
-F = TypeVar("F", bound=Callable[..., Figure])
+P = ParamSpec("P")
 
 ASCENDING = "ascending"
 DESCENDING = "descending"
@@ -55,13 +55,13 @@ LOAD_RAMP = ("#4f87b5", "#3b6f9c", "#2a5783", "#1b4069", "#0e2a4d")
 LOAD_MARKERS = ("o", "s", "^", "v", "P")  # a shape per load level as well, for grey-scale prints
 
 
-def _styled(fn: F) -> F:
+def _styled(fn: Callable[P, Figure]) -> Callable[P, Figure]:
     @wraps(fn)
-    def inner(*args: Any, **kwargs: Any) -> Figure:
+    def inner(*args: P.args, **kwargs: P.kwargs) -> Figure:
         with matplotlib.rc_context(style.matplotlib_rc()):
             return fn(*args, **kwargs)
 
-    return inner  # type: ignore[return-value]
+    return inner
 
 
 # ------------------------------------------------------------------ data helpers
