@@ -169,6 +169,11 @@ def statistics_tables(values: pd.DataFrame) -> tuple[pd.DataFrame, pd.DataFrame]
                          "the statistics include them")
         if any(p[5] > 1 for p in per_unit):
             notes.append("a unit measured this point more than once: its mean is used")
+        if outlier:
+            odd = per_unit[cap.outliers.index]
+            if odd[3] is not None and cap.mean is not None and abs(odd[2] - cap.mean) <= odd[3]:
+                notes.append(f"{outlier} stands apart statistically (Grubbs) but lies within its measurement "
+                             f"uncertainty U = {odd[3]:.3g} of the mean")
         us = [p[3] for p in per_unit if p[3] is not None]
         if cap.sd is not None and us and cap.sd < 0.5 * float(np.median(us)):
             notes.append(f"the spread between units (s = {cap.sd:.3g}) is below the measurement's standard "

@@ -144,11 +144,12 @@ def cmd_job(args: argparse.Namespace) -> int:
                     break
         finally:
             unit_change.close()
-        done = {(e.serial, e.step) for e in entries}
-        entries += [JobEntry(serial, n, procedure.name) for serial in units
-                    for n, (_s, procedure, _p) in enumerate(prepared, 1) if (serial, n) not in done]
-        if junit_path is not None:
-            write_job_junit(junit_path, job.name, job_id, entries)
+            # written however the night ends (a signal too), with the runs it never made
+            done = {(e.serial, e.step) for e in entries}
+            entries += [JobEntry(serial, n, procedure.name) for serial in units
+                        for n, (_s, procedure, _p) in enumerate(prepared, 1) if (serial, n) not in done]
+            if junit_path is not None:
+                write_job_junit(junit_path, job.name, job_id, entries)
         table = Table(title=f"job {job_id}: {escape(job.name)} on {station.name}")
         for col in ("unit", "step", "procedure", "run", "status", "points", "limits", "exit"):
             table.add_column(col)
