@@ -112,3 +112,25 @@ def test_progress_of_a_finished_run_is_plain_json(evil_store):
     store, run_id = evil_store
     data = create_app(store).test_client().get(f"/api/runs/{run_id}/progress").get_json()
     assert data["status"] == "completed" and data["points"] == 1 and data["ended"] is True
+
+
+def test_the_view_reads_sqlite_and_postgresql_read_only(store_url):
+    with Store.open(store_url) as store:
+        job = store.begin_job("night", "bench-1")
+        for serial in ("P1", "P2"):
+            run_id = store.begin_run(RunStart(procedure="efficiency_map", procedure_sha256="a" * 64,
+                                              station_name="bench-1", dut_part="FB-48S05", dut_revision="B",
+                                              dut_serial=serial, job_id=job))
+            store.record_point(run_id, {"vin_set_v": 48.0, "iout_set_a": 2.5, "pin_w": 14.5, "pout_w": 12.5})
+            store.record_results(run_id, [{"name": "efficiency", "value": 12.5 / 14.5,
+                                           "scope": {"vin_set_v": 48.0, "iout_set_a": 2.5, "seq": 1}}])
+            store.end_run(run_id, "completed")
+    with Store.open(store_url, read_only=True) as ro:
+        client = create_app(ro).test_client()
+        for url in ("/", f"/runs/{run_id}", "/jobs", "/revision?part=FB-48S05&rev=B",
+                    "/trend?part=FB-48S05&quantity=efficiency"):
+            resp = client.get(url)
+            assert resp.status_code == 200, url
+        assert "P1" in client.get("/jobs").get_data(as_text=True)
+        with pytest.raises(Exception):
+            ro.record_event(run_id, "info", "a read-only view cannot write")
