@@ -63,7 +63,7 @@ def _start(simulated_bench, model, *, time_scale, thermal_drift, reading_time_s=
 
 
 def _run(emap, bench, station, store, values):
-    """One efficiency_map run; returns (points, truth per plan index at the moment each point was committed)."""
+    """One efficiency_map run; returns (points, truth per plan index at the moment each point was committed, run id)."""
     truths = {}
 
     def progress(done, total, last):
@@ -78,7 +78,7 @@ def _run(emap, bench, station, store, values):
     assert outcome.status == "completed", outcome.message
     points = store.points(outcome.run_id)
     assert len(points) == len(emap.module.plan(params)) and len(truths) == len(points)
-    return points, truths
+    return points, truths, outcome.run_id
 
 
 def _check_against_truth(points, truths, iout_rated_a):
@@ -132,7 +132,7 @@ def test_realistic_clock_every_point_matches_the_truth_runs_agree(model, emap, s
     values = {"vin_v": [d.vin_min_v, d.vin_max_v], "load_pct": REALISTIC_LOADS_PCT}
     runs = []
     for _ in range(3 if model == "flyback-48v-5v" else 1):  # the buck's three runs: at the accelerated clock
-        points, truths = _run(emap, bench, station, benchctl_store, values)
+        points, truths, _ = _run(emap, bench, station, benchctl_store, values)
         _check_against_truth(points, truths, d.iout_rated_a)
         runs.append(points)
     _check_runs_agree(runs)
@@ -144,7 +144,7 @@ def test_realistic_clock_with_thermal_drift_matches_the_truth(model, emap, simul
     bench = _start(simulated_bench, model, time_scale=1.0, thermal_drift=True, reading_time_s=REALISTIC_READING_S)
     station = station_for(bench)
     d = bench.design
-    points, truths = _run(emap, bench, station, benchctl_store,
+    points, truths, _ = _run(emap, bench, station, benchctl_store,
                           {"vin_v": [d.vin_min_v, d.vin_max_v], "load_pct": REALISTIC_LOADS_PCT})
     _check_against_truth(points, truths, d.iout_rated_a)
 
@@ -158,8 +158,28 @@ def test_accelerated_clock_every_load_matches_the_truth(model, thermal_drift, em
     d = bench.design
     runs = []
     for _ in range(1 if thermal_drift else 3):
-        points, truths = _run(emap, bench, station, benchctl_store, {"vin_v": [d.vin_min_v, d.vin_max_v]})
+        points, truths, _ = _run(emap, bench, station, benchctl_store, {"vin_v": [d.vin_min_v, d.vin_max_v]})
         _check_against_truth(points, truths, bench.design.iout_rated_a)
         runs.append(points)
     if not thermal_drift:
         _check_runs_agree(runs)
+
+
+def test_drift_criterion_and_warm_up_when_asked(emap, simulated_bench, station_for, benchctl_store):
+    """With drift_window_s and warmup_s the map warms the parts at full load, then at each point waits
+    until the input power's regression change over the window is within the limit (IEC 62301:2011 5.3
+    style, from memory); points still match the truth at the parts' temperature of the moment."""
+    bench = _start(simulated_bench, "flyback-48v-5v", time_scale=50.0, thermal_drift=True)
+    station = station_for(bench)
+    t_before = bench.model.temperature_c()
+    values = {"vin_v": [48.0], "load_pct": [0.0, 50.0, 100.0], "warmup_s": 1.0, "drift_window_s": 0.2,
+              "drift_max_change_rel": 1e-3}
+    points, truths, run_id = _run(emap, bench, station, benchctl_store, values)
+    _check_against_truth(points, truths, bench.design.iout_rated_a)
+    assert bench.model.temperature_c() > t_before  # the warm-up and the run warmed the parts
+    for info in points["settle_info"]:
+        drift = info["drift"]
+        assert drift["stable"] is True and drift["change"] <= drift["limit"] and drift["window_s"] >= 0.2
+    events = benchctl_store.events(run_id)
+    warm = events[events["kind"] == "warm_up"]
+    assert len(warm) == 1 and "then stable" in warm.iloc[0]["message"]

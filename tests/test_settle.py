@@ -119,7 +119,7 @@ CASES = [
     ("first order, readings integrate one τ", 10.0, [(3.0, 0.02)], 0.02, 1e-4),
     ("first order, falling, 20 ms readings", 10.0, [(-8.0, 0.02)], 0.02, 1e-4),
     ("first order, quarter-τ readings", 10.0, [(3.0, 0.02)], 0.005, 5e-4),
-    ("fast large step on a slow small one", 10.0, [(3.0, 0.002), (0.3, 0.05)], 0.0, 1e-4),
+    ("fast large step on a slow small one", 10.0, [(3.0, 0.002), (0.3, 0.05)], 0.0005, 1e-4),
     ("same, 20 ms readings", 10.0, [(3.0, 0.002), (0.3, 0.05)], 0.02, 1e-4),
     ("slow tail 100x slower", 10.0, [(3.0, 0.002), (0.05, 0.2)], 0.02, 1e-4),
     ("light load, large relative step", 0.25, [(29.0, 0.02)], 0.02, 2e-5),
