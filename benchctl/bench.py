@@ -313,8 +313,9 @@ class Bench:
                 self.interlock.raise_if_tripped()
                 self._plan_index = k
                 yield point
-                self._done = k + 1  # progress counts planned points, however many records each makes
-                self._report()
+                if self._done < k + 1:  # a planned point that recorded nothing still counts as done
+                    self._done = k + 1
+                    self._report()
         finally:
             self._plan_index = None
 
@@ -355,6 +356,8 @@ class Bench:
         self.points_recorded += 1
         if self._plan_index is None:  # outside a sweep each record is a step of its own
             self._done += 1
+        else:  # progress counts planned points, however many records each makes
+            self._done = max(self._done, self._plan_index + 1)
         self._last_values = dict(values)
         self._report()
         return seq
