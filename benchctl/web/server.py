@@ -22,6 +22,7 @@ class RunningServer:
     port: int
     server: Any
     thread: threading.Thread
+    stopping: threading.Event
 
     @property
     def url(self) -> str:
@@ -29,8 +30,9 @@ class RunningServer:
         return f"http://{host}:{self.port}"
 
     def stop(self) -> None:
-        """Close the listening socket and every connection; waits for the thread."""
-        self.server.close()
+        """Stop serving: the server's own thread closes every connection and the listening
+        socket at its next turn (within a loop timeout); waits for it."""
+        self.stopping.set()
         self.thread.join(timeout=10)
 
 
@@ -45,9 +47,23 @@ def make_server(app: Any, host: str, port: int) -> Any:
 def start_in_thread(app: Any, host: str = "127.0.0.1", port: int = 0) -> RunningServer:
     """Serve ``app`` from a daemon thread; returns once the socket listens."""
     server = make_server(app, host, port)
-    thread = threading.Thread(target=server.run, name="benchctl-web", daemon=True)
+    stopping = threading.Event()
+
+    def serve() -> None:
+        # waitress's loop runs while it has sockets: turn it one step at a time and, when asked,
+        # close the keep-alive connections browsers hold and the listener from this same thread
+        sockets = server._map  # waitress's socket map (the one its run() loops over)
+        while not stopping.is_set():
+            server.asyncore.loop(timeout=0.1, map=sockets, use_poll=True, count=1)
+        for channel in list(sockets.values()):
+            if channel is not server:
+                channel.handle_close()
+        server.close()
+        server.task_dispatcher.shutdown()
+
+    thread = threading.Thread(target=serve, name="benchctl-web", daemon=True)
     thread.start()
-    return RunningServer(host, int(server.effective_port), server, thread)
+    return RunningServer(host, int(server.effective_port), server, thread, stopping)
 
 
 __all__ = ["THREADS", "RunningServer", "make_server", "start_in_thread"]
