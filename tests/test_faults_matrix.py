@@ -154,19 +154,15 @@ def test_queued_scpi_error(role, emap, clean_counts, simulated_bench, benchctl_s
     outcome, plan, committed = _run(emap, bench, benchctl_store,
                                     [f"scpi_error@{role}:after={_after(clean_counts, role)},code=-222"])
     assert plan.fired
-    if role in OUTPUT_STATE:
-        # -222 Data out of range (SCPI-1999 Vol. 2 §21.8, from memory): definitive, never retried.
-        assert outcome.status == "failed"
-        events = benchctl_store.events(outcome.run_id)
-        err = events[events["kind"] == "error"].iloc[0]
-        assert err["details"]["instrument"] == role and err["details"]["type"] == "ScpiError"
-        assert "-222" in err["message"] and err["details"]["command"]
-        # The failed setting was sent once, never repeated blindly.
-        assert bench.instruments[role].audit.commands().count(err["details"]["command"]) >= 1
-    else:
-        # The efficiency map sends a meter no setting, so the armed error is never triggered.
-        assert outcome.status == "completed", outcome.message
-        assert len(committed) == 6
+    # -222 Data out of range (SCPI-1999 Vol. 2 §21.8, from memory): definitive, never retried. Every role
+    # receives settings during the map (the meters an INIT per integration), so the error is read after one.
+    assert outcome.status == "failed", outcome.message
+    events = benchctl_store.events(outcome.run_id)
+    err = events[events["kind"] == "error"].iloc[0]
+    assert err["details"]["instrument"] == role and err["details"]["type"] == "ScpiError"
+    assert "-222" in err["message"] and err["details"]["command"]
+    # The failed setting was sent once, never repeated blindly.
+    assert bench.instruments[role].audit.commands().count(err["details"]["command"]) >= 1
     _nothing_lost(benchctl_store, outcome, committed)
     _outputs_off_or_recorded(bench, benchctl_store, outcome)
 
