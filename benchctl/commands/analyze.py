@@ -35,7 +35,7 @@ import math
 import sys
 from typing import Any
 
-from benchctl.cli import EXIT_BAD_INPUT, EXIT_OK
+from benchctl.exit_codes import EXIT_BAD_INPUT, EXIT_OK
 
 
 def add_analyze_arguments(subparsers: Any) -> argparse.ArgumentParser:

@@ -25,7 +25,7 @@ import json
 import math
 from typing import Any
 
-from benchctl.cli import EXIT_OK
+from benchctl.exit_codes import EXIT_OK
 
 _HANDLERS = "benchctl.commands.analyze_waveforms"
 

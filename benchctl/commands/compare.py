@@ -8,7 +8,7 @@ import json
 from rich.markup import escape
 from rich.table import Table
 
-from benchctl.cli import EXIT_OK
+from benchctl.exit_codes import EXIT_OK
 from benchctl.commands.console import console
 from benchctl.commands.stores import open_existing_store as _open
 from benchctl.errors import ConfigurationError

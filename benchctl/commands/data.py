@@ -11,7 +11,7 @@ from pathlib import Path
 from rich.markup import escape
 from rich.table import Table
 
-from benchctl.cli import EXIT_FAILED, EXIT_OK
+from benchctl.exit_codes import EXIT_FAILED, EXIT_OK
 from benchctl.commands.stores import open_existing_store as _open
 from benchctl.commands.console import Column, console, fitted_table, print_fitted
 from benchctl.commands.summary import print_run_summary

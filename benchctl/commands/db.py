@@ -25,7 +25,8 @@ from typing import Any
 from rich.markup import escape
 from rich.table import Table
 
-from benchctl.cli import EXIT_FAILED, EXIT_OK, default_db
+from benchctl.exit_codes import EXIT_FAILED, EXIT_OK
+from benchctl.locations import default_db
 from benchctl.commands.console import console
 from benchctl.commands.stores import existing_store_url as _existing
 

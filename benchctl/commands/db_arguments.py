@@ -8,7 +8,7 @@ from __future__ import annotations
 import argparse
 from typing import Any
 
-from benchctl.cli import DEFAULT_DB_ENV
+from benchctl.locations import DEFAULT_DB_ENV
 
 COMMANDS = ("db", "query", "export-runs", "import-runs")
 

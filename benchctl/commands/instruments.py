@@ -5,7 +5,7 @@ from __future__ import annotations
 import argparse
 import json
 
-from benchctl.cli import EXIT_INSTRUMENT, EXIT_OK
+from benchctl.exit_codes import EXIT_INSTRUMENT, EXIT_OK
 from benchctl.commands.console import Column, fitted_table, print_fitted
 from benchctl.errors import BenchctlError
 from benchctl.station import load_station

@@ -8,7 +8,7 @@ from pathlib import Path
 from rich.markup import escape
 from rich.table import Table
 
-from benchctl.cli import EXIT_BAD_INPUT, EXIT_FAILED, EXIT_INTERRUPTED, EXIT_NOT_CHECKED, EXIT_OK
+from benchctl.exit_codes import EXIT_BAD_INPUT, EXIT_FAILED, EXIT_INTERRUPTED, EXIT_NOT_CHECKED, EXIT_OK
 from benchctl.commands.console import console
 from benchctl.commands.run import _exit_code, print_plan, run_procedure
 from benchctl.commands.stores import open_store

@@ -6,7 +6,8 @@ import argparse
 
 from rich.markup import escape
 
-from benchctl.cli import DEFAULT_DB_ENV, EXIT_OK
+from benchctl.exit_codes import EXIT_OK
+from benchctl.locations import DEFAULT_DB_ENV
 from benchctl.commands.stores import open_existing_store
 
 

@@ -6,7 +6,7 @@ import argparse
 
 from rich.markup import escape
 
-from benchctl.cli import EXIT_FAILED, EXIT_NOT_CHECKED, EXIT_OK
+from benchctl.exit_codes import EXIT_FAILED, EXIT_NOT_CHECKED, EXIT_OK
 from benchctl.commands.console import console
 from benchctl.commands.stores import open_existing_store
 

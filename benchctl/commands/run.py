@@ -14,7 +14,7 @@ from rich.table import Table
 from rich.console import Group
 from rich.text import Text
 
-from benchctl.cli import EXIT_FAILED, EXIT_INTERRUPTED, EXIT_OK
+from benchctl.exit_codes import EXIT_FAILED, EXIT_INTERRUPTED, EXIT_OK
 from benchctl.commands.console import console, error_console, print_caution
 from benchctl.commands.stores import open_store
 from benchctl.commands.summary import print_run_summary

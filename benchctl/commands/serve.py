@@ -6,7 +6,7 @@ import argparse
 
 from rich.markup import escape
 
-from benchctl.cli import EXIT_OK
+from benchctl.exit_codes import EXIT_OK
 from benchctl.commands.console import console, error_console
 from benchctl.errors import ConfigurationError
 

@@ -9,7 +9,7 @@ from pathlib import Path
 from rich.markup import escape
 from rich.table import Table
 
-from benchctl.cli import EXIT_BAD_INPUT, EXIT_OK
+from benchctl.exit_codes import EXIT_BAD_INPUT, EXIT_OK
 from benchctl.commands.console import console, error_console, print_caution
 
 

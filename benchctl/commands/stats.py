@@ -13,7 +13,7 @@ import json
 import math
 from typing import Any
 
-from benchctl.cli import EXIT_OK
+from benchctl.exit_codes import EXIT_OK
 from benchctl.commands.console import Column, console, fitted_table, print_fitted
 from benchctl.commands.stores import open_existing_store
 
