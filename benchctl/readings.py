@@ -155,6 +155,16 @@ class ReadingStream:
             return out
 
     def stop(self) -> None:
+        """Stop reading: the readings in progress are finished; one that failed is raised here
+        (an instrument that answered garbage or not at all after the last :meth:`take` still
+        stops the run)."""
+        self._halt()
+        with self._cond:
+            error = self._error
+        if error is not None:
+            raise error
+
+    def _halt(self) -> None:
         self._stop.set()
         for t in self._threads:
             if t is not threading.current_thread():
@@ -163,8 +173,11 @@ class ReadingStream:
     def __enter__(self) -> "ReadingStream":
         return self
 
-    def __exit__(self, *exc: object) -> None:
-        self.stop()
+    def __exit__(self, exc_type: object, *exc: object) -> None:
+        if exc_type is None:
+            self.stop()
+        else:
+            self._halt()  # an error is already on its way: do not mask it
 
 
 class SimultaneousReader:

@@ -147,3 +147,27 @@ def test_meters_give_voltage_current_and_power_of_one_integration_at_the_same_mo
     for v, i, p in (("vin_v", "iin_a", "pin_w"), ("vout_v", "iout_a", "pout_w")):
         assert got.mean(p) == pytest.approx(got.mean(v) * got.mean(i), rel=1e-3)
     assert got.n == 3 and set(got.values) == {"vin_v", "iin_a", "pin_w", "vout_v", "iout_a", "pout_w"}
+
+
+def test_a_stream_reading_that_fails_after_the_last_take_is_raised_when_it_stops():
+    class Garbled(Exception):
+        pass
+
+    taken, failed = threading.Event(), threading.Event()
+    calls = []
+
+    def read():
+        calls.append(1)
+        if len(calls) >= 2:  # the second reading fails, after the consumer took the first
+            assert taken.wait(timeout=10.0)
+            failed.set()
+            raise Garbled("expected a number, got '#?'")
+        return 1.0
+
+    stream = SimultaneousReader().stream({"pin_w": read})
+    got = stream.take()
+    taken.set()
+    assert got["pin_w"] == [(pytest.approx(got["pin_w"][0][0]), 1.0)]
+    assert failed.wait(timeout=10.0)
+    with pytest.raises(Garbled, match="expected a number"):
+        stream.stop()
