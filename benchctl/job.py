@@ -31,6 +31,7 @@ from typing import Any, Mapping
 
 from benchctl.errors import ConfigurationError
 from benchctl.config_file import read_config_text
+from benchctl.run_status import RunStatus
 
 _JOB_KEYS = {"name", "description", "dut_part", "dut_revision", "dut_serial", "dut_serials", "unit_change"}
 _TEXT_KEYS = _JOB_KEYS - {"dut_serials"}
@@ -196,7 +197,7 @@ def estimate_duration(runs: Any, points: int) -> DurationEstimate:
 
     if runs is None or runs.empty:
         return DurationEstimate(points, None, None, 0)
-    done = runs[(runs["status"] == "completed") & (runs["n_points"] > 0) & runs["ended_utc"].notna()]
+    done = runs[(runs["status"] == RunStatus.COMPLETED) & (runs["n_points"] > 0) & runs["ended_utc"].notna()]
     if done.empty:
         return DurationEstimate(points, None, None, 0)
     per_point = [(e - s).total_seconds() / n for s, e, n in zip(done["started_utc"], done["ended_utc"], done["n_points"])]

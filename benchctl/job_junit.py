@@ -19,6 +19,7 @@ from typing import Any
 
 from benchctl.errors import ConfigurationError
 from benchctl.junit import junit_element
+from benchctl.run_status import RunStatus
 
 
 @dataclass(frozen=True)
@@ -54,7 +55,7 @@ def _suite(entry: JobEntry, job_id: int) -> ET.Element:
             suite.set("errors", "1")
             ET.SubElement(case, "error", {"type": "not_run", "message": f"{entry.procedure} was not run on unit "
                                           f"{entry.serial or '(no serial)'}: the job ended before it"})
-        elif entry.status != "completed":
+        elif entry.status != RunStatus.COMPLETED:
             suite.set("errors", "1")
             ET.SubElement(case, "error", {"type": "run_not_completed",
                                           "message": f"run {entry.run_id} is {entry.status!r}"

@@ -15,6 +15,7 @@ from dataclasses import dataclass
 import pandas as pd
 
 from benchctl.errors import StoreError
+from benchctl.run_status import RunStatus
 
 
 @dataclass(frozen=True)
@@ -97,14 +98,14 @@ def revision_runs(store: object, part: str, revision: str, *, expected: Iterable
             if these.empty:
                 missing.append(MissingEvidence(serial, procedure, "never_run", f"{procedure} was never run on {label}"))
                 continue
-            done = these[these["status"] == "completed"]
+            done = these[these["status"] == RunStatus.COMPLETED]
             last = these.iloc[-1]
-            if last["status"] == "running":
+            if last["status"] == RunStatus.RUNNING:
                 missing.append(MissingEvidence(serial, procedure, "running",
                                                f"run {int(last['run_id'])} of {procedure} on {label} is still running",
                                                int(last["run_id"])))
             if done.empty:
-                if last["status"] != "running":
+                if last["status"] != RunStatus.RUNNING:
                     missing.append(MissingEvidence(
                         serial, procedure, "not_completed",
                         f"no completed run of {procedure} on {label}: its latest, run {int(last['run_id'])}, "
@@ -112,8 +113,8 @@ def revision_runs(store: object, part: str, revision: str, *, expected: Iterable
                         int(last["run_id"])))
                 continue
             row = done.iloc[-1]
-            later = these[(these["started_utc"] > row["started_utc"]) & (these["status"] != "completed")
-                          & (these["status"] != "running")]
+            later = these[(these["started_utc"] > row["started_utc"]) & (these["status"] != RunStatus.COMPLETED)
+                          & (these["status"] != RunStatus.RUNNING)]
             if not later.empty:
                 bad = later.iloc[-1]
                 missing.append(MissingEvidence(

@@ -15,6 +15,7 @@ from benchctl.exit_codes import EXIT_FAILED, EXIT_OK
 from benchctl.commands.stores import open_existing_store as _open
 from benchctl.commands.console import Column, console, fitted_table, print_fitted
 from benchctl.commands.summary import print_run_summary
+from benchctl.run_status import RunStatus
 
 
 
@@ -193,12 +194,12 @@ def cmd_mark_interrupted(args: argparse.Namespace) -> int:
     with Store.open(url) as store:
         run_id = store.resolve_run(args.run)
         live = store.run_liveness(run_id)
-        if live.status != "running":
+        if live.status != RunStatus.RUNNING:
             how = " when the store was just opened (its process on this host is gone)" \
                 if run_id in store.recovered_runs else ""
             raise ConfigurationError(f"run {run_id} is {live.status}{how}, not running; nothing to mark. "
                                      + ("Resume it with `benchctl run --resume "
-                                        f"{run_id} --station FILE`" if live.status in ("interrupted", "tripped") else ""))
+                                        f"{run_id} --station FILE`" if live.status in (RunStatus.INTERRUPTED, RunStatus.TRIPPED) else ""))
         where = f"host {live.host}, pid {live.pid}"
         if live.this_host and live.process_alive:
             raise ConfigurationError(

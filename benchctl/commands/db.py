@@ -31,6 +31,7 @@ from benchctl.commands.console import console
 from benchctl.commands.stores import existing_store_url as _existing
 
 from benchctl.commands.db_arguments import add_db_arguments  # noqa: F401  (re-exported for tests)
+from benchctl.run_status import RunStatus
 
 
 # ---------------------------------------------------------------- helpers
@@ -145,7 +146,7 @@ def cmd_query(args: argparse.Namespace) -> int:
             return EXIT_OK
         points = store.efficiency_at(
             args.part, vin_v=args.vin_v, iout_a=args.iout_a, vin_tol_v=args.vin_tol_v, iout_tol_a=args.iout_tol_a,
-            status=None if args.any_status else "completed",
+            status=None if args.any_status else RunStatus.COMPLETED,
         )
         frame = points if args.points else summarize_by_revision(points)
         if args.json:

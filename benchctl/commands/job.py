@@ -13,6 +13,7 @@ from benchctl.commands.console import console
 from benchctl.commands.run import _exit_code, print_plan, run_procedure
 from benchctl.commands.stores import open_store
 from benchctl.errors import ConfigurationError
+from benchctl.run_status import RunStatus
 
 def _file_part(serial: str) -> str:
     """A serial as a piece of a file name (letters, digits, '-', '_', '.'; others become '_')."""
@@ -121,7 +122,7 @@ def cmd_job(args: argparse.Namespace) -> int:
                                             settle=not args.no_settle, job_id=job_id, on_begin=note)
                     code = _exit_code(outcome)
                     check, report = "—", None
-                    if step.limits_file is not None and outcome.status == "completed":
+                    if step.limits_file is not None and outcome.status == RunStatus.COMPLETED:
                         from benchctl.commands.check import check_run
 
                         junit = None
@@ -137,7 +138,7 @@ def cmd_job(args: argparse.Namespace) -> int:
                                  code))
                     entries.append(JobEntry(serial, n, procedure.name, outcome.run_id, outcome.status,
                                             outcome.message, report))
-                    if outcome.status == "interrupted":
+                    if outcome.status == RunStatus.INTERRUPTED:
                         stopped = f"run {outcome.run_id} was interrupted"
                         break  # the operator stopped it: do not start the next step
                 if stopped:

@@ -18,6 +18,7 @@ from benchctl.exit_codes import EXIT_FAILED, EXIT_INTERRUPTED, EXIT_OK
 from benchctl.commands.console import console, error_console, print_caution
 from benchctl.commands.stores import open_store
 from benchctl.commands.summary import print_run_summary
+from benchctl.run_status import RunStatus
 
 
 
@@ -103,9 +104,9 @@ def run_procedure(procedure, params, station, store, *, dut, operator: str | Non
 
 
 def _exit_code(outcome) -> int:
-    if outcome.status == "completed":
+    if outcome.status == RunStatus.COMPLETED:
         return EXIT_OK
-    if outcome.status == "interrupted":
+    if outcome.status == RunStatus.INTERRUPTED:
         return EXIT_INTERRUPTED
     return EXIT_FAILED
 
@@ -170,7 +171,7 @@ def _resume_target(args, store):
 
     run_id = store.resolve_run(args.resume)
     info = store.run(run_id)
-    if info.status == "running":
+    if info.status == RunStatus.RUNNING:
         from benchctl.store.transfer import running_refusal
 
         live = store.run_liveness(run_id)
@@ -178,7 +179,7 @@ def _resume_target(args, store):
             f"run {run_id} cannot be resumed: " + running_refusal(
                 run_id, info.host, info.pid, f"its last point or event was stored {live.silent_s:.0f} s ago; if it "
                 "is really running, wait for it to end") + ", then resume it")
-    if info.status not in ("interrupted", "tripped"):
+    if info.status not in (RunStatus.INTERRUPTED, RunStatus.TRIPPED):
         raise ConfigurationError(f"run {run_id} is {info.status}; only interrupted or tripped runs can be resumed")
     procedure = load_procedure(args.procedure or info.procedure)
     if procedure.source_sha256 != info.procedure_sha256:
@@ -226,7 +227,7 @@ def cmd_run(args: argparse.Namespace) -> int:
         if not args.json:
             console().print(f"data: {store.url}")
         code = _exit_code(outcome)
-        if args.limits and outcome.status == "completed":
+        if args.limits and outcome.status == RunStatus.COMPLETED:
             from benchctl.commands.check import check_run
 
             report = check_run(store, outcome.run_id, args.limits, junit_path=args.junit, print_table=not args.json)
@@ -261,7 +262,7 @@ def cmd_demo(args: argparse.Namespace) -> int:
             outcome = run_procedure(procedure, params, station, store, dut=DutInfo(part, "A", "SIM-0001"))
             _report_outcome(outcome, store, False)
             out.print(f"data: [bold]{store.url}[/] (run {outcome.run_id})")
-            if outcome.status == "completed":
+            if outcome.status == RunStatus.COMPLETED:
                 from benchctl.report import build_report
 
                 files = build_report(store, outcome.run_id)

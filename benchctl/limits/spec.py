@@ -12,6 +12,7 @@ from typing import Any, TypeGuard
 from benchctl.config_file import read_config_text
 from benchctl.errors import LimitsFileError
 from benchctl.units import unit_from_name
+from benchctl.run_status import RunStatus
 
 PASS = "pass"
 FAIL = "fail"
@@ -39,7 +40,7 @@ FILTER_REL_TOL = 1e-9
 FILTER_ABS_TOL = 1e-12
 
 #: Run status whose points cover the whole planned envelope.
-COMPLETED_STATUS = "completed"
+COMPLETED_STATUS = RunStatus.COMPLETED
 
 LOAD_PCT = "load_pct"
 RATED_CURRENT_PARAMETER = "iout_rated_a"

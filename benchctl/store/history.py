@@ -18,6 +18,7 @@ from benchctl.errors import StoreError
 
 from . import schema as s
 from .queries import _utc_series, list_runs
+from benchctl.run_status import RunStatus
 
 RUN_HISTORY_COLUMNS = (
     "run_id", "run_uuid", "started_utc", "ended_utc", "station", "host", "operator", "dut_part",
@@ -70,7 +71,7 @@ def efficiency_at(
     pin_name: str = "pin_w",
     pout_name: str = "pout_w",
     procedure: str | None = None,
-    status: str | None = "completed",
+    status: str | None = RunStatus.COMPLETED,
 ) -> pd.DataFrame:
     """Efficiency of every stored point of DUT part ``dut_part`` at one operating point.
 

@@ -36,6 +36,7 @@ from .records import ArrayData, RunInfo, RunStart
 from .transfer import CopyReport, copy_runs
 from .url import is_sqlite, is_sqlite_memory, mask_url, normalize_url, scrub
 from .writer import Writer
+from benchctl.run_status import RunStatus
 
 log = logging.getLogger(__name__)
 
@@ -493,7 +494,7 @@ class Store:
         pin_name: str = "pin_w",
         pout_name: str = "pout_w",
         procedure: str | None = None,
-        status: str | None = "completed",
+        status: str | None = RunStatus.COMPLETED,
     ) -> pd.DataFrame:
         """Efficiency Pout/Pin of every point of a DUT part at the operating point
         (``vin_v`` V, ``iout_a`` A), across stations and revisions

@@ -40,6 +40,7 @@ from .url import mask_secrets
 from benchctl.units import unit_from_name  # noqa: F401  (re-exported: documented here before)
 
 from .records import FINAL_STATUSES, RUNNING, RunStart, sha256_hex
+from benchctl.run_status import RunStatus
 
 log = logging.getLogger(__name__)
 
@@ -300,7 +301,7 @@ class Writer:
                 raise StoreError(f"run {run_id} is still running according to the store; if its process is gone "
                                  f"(another host, a renamed machine), mark it with `benchctl mark-interrupted {run_id}`"
                                  " first")
-            if row.status not in ("interrupted", "tripped"):
+            if row.status not in (RunStatus.INTERRUPTED, RunStatus.TRIPPED):
                 raise StoreError(f"run {run_id} is {row.status}; only interrupted or tripped runs can be resumed")
             now = self._clock()
             conn.execute(update(s.runs).where(s.runs.c.id == run_id).values(

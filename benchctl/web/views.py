@@ -17,6 +17,7 @@ from collections.abc import Sequence
 from typing import Any
 
 import pandas as pd
+from benchctl.run_status import RunStatus
 
 log = logging.getLogger(__name__)
 
@@ -24,7 +25,7 @@ RUNS_PER_STATION = 6
 #: One lock for every matplotlib render of the view (its rc settings are process-wide).
 RENDER_LOCK = threading.RLock()
 #: Run statuses of a night that did not deliver its evidence.
-_BAD_STATUSES = {"failed", "tripped"}
+_BAD_STATUSES = {RunStatus.FAILED, RunStatus.TRIPPED}
 
 
 def _utc(t: Any) -> str:
@@ -48,7 +49,7 @@ def stations_overview(store: Any, *, per_station: int = RUNS_PER_STATION) -> dic
         lst = stations.setdefault(r.station, [])
         if len(lst) < per_station:
             lst.append(row)
-        if r.status == "running":
+        if r.status == RunStatus.RUNNING:
             running.append({**row, "station": r.station})
     revisions = []
     if not runs.empty:
@@ -199,7 +200,7 @@ def trend_values(store: Any, part: str, quantity: str) -> pd.DataFrame:
     point, value, expanded_uncertainty, started_utc; revisions in order of first run."""
     from benchctl.unit_statistics import point_text
 
-    runs = store.runs(dut_part=part, status="completed")
+    runs = store.runs(dut_part=part, status=RunStatus.COMPLETED)
     rows = []
     if runs.empty:
         return pd.DataFrame(columns=["revision", "serial", "run_id", "point", "value", "expanded_uncertainty",
@@ -221,7 +222,7 @@ def trend_values(store: Any, part: str, quantity: str) -> pd.DataFrame:
 
 def trend_quantities(store: Any, part: str) -> list[str]:
     """Result names found in the latest completed run of each procedure of ``part``."""
-    runs = store.runs(dut_part=part, status="completed")
+    runs = store.runs(dut_part=part, status=RunStatus.COMPLETED)
     names: list[str] = []
     for run_id in runs.groupby("procedure").head(1)["run_id"]:
         res = store.results(int(run_id))
