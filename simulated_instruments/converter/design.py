@@ -212,6 +212,26 @@ class ThermalPath:
 
 
 @dataclass(frozen=True)
+class StartUpSettings:
+    """How the converter starts (model seconds, farads).
+
+    input_capacitance_f: the DUT's input capacitance, charged through the cable and the
+    source's current limit when the source switches on (the inrush).  start_delay_s: from
+    the input crossing the UVLO on threshold to the start of switching (controller bias
+    and enable).  soft_start_s: duration of the linear ramp of the reference from zero to
+    its final value; the output follows it unless the converter's current limit cannot
+    charge the output capacitance (and any capacitive load) that fast.
+    load_min_v: below this output voltage the electronic load's current collapses in
+    proportion (a bench load's minimum operating voltage, ~0.5-1 V, common practice).
+    """
+
+    input_capacitance_f: float = 10e-6
+    start_delay_s: float = 2e-3
+    soft_start_s: float = 8e-3
+    load_min_v: float = 0.5
+
+
+@dataclass(frozen=True)
 class FaultSettings:
     """Parameters of the injectable faults.
 
@@ -246,6 +266,7 @@ class ConverterDesign:
     bench: BenchWiring
     faults: FaultSettings = field(default_factory=lambda: FaultSettings(0.0, 0.0))
     thermal: ThermalPath = field(default_factory=ThermalPath)
+    start_up: StartUpSettings = field(default_factory=StartUpSettings)
 
     def __post_init__(self) -> None:
         problems: list[str] = []
@@ -264,7 +285,9 @@ class ConverterDesign:
                              ("soft_start_tau_s", self.bench.soft_start_tau_s),
                              ("input_filter_tau_s", self.bench.input_filter_tau_s),
                              ("r_th_k_per_w", self.thermal.r_th_k_per_w),
-                             ("c_th_j_per_k", self.thermal.c_th_j_per_k)):
+                             ("c_th_j_per_k", self.thermal.c_th_j_per_k),
+                             ("input_capacitance_f", self.start_up.input_capacitance_f),
+                             ("soft_start_s", self.start_up.soft_start_s)):
             if not value > 0.0:
                 problems.append(f"{label} must be > 0, got {value!r}")
         if problems:

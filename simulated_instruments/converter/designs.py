@@ -27,6 +27,9 @@
     with PM ≈ 63–66°; DCM crossover a few kHz with PM ≈ 55–105°.  Bench: input-filter τ 5 ms;
     hot parts 10 K/W and 10 J/K (τ = 100 s), ≈ +15 K at full load.
 
+Start-up (``StartUpSettings``): flyback 10 µF input, 2 ms from UVLO on to switching, 8 ms
+soft start; buck 44 µF input, 0.5 ms delay, 2 ms soft start.
+
 Error-amplifier gain: the op-amps are given a deliberately modest open-loop gain
 (56 dB flyback, 50 dB buck).  With the usual 80–90 dB the static regulation error
 D·Vm/(A0·H) would be a few microvolts and line regulation would vanish below what a
@@ -38,7 +41,7 @@ from __future__ import annotations
 import math
 
 from .design import (BenchWiring, Control, ConverterDesign, FaultSettings, LossCoefficients, Parasitics,
-                     PowerStage, Protection, ThermalPath, Type3Network)
+                     PowerStage, Protection, StartUpSettings, ThermalPath, Type3Network)
 
 FLYBACK_48V_5V = ConverterDesign(
     name="flyback-48v-5v",
@@ -63,6 +66,7 @@ FLYBACK_48V_5V = ConverterDesign(
                       soft_start_tau_s=0.050, input_filter_tau_s=0.020),
     faults=FaultSettings(overheat_rate_w_per_s=0.05, overheat_max_w=5.0),
     thermal=ThermalPath(r_th_k_per_w=12.0, c_th_j_per_k=15.0),
+    start_up=StartUpSettings(input_capacitance_f=10e-6, start_delay_s=2e-3, soft_start_s=8e-3),
 )
 
 BUCK_12V_1V2 = ConverterDesign(
@@ -88,6 +92,7 @@ BUCK_12V_1V2 = ConverterDesign(
                       soft_start_tau_s=0.010, input_filter_tau_s=0.005),
     faults=FaultSettings(overheat_rate_w_per_s=0.05, overheat_max_w=2.0),
     thermal=ThermalPath(r_th_k_per_w=10.0, c_th_j_per_k=10.0),
+    start_up=StartUpSettings(input_capacitance_f=44e-6, start_delay_s=0.5e-3, soft_start_s=2e-3),
 )
 
 DESIGNS: dict[str, ConverterDesign] = {d.name: d for d in (FLYBACK_48V_5V, BUCK_12V_1V2)}

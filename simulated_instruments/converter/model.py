@@ -46,6 +46,7 @@ from .load_response import ImpedanceExcess, LoadRamp
 from .margins import LoopTruth, loop_margins
 from .operating_point import (FAULT_NAMES, BenchPoint, LoadMode, LoadSetting, OperatingPoint, SourceSetting,
                               solve_bench, solve_dut)
+from .start_up import StartUp, StartUpInputs
 from .small_signal import RationalTF, closed_loop_output_impedance, control_chain, plant_gvd, plant_zout_open
 from .thermal import ThermalState
 
@@ -121,7 +122,7 @@ class _Segment:
     """
 
     t0_s: float
-    transient: Transient
+    transient: Transient | StartUp
     bench: BenchPoint
     source: SourceSetting
     load: LoadSetting
@@ -169,6 +170,7 @@ class ConverterModel:
         self._load_slew_a_per_s = DEFAULT_LOAD_SLEW_A_PER_S
         self._faults: dict[str, float] = {}
         self._running = False
+        self._extra_output_c_f = 0.0
         t = self.clock.now_s()
         self._thermal = ThermalState(design.thermal, t, enabled=thermal_drift)
         self._cache: tuple[float, float, BenchPoint] | None = None
@@ -206,6 +208,31 @@ class ConverterModel:
                 self._load_slew_a_per_s = float(slew_a_per_s)
             self._load = load
             self._event("load", f"{mode} {setting:g}, {'on' if enabled else 'off'}")
+
+    def set_output_capacitance(self, capacitance_f: float) -> None:
+        """Capacitance added at the output terminals by the fixture (a capacitive load), F (≥ 0).
+
+        It matters while the output moves on its own (a start: C·dV/dt drawn from the
+        converter); it draws no DC current and is not part of the loop's small-signal model.
+        """
+        if not (math.isfinite(capacitance_f) and capacitance_f >= 0.0):
+            raise SettingError(f"set_output_capacitance: capacitance_f={capacitance_f!r} must be a finite value >= 0 F")
+        with self._lock:
+            self._extra_output_c_f = float(capacitance_f)
+
+    @property
+    def output_capacitance_f(self) -> float:
+        """Output capacitance a start charges: the design's bank plus the fixture's, F."""
+        with self._lock:
+            return self.design.stage.c_out_f + self._extra_output_c_f
+
+    def start_up_truth(self) -> StartUp | None:
+        """The start in force (its UVLO crossing, switching start, inputs), or None; for tests."""
+        with self._lock:
+            for seg in reversed(self._segments):
+                if isinstance(seg.transient, StartUp):
+                    return seg.transient
+            return None
 
     def inject_fault(self, name: str) -> None:
         """Start a fault: "feedback_open", "output_short" or "overheat"."""
@@ -581,20 +608,40 @@ class ConverterModel:
         self._cache = None
         bench = self._solve(t, was_running)
         self._running = bench.op.running
-        transient: Transient | None = None
+        transient: Transient | StartUp | None = None
         if (what in ("source", "load") and was_running and prev.bench.op.state == "regulating"
                 and bench.op.state == "regulating" and self._recovered(prev.transient, t)):
             transient = self._regulated(t, present, prev, bench)
         if transient is None:
-            if self._running and not was_running:
-                tau = self.design.bench.soft_start_tau_s
-            elif self._running and isinstance(prev.transient, Relaxation) and not self._recovered(prev.transient, t):
-                tau = prev.transient.tau_s        # a change during a start continues the start
+            if self._running and not was_running and not self._faults:
+                transient = self._start_up(t, present, bench)
             else:
-                tau = self.design.bench.settle_tau_s
-            transient = Relaxation(t, tau, present, _vector(bench))
+                if self._running and not was_running:
+                    tau = self.design.bench.soft_start_tau_s
+                elif (self._running and isinstance(prev.transient, (Relaxation, StartUp))
+                      and not self._recovered(prev.transient, t)):
+                    tau = prev.transient.tau_s        # a change during a start continues the start
+                else:
+                    tau = self.design.bench.settle_tau_s
+                transient = Relaxation(t, tau, present, _vector(bench))
         self._segments.append(_Segment(t, transient, bench, self._source, self._load, tuple(sorted(self._faults))))
         log.debug("%s at t=%.6f s: %s -> state %s (%s)", what, t, detail, bench.op.state, type(transient).__name__)
+
+    def _start_up(self, t: float, present: tuple[float, ...], bench: BenchPoint) -> StartUp:
+        d = self.design
+        op = bench.op
+        pin = bench.input_v * bench.input_a
+        eff = op.vout_v * op.iout_a / pin if pin > 0.0 else 1.0
+        inputs = StartUpInputs(
+            source_v=self._source.voltage_v, source_limit_a=self._source.current_limit_a,
+            cable_r_ohm=d.bench.cable_r_ohm, c_in_f=d.start_up.input_capacitance_f, v_in0_v=present[INPUT_V],
+            uvlo_on_v=d.protection.uvlo_on_v, delay_s=d.start_up.start_delay_s, soft_start_s=d.start_up.soft_start_s,
+            v_out0_v=present[OUTPUT_V], c_out_f=d.stage.c_out_f + self._extra_output_c_f,
+            converter_limit_a=d.protection.current_limit_a, load_mode=self._load.mode,
+            load_setting=self._load.setting, load_enabled=self._load.enabled, load_min_v=d.start_up.load_min_v,
+            efficiency=min(max(eff, 0.05), 1.0), bleed_ohm=d.losses.input_bleed_ohm,
+            settle_tau_s=d.bench.settle_tau_s, input_tau_s=d.bench.input_filter_tau_s)
+        return StartUp(t, inputs, present, _vector(bench))
 
     @staticmethod
     def _recovered(transient: Transient, t_s: float) -> bool:
