@@ -10,6 +10,7 @@ problem; 4 a run that could not be checked against its limits; 130 interrupted.
 from __future__ import annotations
 
 import argparse
+from typing import Any
 import sys
 
 from benchctl.exit_codes import (  # noqa: F401  (re-exported while commands move to benchctl.exit_codes)
@@ -43,6 +44,17 @@ def build_parser() -> argparse.ArgumentParser:
     parser.add_argument("-v", "--verbose", action="count", default=0, help="log more (-vv: every SCPI exchange)")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
 
+    _add_bench_commands(sub)
+    _add_review_commands(sub)
+    _add_demo_command(sub)
+    _add_data_commands(sub)
+    _add_analysis_and_db_commands(sub)
+    _add_report_commands(sub)
+    return parser
+
+
+def _add_bench_commands(sub: Any) -> None:
+    """Sim, instruments, run, job: driving a station."""
     p = sub.add_parser("sim", help="serve a simulated bench (converter model + SCPI instruments) on 127.0.0.1")
     p.add_argument("--model", default="flyback-48v-5v", help="converter model (see --list-models)")
     p.add_argument("--list-models", action="store_true", help="list the converter models and exit")
@@ -111,6 +123,9 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--no-settle", action="store_true", help="skip settling waits (dry runs)")
     p.add_argument("--operator", default=None, help="operator name (default: the login name)")
 
+
+def _add_review_commands(sub: Any) -> None:
+    """Compare, compare-revisions, stats, revision, serve: reviewing results."""
     p = sub.add_parser("compare", help="compare two runs of the same procedure point by point")
     p.add_argument("run_a", help="run id (the reference) or 'latest'")
     p.add_argument("run_b", help="run id (the new one) or 'latest'")
@@ -169,6 +184,9 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--limits", action="append", default=[], metavar="FILE",
                    help="limits files for the revision pages' verdicts and capability (repeatable)")
 
+
+def _add_demo_command(sub: Any) -> None:
+    """Demo: the main job on a simulated bench."""
     p = sub.add_parser("demo", help="run the efficiency map on a simulated bench started in-process")
     p.add_argument("--model", default="flyback-48v-5v", help="converter model")
     _add_db(p)
@@ -177,6 +195,9 @@ def build_parser() -> argparse.ArgumentParser:
 
     sub.add_parser("procedures", help="list the bundled procedures and their parameters")
 
+
+def _add_data_commands(sub: Any) -> None:
+    """Runs, mark-interrupted, show, export: reading the store."""
     p = sub.add_parser("runs", help="list stored runs")
     _add_db(p)
     p.add_argument("--status", default=None, help="only runs with this status")
@@ -215,6 +236,9 @@ def build_parser() -> argparse.ArgumentParser:
                         "a Bode CSV feeds `benchctl analyze loop-gain`")
     p.add_argument("--seq", type=int, default=None, metavar="N", help="with --array: the point it belongs to")
 
+
+def _add_analysis_and_db_commands(sub: Any) -> None:
+    """Analyze (files a user brings) and the database commands."""
     from benchctl.commands.analyze import add_analyze_arguments  # light: argparse only
 
     add_analyze_arguments(sub)
@@ -222,6 +246,9 @@ def build_parser() -> argparse.ArgumentParser:
 
     add_db_arguments(sub)
 
+
+def _add_report_commands(sub: Any) -> None:
+    """Report, check: the run report and spec limits."""
     p = sub.add_parser("report", help="write a run's HTML report with its PNG plots")
     p.add_argument("run", help="run id or 'latest'")
     p.add_argument("--out", metavar="DIR", default=None,
@@ -234,7 +261,6 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--junit", default=None, metavar="FILE.xml", help="also write JUnit XML here")
     _add_db(p)
     p.add_argument("--json", action="store_true", help="print the report as JSON instead of a table")
-    return parser
 
 
 def _configure_logging(verbose: int) -> None:
