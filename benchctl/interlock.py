@@ -5,9 +5,10 @@ reading is checked as it comes back (see :mod:`benchctl.guarded`, which wraps th
 drivers). While any output is on, a background watch reads the DUT's input and output
 every ``watch_period_s``:
 
-* its readings are never retried and must answer within ``watch_deadline_s`` of the
-  start of the period (default: the period, at least 0.25 s), whatever the driver is
-  doing for the procedure (a retry chain does not hold the watch up);
+* its readings are never retried, and each period is decided ``watch_deadline_s`` after
+  it started (default: the period, at least 0.5 s) whatever the driver is doing for the
+  procedure (a retry chain does not hold the watch up); a reading that answers later is
+  still checked against its limit;
 * instruments are read in parallel (one thread each), so a hung meter delays nothing else;
 * each watched quantity has every source the station offers — the input from the input
   meter and the source's own read-back, the output voltage from the output meter and
@@ -21,7 +22,9 @@ through :meth:`Interlock.power_down`, a trip, a termination signal, a failure): 
 **source goes off first**, then, with the source confirmed off, the load stays on until
 the DUT output has fallen below :attr:`Interlock.DISCHARGE_FRACTION` of the station's
 ``dut_output_voltage_max_v`` (at most :attr:`Interlock.DISCHARGE_MAX_S`), and **then the
-load goes off**. Why this order: with the source off first no energy enters the DUT any
+load goes off**. A station with several sources and loads (open roles of those kinds) ends
+the same way: every source off, every load kept on until the output it reads back is
+discharged (all within that one wait), then every load off. Why this order: with the source off first no energy enters the DUT any
 more, and the still-loaded converter runs down its input capacitors to its under-voltage
 lockout while the load drains the output capacitors — the bench ends with the least
 stored energy. The other order unloads a converter that is still powered: its output
@@ -57,13 +60,15 @@ logger = logging.getLogger(__name__)
 #: Defaults of the station options (``[station]`` keys of the same names).
 DEFAULT_WATCH_MISSED_PERIODS = 3
 DEFAULT_SHUTDOWN_DEADLINE_S = 0.5
-#: The smallest default watch deadline (s): loopback exchanges take ~1 ms, but a loaded
-#: machine can stall a process for tens of ms; the station may set its own.
-MIN_DEFAULT_WATCH_DEADLINE_S = 0.25
+#: The smallest default watch deadline (s): an integrating reading takes a power-line cycle
+#: or more (20 ms at 50 Hz), two of one instrument wait for each other and for the
+#: procedure's, and a loaded machine stalls a process for tens of ms; the station may set
+#: its own (an instrument with a long aperture needs more).
+MIN_DEFAULT_WATCH_DEADLINE_S = 0.5
 
 
 def default_watch_deadline_s(watch_period_s: float) -> float:
-    """The watch deadline when the station gives none: the period, at least 0.25 s."""
+    """The watch deadline when the station gives none: the period, at least 0.5 s."""
     return max(float(watch_period_s), MIN_DEFAULT_WATCH_DEADLINE_S)
 
 
@@ -88,6 +93,9 @@ class WatchSource:
 
     instrument: str
     read: Callable[[float], Any]
+    #: For a check that the instrument answers at all: ``time.monotonic()`` of its last
+    #: answer to anyone (a procedure's exchange shows it alive too), or None.
+    answered_at: Callable[[], float] | None = None
 
 
 @dataclass
@@ -97,6 +105,18 @@ class _Watched:
     required: bool
     misses: int = 0
     last_error: str = ""
+
+
+def _named_outputs(outputs: Any, default_name: str) -> list[tuple[str, Any]]:
+    """``attach_outputs``'s argument as (name, driver) pairs in order."""
+    if outputs is None:
+        return []
+    if isinstance(outputs, dict):
+        return [(str(name), d) for name, d in outputs.items() if d is not None]
+    if isinstance(outputs, (list, tuple)):
+        return [(str(getattr(d, "name", "") or f"{default_name}{k}"), d) for k, d in enumerate(outputs, 1)
+                if d is not None]
+    return [(default_name, outputs)]
 
 
 class _Missed(Exception):
@@ -169,10 +189,9 @@ class Interlock:
         self._trip_event = threading.Event()
         self._lock = threading.RLock()
         self._shutdown_lock = threading.Lock()
-        self._source: Any = None
-        self._load: Any = None
-        self._source_on = False
-        self._load_on = False
+        self._sources: list[tuple[str, Any]] = []  # (role, raw driver), in shutdown order
+        self._loads: list[tuple[str, Any]] = []
+        self._on: dict[str, bool] = {}  # output name -> on
         self._watched: list[_Watched] = []
         self._watch_thread: threading.Thread | None = None
         self._workers: dict[str, _Worker] = {}
@@ -185,9 +204,14 @@ class Interlock:
     # -- wiring --------------------------------------------------------------------
 
     def attach_outputs(self, source: Any | None, load: Any | None) -> None:
-        """The raw drivers the shutdown turns off (source first, then load)."""
-        self._source = source
-        self._load = load
+        """The raw drivers the shutdown turns off: every source first, then every load.
+
+        Each of ``source`` and ``load`` is one driver (named ``source`` / ``load``), None,
+        a mapping role -> driver, or a sequence of drivers (named by their ``name``); the
+        order given is the order they go off in.
+        """
+        self._sources = _named_outputs(source, "source")
+        self._loads = _named_outputs(load, "load")
 
     def watch(self, name: str, sources: Sequence[WatchSource], *, required: bool = True) -> None:
         """Watch quantity ``name`` through ``sources`` (any one answering in time is enough).
@@ -199,29 +223,34 @@ class Interlock:
             raise ValueError(f"watched quantity {name!r} needs at least one source")
         self._watched.append(_Watched(name, tuple(sources), required))
 
-    def output_state_changed(self, *, source_on: bool | None = None, load_on: bool | None = None) -> None:
+    def output_switched(self, name: str, on: bool) -> None:
+        """Output ``name`` (a role) was switched on or off: the watch runs while any is on."""
         with self._lock:
-            if source_on is not None:
-                self._source_on = source_on
-            if load_on is not None:
-                self._load_on = load_on
+            self._on[name] = bool(on)
         self._outputs_changed.set()
+
+    def output_state_changed(self, *, source_on: bool | None = None, load_on: bool | None = None) -> None:
+        """The outputs named ``source`` and ``load`` switched (see :meth:`output_switched`)."""
+        if source_on is not None:
+            self.output_switched("source", source_on)
+        if load_on is not None:
+            self.output_switched("load", load_on)
 
     @property
     def any_output_on(self) -> bool:
-        return self._source_on or self._load_on
+        with self._lock:
+            return any(self._on.values())
 
     @property
     def outputs(self) -> list[tuple[str, Any]]:
-        """The outputs in shutdown order: (name, driver), source first."""
-        return [(name, d) for name, d in (("source", self._source), ("load", self._load)) if d is not None]
+        """The outputs in shutdown order: (name, driver), every source first, then every load."""
+        return [*self._sources, *self._loads]
 
     @property
     def shutdown_budget_s(self) -> float:
         """The longest one shutdown takes (s): each output's deadline and the discharge wait."""
         n = len(self.outputs)
-        return n * self.shutdown_deadline_s + (self.DISCHARGE_MAX_S if self._source is not None and
-                                               self._load is not None else 0.0)
+        return n * self.shutdown_deadline_s + (self.DISCHARGE_MAX_S if self._sources and self._loads else 0.0)
 
     # -- checks --------------------------------------------------------------------
 
@@ -324,53 +353,73 @@ class Interlock:
         return steps
 
     def _off_pass(self, *, emergency: bool) -> list[str]:
-        """Source off, then the output discharged through the load, then the load off."""
+        """Every source off, then the output(s) discharged through the loads, then every load off."""
         steps: list[str] = []
-        outputs = [(name, d) for name, d in self.outputs if getattr(d, "is_open", False)]
+        sources = [(name, d) for name, d in self._sources if getattr(d, "is_open", False)]
+        loads = [(name, d) for name, d in self._loads if getattr(d, "is_open", False)]
         if emergency:
-            for _, driver in outputs:
+            for _, driver in [*sources, *loads]:
                 try:
                     driver.stop_retries()
                 except Exception as exc:  # a lab's driver without it: the deadline still bounds us
                     logger.debug("stop_retries: %s", exc)
-        source_off: bool | None = None  # None: no source on this station
-        for name, driver in outputs:
-            if name == "source":
-                source_off = False
-            elif source_off is not None:
-                steps.append(self._discharge(driver) if source_off else
-                             "output discharge skipped: the source is not confirmed off")
-            try:
-                how = driver.output_off_now(deadline_s=self.shutdown_deadline_s)
-            except Exception as exc:  # keep going: the next output must still go off
-                logger.error("could not switch the %s off: %s", name, exc)
-                steps.append(f"{name} off confirmation FAILED: {exc}")
-                continue
-            steps.append(f"{name} off confirmed: {how}")
-            if name == "source":
-                source_off = True
-            self.output_state_changed(**{"source_on" if name == "source" else "load_on": False})
+        sources_off = all([self._off(name, driver, steps) for name, driver in sources])
+        if sources and loads:  # no source on this station: nothing to wait for
+            if sources_off:
+                steps.extend(self._discharge(loads))
+            else:
+                steps.append("output discharge skipped: the source is not confirmed off" if len(sources) == 1 else
+                             "output discharge skipped: not every source is confirmed off")
+        for name, driver in loads:
+            self._off(name, driver, steps)
         return steps
 
-    def _discharge(self, load: Any) -> str:
-        """Keep the load on until the DUT output is discharged (or DISCHARGE_MAX_S passed)."""
+    def _off(self, name: str, driver: Any, steps: list[str]) -> bool:
+        """One output off, read back, bounded; the step appended; True when confirmed."""
+        try:
+            how = driver.output_off_now(deadline_s=self.shutdown_deadline_s)
+        except Exception as exc:  # keep going: the next output must still go off
+            logger.error("could not switch the %s off: %s", name, exc)
+            steps.append(f"{name} off confirmation FAILED: {exc}")
+            return False
+        steps.append(f"{name} off confirmed: {how}")
+        self.output_switched(name, False)
+        return True
+
+    def _discharge(self, loads: list[tuple[str, Any]]) -> list[str]:
+        """Keep every load on until the DUT output it reads back is discharged; all of them within
+        DISCHARGE_MAX_S in total. One step per load (its name given when there are several)."""
         threshold_v = self.DISCHARGE_FRACTION * self.limits.dut_output_voltage_max_v
         started = time.monotonic()
         end = started + self.DISCHARGE_MAX_S
-        value = math.nan
-        while True:
-            left = end - time.monotonic()
-            if left <= 0:
-                return (f"output discharge: still {value:.3g} V after {self.DISCHARGE_MAX_S:g} s "
-                        f"(> {threshold_v:.3g} V); the load goes off anyway")
-            try:
-                value = float(load.query_float_now("measure_voltage", deadline_s=min(left, self.shutdown_deadline_s)))
-            except Exception as exc:
-                return f"output discharge not watched: the load's voltage read-back failed ({exc})"
-            if abs(value) <= threshold_v:
-                return (f"output discharge: {value:.3g} V (<= {threshold_v:.3g} V) "
-                        f"{(time.monotonic() - started) * 1e3:.0f} ms after the source went off")
-            time.sleep(min(self.DISCHARGE_POLL_S, max(0.0, end - time.monotonic())))
+        pending = {name: math.nan for name, _ in loads}
+        drivers = dict(loads)
+        steps: dict[str, str] = {}
+        named = len(loads) > 1
+        while pending:
+            for name in list(pending):
+                left = end - time.monotonic()
+                who = f" at {name}" if named else ""
+                if left <= 0:
+                    steps[name] = (f"output discharge{who}: still {pending[name]:.3g} V after "
+                                   f"{self.DISCHARGE_MAX_S:g} s (> {threshold_v:.3g} V); the load goes off anyway")
+                    del pending[name]
+                    continue
+                try:
+                    value = float(drivers[name].query_float_now("measure_voltage",
+                                                                deadline_s=min(left, self.shutdown_deadline_s)))
+                except Exception as exc:
+                    steps[name] = f"output discharge{who} not watched: the load's voltage read-back failed ({exc})"
+                    del pending[name]
+                    continue
+                pending[name] = value
+                if abs(value) <= threshold_v:
+                    steps[name] = (f"output discharge{who}: {value:.3g} V (<= {threshold_v:.3g} V) "
+                                   f"{(time.monotonic() - started) * 1e3:.0f} ms after the source went off")
+                    del pending[name]
+            if pending:
+                time.sleep(min(self.DISCHARGE_POLL_S, max(0.0, end - time.monotonic())))
+        return [steps[name] for name, _ in loads]
 
     # -- waiting and watching ------------------------------------------------------
 
@@ -415,12 +464,24 @@ class Interlock:
                 self._outputs_changed.clear()
                 continue
             started = self.clock()
-            self._watch_period(started + self.watch_deadline_s)
+            self._watch_period(started, started + self.watch_deadline_s)
             if self._stop_watch.is_set() or self._trip is not None or self._stop is not None:
                 return
             self._stop_watch.wait(max(0.0, started + self.watch_period_s - self.clock()))
 
-    def _watch_period(self, deadline_at: float) -> None:
+    @staticmethod
+    def _answered_since(item: _Watched, t_s: float) -> bool:
+        """An "it answers" check whose instrument answered someone since ``t_s`` (only timeouts missed)."""
+        for source in item.sources:
+            if source.answered_at is not None:
+                try:
+                    if source.answered_at() >= t_s:
+                        return True
+                except Exception:
+                    pass
+        return False
+
+    def _watch_period(self, period_started: float, deadline_at: float) -> None:
         """One period: every instrument read in parallel until ``deadline_at``; count the misses."""
         results: dict[tuple[int, int], BaseException | None] = {}
         by_instrument: dict[str, list[tuple[int, int, WatchSource]]] = {}
@@ -449,7 +510,7 @@ class Interlock:
             outcomes = [snapshot.get((i, k), _Missed(f"instrument {s.instrument}: no answer within the watch deadline "
                                                       f"of {self.watch_deadline_s:g} s"))
                         for k, s in enumerate(item.sources)]
-            if any(o is None for o in outcomes):
+            if any(o is None for o in outcomes) or self._answered_since(item, period_started):
                 item.misses = 0
                 continue
             real = [o for o in outcomes if not isinstance(o, _Missed)]

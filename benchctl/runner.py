@@ -330,18 +330,27 @@ MUST_ANSWER = ("source", "load")
 
 
 def _arm_watch(interlock: Interlock, bench: Bench, drivers: Mapping[str, Any]) -> None:
-    """What the background watch reads: the DUT input (input meter and the source's read-back),
-    the DUT output (output meter and the load's read-back), and every instrument's power-on
-    status (a reset stops the run; a source or load that stops answering trips it)."""
+    """What the background watch reads: every instrument's power-on status (first: it is quick;
+    a reset stops the run; a source or load that answers nobody trips it), the DUT input
+    (input meter and the source's read-back) and the DUT output (output meter and the load's
+    read-back)."""
+    for role, d in drivers.items():
+        check = getattr(d, "check_power_on_now", None)
+        if callable(check):
+            interlock.watch(f"{role} power-on status",
+                            [WatchSource(role, _bounded(check), answered_at=_last_answer(d))],
+                            required=role in MUST_ANSWER)
     for name, roles, quantity in WATCHED:
         sources = [bench.role(role).watch_source(quantity) for role in roles if bench.has_role(role)]
         if sources:
             interlock.watch(name, sources)
-    for role, d in drivers.items():
-        check = getattr(d, "check_power_on_now", None)
-        if callable(check):
-            interlock.watch(f"{role} power-on status", [WatchSource(role, _bounded(check))],
-                            required=role in MUST_ANSWER)
+
+
+def _last_answer(driver: Any) -> Callable[[], float]:
+    """When ``driver``'s instrument last answered anyone (``time.monotonic()``; 0 if unknown)."""
+    def last() -> float:
+        return float(getattr(driver, "last_answer_s", 0.0))
+    return last
 
 
 def _bounded(check: Callable[..., Any]) -> Callable[[float], Any]:
