@@ -12,8 +12,11 @@ the boundary where they happen, and chained with ``raise ... from exc``.
     │   ├── StationFileError
     │   ├── ParameterError
     │   ├── LimitsFileError
-    │   └── StationChangedError     a resume on a station other than the run's record
-    ├── InstrumentError             anything an instrument did or failed to do
+    │   ├── StationChangedError     a resume on a station other than the run's record
+    │   └── CalibrationOverdueError an instrument past its calibration due date (station refuses)
+    ├── UsageError                  a caller's bad argument to benchctl's API (also a ValueError)
+    ├── InstrumentError             anything an instrument did or failed to do; ``instrument``,
+    │   │                           ``command`` and ``detail`` are attributes, the message is made of them
     │   ├── InstrumentConnectionError   resource unreachable, connection dropped
     │   ├── InstrumentTimeout           no answer within the timeout
     │   ├── InstrumentResponseError     an answer that cannot be parsed
@@ -64,20 +67,60 @@ class StationChangedError(ConfigurationError):
     """A resume was asked on a station whose limits or instruments differ from the run's record."""
 
 
-class InstrumentError(BenchctlError):
-    """An instrument failed; names the instrument and the command where known."""
+class CalibrationOverdueError(ConfigurationError):
+    """An instrument's calibration is past due and the station says ``calibration_overdue = "refuse"``."""
 
-    def __init__(self, message: str, *, instrument: str = "", command: str = "") -> None:
+
+class UsageError(BenchctlError, ValueError):
+    """A caller passed an argument the API does not accept (a negative scale, an unknown mode).
+
+    The fault is the calling code's (a procedure, a script), not the bench's: nothing was
+    sent. It is also a :class:`ValueError`, so code written against the standard library's
+    convention for a bad value still catches it.
+    """
+
+
+class InstrumentError(BenchctlError):
+    """An instrument failed: ``detail`` says what, ``instrument`` and ``command`` where (when known).
+
+    The message is built from the three attributes each time it is shown, so context added
+    later (:meth:`located`) never has to be cut out of a text again.
+    """
+
+    def __init__(self, detail: str, *, instrument: str = "", command: str = "") -> None:
+        self.detail = detail
         self.instrument = instrument
         self.command = command
+        super().__init__(detail)
+
+    def __str__(self) -> str:
         where = []
-        if instrument:
-            where.append(f"instrument {instrument}")
-        if command:
-            where.append(f"command {command!r}")
-        if where:
-            message = f"{', '.join(where)}: {message}"
-        super().__init__(message)
+        if self.instrument:
+            where.append(f"instrument {self.instrument}")
+        if self.command:
+            where.append(f"command {self.command!r}")
+        return f"{', '.join(where)}: {self.detail}" if where else self.detail
+
+    def located(self, *, detail: str | None = None, instrument: str | None = None,
+                command: str | None = None) -> "InstrumentError":
+        """A copy of this error (same class and extra attributes) with the given fields replaced."""
+        new = self.__class__.__new__(self.__class__)
+        new.__dict__.update(self.__dict__)
+        new.detail = self.detail if detail is None else detail
+        new.instrument = self.instrument if instrument is None else instrument
+        new.command = self.command if command is None else command
+        Exception.__init__(new, new.detail)
+        return new
+
+    def __reduce__(self) -> tuple[object, ...]:  # picklable although the extra fields are keywords
+        return (_rebuild_instrument_error, (self.__class__, dict(self.__dict__)))
+
+
+def _rebuild_instrument_error(cls: type[InstrumentError], state: dict[str, object]) -> InstrumentError:
+    new = cls.__new__(cls)
+    new.__dict__.update(state)
+    Exception.__init__(new, state.get("detail", ""))
+    return new
 
 
 class InstrumentConnectionError(InstrumentError):

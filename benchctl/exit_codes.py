@@ -32,15 +32,17 @@ EXIT_INTERRUPTED = ExitCode.INTERRUPTED
 def exit_code_for_error(exc: BaseException) -> ExitCode:
     """The exit code of a command that ended with ``exc`` (the only such map in benchctl).
 
-    Configuration and procedure errors are the user's input (2); instrument and store
+    Configuration and procedure errors, and a caller's bad argument (:class:`UsageError`), are
+    the user's input (2); instrument and store
     errors are trouble with the bench or the database (3); an interrupt is 130; any other
     benchctl error is treated as bad input (2) and anything else as a failure (1).
     """
-    from benchctl.errors import BenchctlError, ConfigurationError, InstrumentError, ProcedureError, StoreError
+    from benchctl.errors import (BenchctlError, ConfigurationError, InstrumentError, ProcedureError, StoreError,
+                                 UsageError)
 
     if isinstance(exc, KeyboardInterrupt):
         return ExitCode.INTERRUPTED
-    if isinstance(exc, (ConfigurationError, ProcedureError)):
+    if isinstance(exc, (ConfigurationError, ProcedureError, UsageError)):
         return ExitCode.BAD_INPUT
     if isinstance(exc, (InstrumentError, StoreError)):
         return ExitCode.INSTRUMENT

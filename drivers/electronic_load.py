@@ -15,6 +15,7 @@ from __future__ import annotations
 import math
 from typing import ClassVar, Literal
 
+from benchctl.errors import UsageError
 from drivers.scpi_driver import ScpiDriver
 
 LoadMode = Literal["CC", "CR"]
@@ -57,7 +58,7 @@ class ElectronicLoad(ScpiDriver):
 
     def set_mode(self, mode: LoadMode) -> None:
         if mode not in _MODE_WORDS:
-            raise ValueError(f"load mode must be 'CC' or 'CR', not {mode!r}")
+            raise UsageError(f"load mode must be 'CC' or 'CR', not {mode!r}")
         self.write("set_mode", mode=_MODE_WORDS[mode])
 
     def mode(self) -> LoadMode:
@@ -113,11 +114,11 @@ class ElectronicLoad(ScpiDriver):
         """Program the dynamic mode: levels A (start) and B in A, edge slew in A/s,
         ``single`` (one step per :meth:`trigger_step`) or ``continuous`` at ``frequency_hz``."""
         if mode not in ("single", "continuous"):
-            raise ValueError(f"transient mode must be 'single' or 'continuous', not {mode!r}")
+            raise UsageError(f"transient mode must be 'single' or 'continuous', not {mode!r}")
         if not (math.isfinite(slew_a_per_s) and slew_a_per_s > 0):
-            raise ValueError(f"slew_a_per_s must be a positive number of A/s, got {slew_a_per_s!r}")
+            raise UsageError(f"slew_a_per_s must be a positive number of A/s, got {slew_a_per_s!r}")
         if mode == "continuous" and not (frequency_hz is not None and frequency_hz > 0):
-            raise ValueError("continuous mode needs a positive frequency_hz")
+            raise UsageError("continuous mode needs a positive frequency_hz")
         self.write("set_transient_a", value=level_a_a)
         self.write("set_transient_b", value=level_b_a)
         self.write("set_transient_slew", value=slew_a_per_s)

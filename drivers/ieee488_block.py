@@ -28,7 +28,7 @@ from typing import Literal
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
-from benchctl.errors import InstrumentError, InstrumentResponseError
+from benchctl.errors import InstrumentResponseError, UsageError
 
 MAX_PAYLOAD_BYTES = 999_999_999
 """The largest payload a 9-digit count can describe."""
@@ -51,7 +51,7 @@ def encode_definite_block(payload: bytes) -> bytes:
     An empty payload encodes as ``b"#10"``.
     """
     if len(payload) > MAX_PAYLOAD_BYTES:
-        raise InstrumentError(
+        raise UsageError(
             f"payload of {len(payload)} bytes is longer than a definite-length block can describe "
             f"({MAX_PAYLOAD_BYTES} bytes); send it in parts"
         )
@@ -130,7 +130,7 @@ def decode_samples(
     if dtype not in SAMPLE_DTYPES:
         raise InstrumentResponseError(f"unsupported sample type {dtype!r}; use one of {', '.join(SAMPLE_DTYPES)}")
     if byte_order not in ("little", "big"):
-        raise InstrumentResponseError(f"byte_order must be 'little' or 'big', got {byte_order!r}")
+        raise UsageError(f"byte_order must be 'little' or 'big', got {byte_order!r}")
     dt = np.dtype(dtype).newbyteorder("<" if byte_order == "little" else ">")
     if len(payload) % dt.itemsize:
         raise InstrumentResponseError(
@@ -138,6 +138,23 @@ def decode_samples(
             f"({dt.itemsize} bytes each); check the waveform format setting"
         )
     return np.frombuffer(bytes(payload), dtype=dt)
+
+
+_TIME_AXIS: dict[tuple[int, float, float, float], NDArray[np.float64]] = {}
+
+
+def _time_axis(n: int, x_increment: float, x_origin: float, x_reference: float) -> NDArray[np.float64]:
+    """Read-only sample times; the channels of one acquisition share one array (the last one kept)."""
+    key = (n, x_increment, x_origin, x_reference)
+    t = _TIME_AXIS.get(key)
+    if t is None:
+        t = np.arange(n, dtype=np.float64)
+        t *= x_increment
+        t += x_origin - x_reference * x_increment
+        t.setflags(write=False)
+        _TIME_AXIS.clear()
+        _TIME_AXIS[key] = t
+    return t
 
 
 def scale_waveform(
@@ -156,11 +173,12 @@ def scale_waveform(
     t[i] = x_origin + (i − x_reference)·x_increment;
     v[i] = y_origin + (code[i] − y_reference)·y_increment (common practice).
     ``raw`` holds int8/uint8/int16/uint16/float32/float64 codes; arithmetic is float64
-    so integer codes cannot overflow.
+    so integer codes cannot overflow. Both arrays are read-only; records of the same
+    length and timing share one time array. The oscilloscope driver scales with this.
     """
     codes = np.asarray(raw)
     if codes.ndim != 1:
-        raise InstrumentResponseError(f"waveform samples must be a 1-D array, got shape {codes.shape}")
+        raise UsageError(f"waveform samples must be a 1-D array, got shape {codes.shape}")
     if codes.dtype.name not in SAMPLE_DTYPES:
         raise InstrumentResponseError(
             f"unsupported sample type {codes.dtype.name!r}; use one of {', '.join(SAMPLE_DTYPES)}"
@@ -177,9 +195,13 @@ def scale_waveform(
             raise InstrumentResponseError(f"preamble value {name} is not finite ({value!r}); re-read the preamble")
     if not x_increment > 0:
         raise InstrumentResponseError(f"preamble x_increment must be positive seconds, got {x_increment!r}")
-    idx = np.arange(codes.size, dtype=np.float64)
-    t = x_origin + (idx - x_reference) * x_increment
-    values = y_origin + (codes.astype(np.float64) - y_reference) * y_increment
-    t.setflags(write=False)
+    t = _time_axis(codes.size, float(x_increment), float(x_origin), float(x_reference))
+    values = codes.astype(np.float64)  # a new array: scaled in place, in as few passes as the preamble needs
+    if y_reference != 0.0:
+        values -= y_reference
+    if y_increment != 1.0:
+        values *= y_increment
+    if y_origin != 0.0:
+        values += y_origin
     values.setflags(write=False)
     return Waveform(t_s=t, values=values, unit=unit)

@@ -16,9 +16,10 @@ with a timeout of ``sweep_timeout_factor`` × the instrument's own sweep-time es
 ordinary I/O timeout and a hung one is still caught.
 
 Binary transfer: ``FORM REAL,64`` data are read as an IEEE 488.2 definite-length block
-(§8.7.9): the two header bytes, then the count digits, then exactly the byte count with
-``read_bytes`` — never through the newline read-termination path, because float64
-payloads contain 0x0A bytes. ``NORMal`` byte order is big-endian, ``SWAPped`` little.
+(§8.7.9) by the session layer's one block reader (:meth:`ScpiDriver.read_block`: header,
+then exactly the byte count, never through the newline read-termination path, because
+float64 payloads contain 0x0A bytes). ``NORMal`` byte order is big-endian, ``SWAPped``
+little. A bad argument raises :class:`benchctl.errors.UsageError` before anything is sent.
 """
 
 from __future__ import annotations
@@ -27,14 +28,14 @@ import logging
 import math
 import time
 from dataclasses import dataclass
-from typing import Callable, ClassVar, Literal, Sequence
+from typing import Any, Callable, ClassVar, Literal, Sequence
 
 import numpy as np
 from numpy.typing import NDArray
 
-from benchctl.errors import InstrumentError, InstrumentResponseError, InstrumentStateError, InstrumentTimeout
-from drivers.ieee488_block import block_length, decode_samples, header_length
-from drivers.scpi_driver import ScpiDriver
+from benchctl.errors import InstrumentResponseError, InstrumentStateError, InstrumentTimeout, UsageError
+from drivers.ieee488_block import decode_samples
+from drivers.scpi_driver import OptionSpec, ScpiDriver
 
 logger = logging.getLogger(__name__)
 
@@ -60,12 +61,12 @@ class InjectionProfile:
         f = tuple(float(x) for x in self.freq_hz)
         a = tuple(float(x) for x in self.amplitude_v)
         if not f or len(f) != len(a):
-            raise InstrumentError(
+            raise UsageError(
                 f"injection profile: give as many amplitudes as frequencies (got {len(f)} and {len(a)})")
         if any(not (math.isfinite(x) and x > 0) for x in f + a):
-            raise InstrumentError("injection profile: frequencies and amplitudes must be finite and > 0")
+            raise UsageError("injection profile: frequencies and amplitudes must be finite and > 0")
         if any(y <= x for x, y in zip(f, f[1:])):
-            raise InstrumentError(f"injection profile: frequencies {f} must be strictly increasing")
+            raise UsageError(f"injection profile: frequencies {f} must be strictly increasing")
         object.__setattr__(self, "freq_hz", f)
         object.__setattr__(self, "amplitude_v", a)
 
@@ -142,10 +143,17 @@ class LoopAnalyzer(ScpiDriver):
     clock: Callable[[], float] = staticmethod(time.monotonic)
     sleep: Callable[[float], None] = staticmethod(time.sleep)
 
-    def __init__(self, resource: str, **kwargs) -> None:
+    OPTIONS: ClassVar[dict[str, OptionSpec]] = {
+        "sweep_timeout_factor": OptionSpec(1.5, 1.0, 100.0, help="wait for a sweep: factor x its estimated time"),
+        "poll_interval_s": OptionSpec(0.02, 0.001, 10.0, help="status polling period of a sweep wait, s"),
+        "injection_max_v": OptionSpec(None, 1e-6, 100.0, help="largest injection amplitude allowed, V peak; "
+                                                             "without it a fifth of dut_output_voltage_max_v"),
+    }
+
+    def __init__(self, resource: str, **kwargs: Any) -> None:
         super().__init__(resource, **kwargs)
-        self.sweep_timeout_factor = float(self.options.get("sweep_timeout_factor", 1.5))
-        self.poll_interval_s = float(self.options.get("poll_interval_s", 0.02))
+        self.sweep_timeout_factor = float(self.option("sweep_timeout_factor"))
+        self.poll_interval_s = float(self.option("poll_interval_s"))
         self.data_format: DataFormat = "real64"
         self.byte_order: Literal["big", "little"] = "big"
         self.inverted = False
@@ -156,12 +164,11 @@ class LoopAnalyzer(ScpiDriver):
     def set_sweep(self, start_hz: float, stop_hz: float, points: int, spacing: Spacing = "log") -> None:
         """Sweep from ``start_hz`` to ``stop_hz`` (Hz) in ``points`` points, log or linear spaced."""
         if not (0 < start_hz < stop_hz):
-            raise InstrumentError(f"sweep start {start_hz:g} Hz must be > 0 and below stop {stop_hz:g} Hz",
-                                  instrument=self.name)
+            raise UsageError(f"sweep start {start_hz:g} Hz must be > 0 and below stop {stop_hz:g} Hz")
         if int(points) < 2:
-            raise InstrumentError(f"a sweep needs at least 2 points, not {points}", instrument=self.name)
+            raise UsageError(f"a sweep needs at least 2 points, not {points}")
         if spacing not in self.SPACING_WORDS:
-            raise InstrumentError(f"spacing {spacing!r} must be 'log' or 'linear'", instrument=self.name)
+            raise UsageError(f"spacing {spacing!r} must be 'log' or 'linear'")
         self.write("set_start", value=float(start_hz))
         self.write("set_stop", value=float(stop_hz))
         self.write("set_points", value=int(points))
@@ -193,8 +200,7 @@ class LoopAnalyzer(ScpiDriver):
     def set_data_format(self, data_format: DataFormat = "real64", byte_order: Literal["big", "little"] = "big") -> None:
         """How traces travel: ``real64`` (binary block) or ``ascii``; byte order of the block."""
         if data_format not in self.FORMAT_WORDS or byte_order not in self.BYTE_ORDER_WORDS:
-            raise InstrumentError(f"data format {data_format!r}/{byte_order!r}: use real64|ascii and big|little",
-                                  instrument=self.name)
+            raise UsageError(f"data format {data_format!r}/{byte_order!r}: use real64|ascii and big|little")
         self.data_format, self.byte_order = data_format, byte_order
 
     def _send_format(self) -> None:
@@ -238,7 +244,7 @@ class LoopAnalyzer(ScpiDriver):
             self.wait_complete(timeout_s=limit)
             return
         if method != "poll":
-            raise InstrumentError(f"wait method {method!r} must be 'opc' or 'poll'", instrument=self.name)
+            raise UsageError(f"wait method {method!r} must be 'opc' or 'poll'")
         deadline = self.clock() + limit
         while self.sweep_running():
             if self.clock() > deadline:
@@ -288,29 +294,3 @@ class LoopAnalyzer(ScpiDriver):
                 f"expected {expected} values, got {values.size}; the trace changed while it was read - "
                 "fetch again after the sweep completes", instrument=self.name, command=text)
         return values
-
-    def read_block(self, text: str) -> bytes:
-        """Send query ``text`` and read its definite-length block answer byte-exactly."""
-        with self._lock:
-            session = self._require_session()
-            self.last_command = text
-            logger.debug("%s <- %s", self.name, text)
-            try:
-                session.write(text)
-                head = bytes(session.read_bytes(2))
-                head += bytes(session.read_bytes(header_length(head) - 2))
-                total = block_length(head)
-                payload = bytes(session.read_bytes(total - len(head))) if total > len(head) else b""
-                terminator = bytes(session.read_bytes(1))
-            except InstrumentError as exc:
-                if not exc.instrument:
-                    raise type(exc)(f"{exc}", instrument=self.name, command=text) from exc
-                raise
-            except Exception as exc:
-                raise self._translate(exc, text) from exc
-            logger.debug("%s -> block of %d bytes", self.name, len(payload))
-        if terminator != b"\n":
-            raise InstrumentResponseError(
-                f"expected the response terminator after the block, got {terminator!r}; the byte count "
-                "and the data disagree", instrument=self.name, command=text)
-        return payload

@@ -9,28 +9,29 @@ time of the screen centre after the trigger.
 
 Waveform transfer: the preamble (``TRACe:PREamble?``: bits, points, x_increment,
 x_origin, x_reference, y_increment, y_origin, y_reference, msb_first, unit) and the
-samples as an IEEE 488.2 definite-length block (IEEE 488.2-1992 §8.7.9). The block is
-read as its header then exactly its byte count with read termination cleared for the
-duration of the read: a read that stops at every newline byte inside binary data would
-cost one VISA read per such byte. On a pyvisa-py raw socket (``TCPIP::…::SOCKET``) the
-counted payload is received straight from the session's socket into one buffer (after
-what pyvisa-py had already buffered), which keeps a 100k-point transfer within 2x of a
-bare socket read (``benchmarks/waveform_transfer.py``); other backends use ``read_bytes``. Scaling with the preamble formula of :func:`drivers.ieee488_block.scale_waveform`.
+samples as an IEEE 488.2 definite-length block (IEEE 488.2-1992 §8.7.9), read by the
+session layer's one block reader (:meth:`drivers.session.VisaSession.read_block`: header,
+then exactly the byte count; on a pyvisa-py raw socket its fast path, preamble and block
+in one round trip). Scaling with the preamble formula of
+:func:`drivers.ieee488_block.scale_waveform`. A bad argument (channel, scale, mode)
+raises :class:`benchctl.errors.UsageError` before anything is sent.
 """
 
 from __future__ import annotations
 
 import logging
 import sys
+import time
+from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any, ClassVar, Literal
 
 import numpy as np
 from numpy.typing import NDArray
 
-from benchctl.errors import BenchctlError, InstrumentResponseError, InstrumentStateError, InstrumentTimeout
-from drivers.ieee488_block import block_length, decode_samples, header_length
-from drivers.scpi_driver import ScpiDriver
+from benchctl.errors import BenchctlError, InstrumentResponseError, InstrumentStateError, InstrumentTimeout, UsageError
+from drivers.ieee488_block import decode_samples, scale_waveform
+from drivers.scpi_driver import OptionSpec, ScpiDriver
 
 logger = logging.getLogger(__name__)
 
@@ -97,113 +98,6 @@ class ScopeWaveform:
         return self.clipped_samples > 0
 
 
-def _large_socket_reads(session: Any, size: int = 1 << 20) -> None:
-    """Let the pyvisa-py raw-socket session receive up to ``size`` bytes per recv (it uses
-    4 KiB by default, i.e. a hundred system calls for a 400 kB waveform). Other backends and
-    interfaces are left as they are."""
-    try:
-        backend = session.visalib.sessions[session.session]
-        if hasattr(backend, "max_recv_size") and type(backend).__name__ == "TCPIPSocketSession":
-            backend.max_recv_size = max(int(backend.max_recv_size), size)
-    except Exception as exc:  # not pyvisa-py, or not a socket: nothing to tune
-        logger.debug("receive size not changed: %s", exc)
-
-
-def _socket_of(session: Any) -> tuple[Any, Any] | None:
-    """(backend session, socket) of a pyvisa-py raw-socket session, or None for anything else."""
-    import socket
-
-    try:
-        backend = session.visalib.sessions[session.session]
-    except Exception:
-        return None
-    sock = getattr(backend, "interface", None)
-    if isinstance(sock, socket.socket) and isinstance(getattr(backend, "_pending_buffer", None), bytearray):
-        return backend, sock
-    return None
-
-
-def _recv_exactly(backend: Any, sock: Any, count: int, timeout_s: float, prefix: bytearray) -> bytearray:
-    """``count`` bytes: first what pyvisa-py has already buffered (``prefix``), then straight from the socket."""
-    import select
-    import time
-
-    out = bytearray(count)
-    have = min(len(prefix), count)
-    out[:have] = prefix[:have]
-    backend._pending_buffer = bytearray(prefix[have:])
-    view = memoryview(out)
-    deadline = time.monotonic() + timeout_s
-    while have < count:
-        left = deadline - time.monotonic()
-        if left <= 0:
-            raise TimeoutError(f"{count - have} of {count} block bytes did not arrive within {timeout_s:g} s")
-        ready, _, _ = select.select([sock], [], [], min(left, 1.0))
-        if not ready:
-            continue
-        n = sock.recv_into(view[have:], count - have)
-        if n == 0:
-            raise ConnectionError("the instrument closed the connection in the middle of a block")
-        have += n
-    return out
-
-
-def _recv_until(backend: Any, sock: Any, done: Any, timeout_s: float) -> bytearray:
-    """Bytes from pyvisa-py's buffer and then the socket until ``done(buffer)`` is true."""
-    import select
-    import time
-
-    buf = bytearray(backend._pending_buffer)
-    backend._pending_buffer = bytearray()
-    deadline = time.monotonic() + timeout_s
-    while not done(buf):
-        left = deadline - time.monotonic()
-        if left <= 0:
-            raise TimeoutError(f"the answer was incomplete after {timeout_s:g} s ({bytes(buf[:60])!r}...)")
-        ready, _, _ = select.select([sock], [], [], min(left, 1.0))
-        if ready:
-            chunk = sock.recv(65536)
-            if not chunk:
-                raise ConnectionError("the instrument closed the connection in the middle of an answer")
-            buf += chunk
-    return buf
-
-
-_TIME_CACHE: dict[tuple[int, float, float, float], NDArray[np.float64]] = {}
-
-
-def _time_axis(pre: WaveformPreamble, n: int) -> NDArray[np.float64]:
-    """Read-only sample times of a record; the channels of one acquisition share one array."""
-    key = (n, pre.x_increment_s, pre.x_origin_s, pre.x_reference)
-    t = _TIME_CACHE.get(key)
-    if t is None:
-        t = np.arange(n, dtype=np.float64)
-        t *= pre.x_increment_s
-        t += pre.x_origin_s - pre.x_reference * pre.x_increment_s
-        t.setflags(write=False)
-        _TIME_CACHE.clear()
-        _TIME_CACHE[key] = t
-    return t
-
-
-def _scale(codes: NDArray[Any], pre: WaveformPreamble) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
-    """t[i] = x_origin + (i − x_reference)·x_increment; v[i] = y_origin + (code[i] − y_reference)·y_increment
-    (the preamble formula of :func:`drivers.ieee488_block.scale_waveform`, in fewer array passes)."""
-    for name in ("x_increment_s", "x_origin_s", "x_reference", "y_increment", "y_origin", "y_reference"):
-        if not np.isfinite(getattr(pre, name)):
-            raise InstrumentResponseError(f"preamble value {name} is not finite; re-read the preamble")
-    if not pre.x_increment_s > 0:
-        raise InstrumentResponseError(f"preamble x_increment must be positive seconds, got {pre.x_increment_s!r}")
-    t = _time_axis(pre, codes.size)
-    v = codes.astype(np.float64)
-    if (pre.y_increment, pre.y_origin, pre.y_reference) != (1.0, 0.0, 0.0):
-        v -= pre.y_reference
-        v *= pre.y_increment
-        v += pre.y_origin
-    v.setflags(write=False)
-    return t, v
-
-
 class Oscilloscope(ScpiDriver):
     """A digitizing oscilloscope with ``channels`` inputs (4 by default; station option ``channels``)."""
 
@@ -235,24 +129,29 @@ class Oscilloscope(ScpiDriver):
         "get_preamble": "TRAC:PRE? {channel}",
         "get_data": "TRAC? {channel}",
         "set_fixture_capacitance": "FIXT:CAP {value:.6g}",
+        "get_done": "INIT:DONE?",
+        "set_fixture_probe": "FIXT:PROB{channel} {word}",
+        "set_fixture_load_capacitance": "FIXT:LOAD:CAP {value:.6g}",
+    }
+    #: Probe words of the simulated DUT fixture, by signal name.
+    FIXTURE_PROBES: ClassVar[dict[str, str]] = {
+        "vout": "VOUT", "drain": "DRA", "switch_current": "ISW", "output_current": "IOUT", "gate": "GATE",
+        "vin": "VIN", "input_current": "IIN"}
+
+    OPTIONS: ClassVar[dict[str, OptionSpec]] = {
+        "channels": OptionSpec(4, 1, 64, whole=True, help="number of input channels"),
     }
 
     def __init__(self, resource: str, **kwargs: Any) -> None:
         super().__init__(resource, **kwargs)
-        self.channels = int(self.options.get("channels", 4))
+        self.channels = int(self.option("channels"))
         self._acquired = False
-
-    def open(self) -> "Oscilloscope":
-        """Open the session (see :meth:`ScpiDriver.open`) and let block reads take large chunks."""
-        super().open()
-        _large_socket_reads(self._session)
-        return self
 
     # -- helpers -------------------------------------------------------------------
 
     def _channel(self, channel: int) -> int:
         if not (isinstance(channel, int) and 1 <= channel <= self.channels):
-            raise ValueError(f"channel must be 1..{self.channels}, got {channel!r}")
+            raise UsageError(f"channel must be 1..{self.channels}, got {channel!r}")
         return channel
 
     # -- vertical ------------------------------------------------------------------
@@ -263,7 +162,7 @@ class Oscilloscope(ScpiDriver):
     def set_scale(self, channel: int, per_div: float) -> None:
         """Vertical scale in V/div (A/div on a current probe); full scale is 10 divisions."""
         if not per_div > 0:
-            raise ValueError(f"vertical scale must be positive, got {per_div!r}")
+            raise UsageError(f"vertical scale must be positive, got {per_div!r}")
         self.write("set_range", channel=self._channel(channel), value=per_div * DIVISIONS)
 
     def scale(self, channel: int) -> float:
@@ -284,7 +183,7 @@ class Oscilloscope(ScpiDriver):
 
     def set_coupling(self, channel: int, coupling: Coupling) -> None:
         if coupling not in ("AC", "DC"):
-            raise ValueError(f"coupling must be 'AC' or 'DC', not {coupling!r}")
+            raise UsageError(f"coupling must be 'AC' or 'DC', not {coupling!r}")
         self.write("set_coupling", channel=self._channel(channel), coupling=coupling)
 
     def set_bandwidth_limit(self, channel: int, limit_hz: float | None) -> None:
@@ -294,7 +193,7 @@ class Oscilloscope(ScpiDriver):
             self.write("set_bw_limit", channel=ch, state="OFF")
             return
         if not limit_hz > 0:
-            raise ValueError(f"bandwidth limit must be positive Hz or None, got {limit_hz!r}")
+            raise UsageError(f"bandwidth limit must be positive Hz or None, got {limit_hz!r}")
         self.write("set_bw_limit_freq", channel=ch, value=limit_hz)
         self.write("set_bw_limit", channel=ch, state="ON")
 
@@ -310,7 +209,7 @@ class Oscilloscope(ScpiDriver):
     def set_timebase(self, scale_s_per_div: float, *, position_s: float = 0.0, points: int | None = None) -> None:
         """Horizontal scale (s/div, 10 divisions), screen centre ``position_s`` after the trigger, record length."""
         if not scale_s_per_div > 0:
-            raise ValueError(f"timebase scale must be positive seconds, got {scale_s_per_div!r}")
+            raise UsageError(f"timebase scale must be positive seconds, got {scale_s_per_div!r}")
         if points is not None:
             self.write("set_points", value=int(points))
         self.write("set_record_time", value=scale_s_per_div * DIVISIONS)
@@ -336,9 +235,9 @@ class Oscilloscope(ScpiDriver):
         else:
             word = f"CH{self._channel(source)}"
         if slope not in _SLOPES:
-            raise ValueError(f"slope must be one of {', '.join(_SLOPES)}, not {slope!r}")
+            raise UsageError(f"slope must be one of {', '.join(_SLOPES)}, not {slope!r}")
         if mode not in ("normal", "auto"):
-            raise ValueError(f"trigger mode must be 'normal' or 'auto', not {mode!r}")
+            raise UsageError(f"trigger mode must be 'normal' or 'auto', not {mode!r}")
         self.write("set_trigger_source", source=word)
         self.write("set_trigger_level", value=level)
         self.write("set_trigger_slope", slope=_SLOPES[slope])
@@ -364,12 +263,41 @@ class Oscilloscope(ScpiDriver):
             self.arm()
             self.wait_acquired(timeout_s)
 
+    def wait_triggered(self, timeout_s: float, *, poll_s: float = 0.005,
+                       clock: Callable[[], float] = time.monotonic,
+                       sleep: Callable[[float], None] = time.sleep) -> None:
+        """Wait for a single-shot acquisition armed with :meth:`arm` to trigger and complete.
+
+        Polls ``INIT:DONE?`` (the instrument stays free to answer anything else) every
+        ``poll_s`` until ``timeout_s`` (s, from ``clock``) has passed; then aborts the
+        acquisition and raises :class:`InstrumentTimeout`, so a trigger that never comes
+        ends cleanly instead of holding the session in ``*OPC?``.
+        """
+        if not timeout_s > 0:
+            raise UsageError(f"timeout_s must be positive seconds, got {timeout_s!r}")
+        deadline = clock() + timeout_s
+        while True:
+            if self.query_bool("get_done"):
+                self._acquired = True
+                return
+            if clock() >= deadline:
+                break
+            sleep(poll_s)
+        try:
+            self.abort()
+        except BenchctlError as exc:  # the timeout is the news; a failed abort only adds to it
+            logger.warning("%s: abort after the trigger timeout failed: %s", self.name, exc)
+        raise InstrumentTimeout(
+                f"no trigger within {timeout_s:g} s: the single-shot acquisition was aborted; check the "
+                "trigger source, level and slope against the signal, or give a longer timeout",
+                instrument=self.name, command=self.command("get_done"))
+
     # -- transfer ------------------------------------------------------------------
 
     def set_data_format(self, fmt: DataFormat = "int16") -> None:
         """Sample format of transfers, in this computer's byte order (no byte swapping on decode)."""
         if fmt not in _FORMATS:
-            raise ValueError(f"data format must be one of {', '.join(_FORMATS)}, not {fmt!r}")
+            raise UsageError(f"data format must be one of {', '.join(_FORMATS)}, not {fmt!r}")
         self.write("set_format", format=_FORMATS[fmt])
         self.write("set_byte_order", order="NORM" if sys.byteorder == "big" else "SWAP")
 
@@ -396,98 +324,15 @@ class Oscilloscope(ScpiDriver):
                 instrument=self.name, command=command,
             ) from None
 
-    def read_block(self, text: str) -> bytes:
-        """Send query ``text`` and read its definite-length block answer (payload bytes)."""
-        with self._lock:
-            session = self._require_session()
-            self.last_command = text
-            logger.debug("%s <- %s", self.name, text)
-            previous = session.read_termination
-            payload = b""
-            fast = _socket_of(session)
-            try:
-                session.write(text)
-                session.read_termination = None
-                head = bytes(session.read_bytes(2))
-                if head[:1] != b"#":
-                    # not a block (an instrument error, most likely): read the rest of the line, report it
-                    session.read_termination = previous
-                    rest = head if head.endswith(b"\n") else head + bytes(session.read_raw())
-                    self.raise_on_errors(text)
-                    raise InstrumentResponseError(
-                        f"expected a definite-length block, got {rest[:40]!r}; check the query and the data format",
-                        instrument=self.name, command=text)
-                head += bytes(session.read_bytes(header_length(head) - 2))
-                count = block_length(head) - len(head)
-                if fast is not None:
-                    backend, sock = fast
-                    data = _recv_exactly(backend, sock, count + 1, self.timeout_s, backend._pending_buffer)
-                    payload, end = bytes(data[:count]), bytes(data[count:])
-                else:
-                    payload = bytes(session.read_bytes(count, chunk_size=count)) if count else b""
-                    end = bytes(session.read_bytes(1))
-                if end != b"\n":
-                    raise InstrumentResponseError(
-                        f"block of {count} bytes is followed by {end!r}, not the newline terminator; "
-                        "the byte count and the data disagree", instrument=self.name, command=text)
-            except BenchctlError:
-                raise
-            except TimeoutError as exc:
-                raise InstrumentTimeout(f"{exc}; raise timeout_s in the station file", instrument=self.name,
-                                        command=text) from exc
-            except Exception as exc:
-                raise self._translate(exc, text) from exc
-            finally:
-                try:
-                    session.read_termination = previous
-                except Exception:  # a dead session: the original error is what matters
-                    pass
-            logger.debug("%s -> block of %d bytes", self.name, len(payload))
-            return payload
-
     def _fetch_combined(self, ch: int) -> tuple[WaveformPreamble, bytes] | None:
-        """Preamble and block in one message (``<preamble query>;:<data query>``) on a pyvisa-py
-        raw socket: one round trip instead of two. None when the session is not such a socket."""
-        session = self._require_session()
-        fast = _socket_of(session)
-        if fast is None:
-            return None
-        backend, sock = fast
+        """Preamble and block in one message (``<preamble query>;:<data query>``), one round trip
+        instead of two where the session can (its fast path); None where it cannot."""
         pre_q, data_q = self.command("get_preamble", channel=ch), self.command("get_data", channel=ch)
-        text = f"{pre_q};:{data_q.lstrip(':')}"
-        self.last_command = text
-        logger.debug("%s <- %s", self.name, text)
-
-        def header_done(buf: bytearray) -> bool:
-            k = buf.find(b";#")
-            if k < 0:
-                return b"\n" in buf  # an answer without a block: an error, report it below
-            return len(buf) >= k + 3 and len(buf) >= k + 3 + int(buf[k + 2:k + 3] or b"0")
-
-        try:
-            session.write(text)
-            buf = _recv_until(backend, sock, header_done, self.timeout_s)
-            k = buf.find(b";#")
-            if k < 0:
-                self.raise_on_errors(text)
-                raise InstrumentResponseError(f"expected '<preamble>;#<block>', got {bytes(buf[:60])!r}",
-                                              instrument=self.name, command=text)
-            pre = self._parse_preamble(bytes(buf[:k]).decode("latin-1"), pre_q)
-            head = bytes(buf[k + 1:k + 3])
-            head = bytes(buf[k + 1:k + 1 + header_length(head)])
-            count = block_length(head) - len(head)
-            data = _recv_exactly(backend, sock, count + 1, self.timeout_s, buf[k + 1 + len(head):])
-        except BenchctlError:
-            raise
-        except TimeoutError as exc:
-            raise InstrumentTimeout(f"{exc}; raise timeout_s in the station file", instrument=self.name,
-                                    command=text) from exc
-        except Exception as exc:
-            raise self._translate(exc, text) from exc
-        if data[count:] != b"\n":
-            raise InstrumentResponseError(f"block of {count} bytes is followed by {bytes(data[count:])!r}, not the "
-                                          "newline terminator", instrument=self.name, command=text)
-        return pre, bytes(data[:count])
+        both = self.query_text_and_block(f"{pre_q};:{data_q.lstrip(':')}")
+        if both is None:
+            return None
+        text, payload = both
+        return self._parse_preamble(text, pre_q), payload
 
     def fetch_waveform(self, channel: int) -> ScopeWaveform:
         """The last acquisition of ``channel`` in seconds and volts (or amperes)."""
@@ -508,7 +353,9 @@ class Oscilloscope(ScpiDriver):
             raise InstrumentResponseError(
                 f"block holds {codes.size} samples but the preamble says {pre.points}",
                 instrument=self.name, command=self.command("get_data", channel=ch))
-        t_s, values = _scale(codes, pre)
+        scaled = scale_waveform(codes, pre.x_increment_s, pre.x_origin_s, pre.x_reference, pre.y_increment,
+                                pre.y_origin, pre.y_reference, unit=pre.unit)
+        t_s, values = scaled.t_s, scaled.values
         if pre.dtype == "float32":
             # float samples carry no ADC code: the screen edges read back tell where the trace was cut
             low, high = self.screen(ch)
@@ -535,8 +382,26 @@ class Oscilloscope(ScpiDriver):
         with the command that switches it.
         """
         if not capacitance_f >= 0:
-            raise ValueError(f"capacitance must be >= 0 F, got {capacitance_f!r}")
+            raise UsageError(f"capacitance must be >= 0 F, got {capacitance_f!r}")
         self.write("set_fixture_capacitance", value=capacitance_f)
+
+    def set_fixture_probe(self, channel: int, signal: str) -> None:
+        """Place channel ``channel``'s probe of the simulated DUT fixture on ``signal``
+        (one of ``FIXTURE_PROBES``: vout, drain, switch_current, output_current, gate, vin,
+        input_current); on a real station the probes are placed by hand and this is not called."""
+        if signal not in self.FIXTURE_PROBES:
+            raise UsageError(f"signal must be one of {', '.join(self.FIXTURE_PROBES)}, not {signal!r}")
+        self.write("set_fixture_probe", channel=self._channel(channel), word=self.FIXTURE_PROBES[signal])
+
+    def set_fixture_load_capacitance(self, capacitance_f: float) -> None:
+        """Switch a capacitance across the DUT output (a capacitive load for start-up tests), F.
+
+        On the simulated bench a command of the simulated fixture; a real station with a
+        relay-switched capacitor bank overrides ``set_fixture_load_capacitance``.
+        """
+        if not capacitance_f >= 0:
+            raise UsageError(f"capacitance must be >= 0 F, got {capacitance_f!r}")
+        self.write("set_fixture_load_capacitance", value=capacitance_f)
 
     def safe_state(self) -> None:
         """A scope drives nothing; abort a pending acquisition."""

@@ -12,7 +12,7 @@ from __future__ import annotations
 import math
 from typing import ClassVar
 
-from benchctl.errors import InstrumentResponseError
+from benchctl.errors import InstrumentResponseError, UsageError
 from drivers.scpi_driver import ScpiDriver
 
 
@@ -74,7 +74,7 @@ class PowerMeter(ScpiDriver):
 
     def set_averaging(self, count: int) -> None:
         if count < 1:
-            raise ValueError(f"averaging count must be >= 1, not {count}")
+            raise UsageError(f"averaging count must be >= 1, not {count}")
         self.write("set_averaging", count=int(count))
 
     def averaging(self) -> int:

@@ -1,14 +1,20 @@
-"""The base of every driver: one SCPI instrument behind a pyvisa message-based session.
+"""The base of every driver: the policy of talking to one SCPI instrument.
 
-A driver turns method calls into SCPI strings taken from its command table
-(``COMMANDS``), sends them through pyvisa (pyvisa-py backend, so no vendor VISA is
-needed), and turns every failure of pyvisa or of the socket underneath into the
-project's own errors, once, here. After every setting it reads the instrument's error
-queue (``SYSTem:ERRor?``, SCPI-1999 Vol. 2 §21.8) and raises :class:`ScpiError`
-naming the instrument, the command and the SCPI error.
+Three layers, one job each:
 
-A station file may override any entry of the command table for an instrument whose
-dialect differs; templates use ``str.format`` fields (``{value}``, ``{state}``).
+* the session (:mod:`drivers.session`): open, close, write, query, one block read, the one
+  translation of pyvisa and socket failures into the project's errors, the raw-socket
+  fast path;
+* the command table and station options (:mod:`drivers.command_table`), validated when a
+  station file is loaded (:meth:`ScpiDriver.check_configuration`);
+* the policy, here: check after every setting, retry, recover, detect a reset, and the
+  bounded paths the interlock uses.
+
+A driver turns method calls into SCPI strings taken from its command table (``COMMANDS``).
+After every setting it reads the instrument's error queue (``SYSTem:ERRor?``, SCPI-1999
+Vol. 2 §21.8) and raises :class:`ScpiError` naming the instrument, the command and the
+SCPI error. A station file may override any entry of the command table for an instrument
+whose dialect differs; templates use ``str.format`` fields (``{value}``, ``{state}``).
 
 Robustness (station ``options``: ``retries``, default 2; ``retry_delay_s``, default 0.05):
 
@@ -35,6 +41,9 @@ short-lived connection of its own when the driver's session is busy or gone; the
 readings take the instrument's ``timeout_s`` for the answer (the watch decides at its
 deadline; a late reading is still checked). A failure drops the session.
 ``stop_retries`` makes a retry chain in progress give up at its next attempt.
+
+A caller's bad argument (a negative scale, an unknown mode) raises :class:`UsageError`
+before anything is sent.
 """
 
 from __future__ import annotations
@@ -43,8 +52,7 @@ import logging
 import math
 import threading
 import time
-from dataclasses import dataclass
-from typing import Any, ClassVar, Mapping
+from typing import Any, Callable, ClassVar, Mapping, TypeVar
 
 from benchctl.errors import (
     InstrumentConnectionError,
@@ -54,160 +62,49 @@ from benchctl.errors import (
     InstrumentTimeout,
     ScpiError,
     StationFileError,
+    UsageError,
 )
+from drivers import command_table as _table
+from drivers.command_table import OptionSpec
+from drivers.session import Connect, NotABlock, Session, VisaSession, resource_manager
+from drivers.status import (
+    ESR_POWER_ON,
+    Identity,
+    compound,
+    on_off,
+    parse_error_entry,
+    parse_event_status,
+    parse_status_answer,
+    read_back_matches,
+    reads_off,
+)
+
+__all__ = ["ScpiDriver", "Identity", "ESR_POWER_ON", "OptionSpec", "resource_manager", "DEFAULT_RETRIES",
+           "DEFAULT_RETRY_DELAY_S", "DEFAULT_OFF_DEADLINE_S"]
 
 logger = logging.getLogger(__name__)
 
-_resource_manager_lock = threading.Lock()
-_resource_manager: Any = None
-
-
-def resource_manager() -> Any:
-    """The process-wide pyvisa ResourceManager on the pure-Python backend (``@py``).
-
-    pyvisa shares one manager per backend in a process, so other code closing "its own"
-    manager closes ours too; a closed one is replaced.
-    """
-    global _resource_manager
-    import pyvisa
-
-    with _resource_manager_lock:
-        if _resource_manager is not None:
-            try:
-                _resource_manager.session  # raises InvalidSession once closed
-            except pyvisa.errors.InvalidSession:
-                _resource_manager = None
-        if _resource_manager is None:
-            _resource_manager = pyvisa.ResourceManager("@py")
-        return _resource_manager
-
-
-@dataclass(frozen=True)
-class Identity:
-    """The four fields of an IEEE 488.2 ``*IDN?`` answer (IEEE 488.2-1992 §10.14)."""
-
-    maker: str
-    model: str
-    serial: str
-    firmware: str
-
-    @classmethod
-    def parse(cls, text: str) -> "Identity":
-        fields = [f.strip() for f in text.strip().split(",")]
-        if len(fields) != 4 or not fields[0] or not fields[1]:
-            raise ValueError(f"*IDN? answer {text!r} does not have the four fields maker,model,serial,firmware")
-        return cls(*fields)
-
-    def __str__(self) -> str:
-        return f"{self.maker} {self.model} s/n {self.serial} fw {self.firmware}"
-
-
-def _disable_nagle(session: Any) -> None:
-    """Send each message at once on raw TCP sockets (TCP_NODELAY).
-
-    Without it a setting followed by ``SYST:ERR?`` waits for the instrument's delayed
-    acknowledgement of the first packet — about 40 ms on Linux (Nagle's algorithm,
-    RFC 896, meeting delayed ACKs, RFC 1122 §4.2.3.2). pyvisa-py does not expose the
-    VISA attribute for it on SOCKET resources, so the option is set on its socket.
-    """
-    import socket
-
-    try:
-        backend_session = session.visalib.sessions[session.session]
-        sock = getattr(backend_session, "interface", None)
-        if isinstance(sock, socket.socket) and sock.family in (socket.AF_INET, socket.AF_INET6):
-            sock.setsockopt(socket.IPPROTO_TCP, socket.TCP_NODELAY, 1)
-    except Exception as exc:  # other backends and interfaces (GPIB, USB, serial): nothing to do
-        logger.debug("TCP_NODELAY not set: %s", exc)
-
-
-def _on_off(state: bool) -> str:
-    return "ON" if state else "OFF"
-
-
-#: Power-on bit of the Standard Event Status Register (IEEE 488.2-1992 §11.5.1.1.8, from memory).
-ESR_POWER_ON = 128
 DEFAULT_RETRIES = 2
 #: Deadline of an output-off when none is given (s).
 DEFAULT_OFF_DEADLINE_S = 0.5
 DEFAULT_RETRY_DELAY_S = 0.05
 _RETRYABLE = (InstrumentTimeout, InstrumentConnectionError)
 
+_POWER_ON_LOST = ("the instrument was reset or power-cycled{during} and every setting made before is lost; the run "
+                  "stops so no point is taken on wrong settings. Check its mains and connection, then start the "
+                  "run again")
 
-def _option_number(name: str, options: Mapping[str, Any], key: str, default: float, low: float, high: float,
-                   whole: bool) -> float:
-    value = options.get(key, default)
-    ok = isinstance(value, (int, float)) and not isinstance(value, bool) and low <= value <= high
-    if ok and whole:
-        ok = float(value) == int(value)
-    if not ok:
-        kind = "a whole number" if whole else "a number"
-        raise StationFileError(f"instruments.{name}.options.{key} = {value!r} must be {kind} in [{low:g}, {high:g}]; "
-                               f"fix it in the station file (default {default:g})")
-    return value
-
-
-def _check_template(key: str, template: str) -> None:
-    """Refuse a command template whose fields do more than name a value (station files are data).
-
-    ``str.format`` would follow ``{value.__class__}`` or ``{value[0]}`` into Python objects;
-    only plain ``{name}`` / ``{name:spec}`` fields are allowed.
-    """
-    import string
-
-    try:
-        fields = [f for _, f, spec, conv in string.Formatter().parse(template) if f is not None]
-    except ValueError as exc:
-        raise StationFileError(f"command override {key!r} = {template!r} is not a valid template: {exc}") from None
-    for name in fields:
-        if not name.isidentifier():
-            raise StationFileError(
-                f"command override {key!r} = {template!r}: field {{{name}}} must be a plain name such as "
-                "{value} or {state} (no attribute, index or positional fields); fix it in the station file")
-
-
-def _bare(exc: InstrumentError) -> str:
-    """The message of ``exc`` without the 'instrument X, command Y: ' prefix InstrumentError adds."""
-    text = str(exc)
-    where = []
-    if exc.instrument:
-        where.append(f"instrument {exc.instrument}")
-    if exc.command:
-        where.append(f"command {exc.command!r}")
-    head = ", ".join(where) + ": " if where else ""
-    return text[len(head):] if head and text.startswith(head) else text
-
-
-def _read_back_matches(fields: Mapping[str, Any], answer: str) -> bool | None:
-    """Whether a getter's ``answer`` shows the setting made with ``fields``; None when it cannot tell."""
-    if len(fields) != 1:
-        return None
-    (value,) = fields.values()
-    text = answer.strip().strip('"').upper()
-    if isinstance(value, bool):
-        value = _on_off(value)
-    if isinstance(value, (int, float)):
-        try:
-            got = float(text.split(",")[0])
-        except ValueError:
-            return None
-        # templates send 6 significant digits ({value:.6g}): compare at that resolution
-        return math.isclose(got, float(value), rel_tol=2e-6, abs_tol=1e-12)
-    if isinstance(value, str):
-        word = value.strip().upper()
-        if word in ("ON", "OFF"):
-            return text in (("1", "ON") if word == "ON" else ("0", "OFF"))
-        # SCPI answers the short form of a long word (CURRent -> CURR)
-        return bool(text) and (text == word or word.startswith(text) or text.startswith(word))
-    return None
+T = TypeVar("T")
 
 
 class ScpiDriver:
-    """A SCPI instrument reached through pyvisa.
+    """A SCPI instrument reached through a session (pyvisa by default).
 
     ``resource`` is a VISA resource string (``TCPIP::host::port::SOCKET`` for raw
     sockets, ``TCPIP::host::INSTR`` for VXI-11, ``GPIB0::5::INSTR`` ...). ``name`` is
-    how errors name the instrument (the station role, usually).
+    how errors name the instrument (the station role, usually). ``connect`` opens a
+    session (``connect(resource, name=..., timeout_s=...)``); by default
+    :meth:`drivers.session.VisaSession.open`, in tests :class:`drivers.testing.ScriptedInstrument`.
     """
 
     kind: ClassVar[str] = "scpi"
@@ -219,6 +116,16 @@ class ScpiDriver:
         "event_status": "*ESR?",
         "next_error": "SYST:ERR?",
     }
+    #: Station options every driver takes (subclasses add theirs: merged along the classes).
+    OPTIONS: ClassVar[dict[str, OptionSpec]] = {
+        "retries": OptionSpec(DEFAULT_RETRIES, 0, 10, whole=True, help="retries of a read-only query"),
+        "retry_delay_s": OptionSpec(DEFAULT_RETRY_DELAY_S, 0, 10, help="wait before a retry, s"),
+    }
+    #: The command-table keys (setting, read-back) of the output switch; None: no output.
+    OUTPUT_SWITCH: ClassVar[tuple[str, str] | None] = None
+    #: How long :meth:`output_off_now` waits for the driver's own session before it uses a
+    #: short-lived connection of its own (s); a normal exchange takes a few ms.
+    OFF_LOCK_GRACE_S = 0.05
 
     def __init__(
         self,
@@ -228,18 +135,22 @@ class ScpiDriver:
         timeout_s: float = 2.0,
         commands: Mapping[str, str] | None = None,
         options: Mapping[str, Any] | None = None,
+        connect: Connect | None = None,
     ) -> None:
         self.resource = resource
         self.name = name or resource
         self.timeout_s = float(timeout_s)
         self.options = dict(options or {})
         self.commands = self.command_table(commands)
-        self._session: Any = None
+        self._overridden = frozenset(commands or ())
+        values = _table.option_values(type(self), self.name, self.options)
+        self._connect_session: Connect = connect or VisaSession.open
+        self._session: Session | None = None
         self._lock = threading.RLock()
         self.identity: Identity | None = None
         self.last_command = ""
-        self.retries = int(_option_number(self.name, self.options, "retries", DEFAULT_RETRIES, 0, 10, True))
-        self.retry_delay_s = float(_option_number(self.name, self.options, "retry_delay_s", DEFAULT_RETRY_DELAY_S, 0, 10, False))
+        self.retries = int(values["retries"])
+        self.retry_delay_s = float(values["retry_delay_s"])
         #: How many times the session was re-established after a failure.
         self.reconnects = 0
         self._wanted_open = False
@@ -249,44 +160,49 @@ class ScpiDriver:
         # The last successful setting of each command key (fields), for read-back after a reconnect.
         self._settings: dict[str, dict[str, Any]] = {}
 
-    # -- command table -------------------------------------------------------------
+    # -- command table and options ----------------------------------------------------
 
     @classmethod
     def command_table(cls, overrides: Mapping[str, str] | None = None) -> dict[str, str]:
-        """The merged command table; unknown override names are a station-file error."""
-        table: dict[str, str] = {}
-        for klass in reversed(cls.__mro__):
-            table.update(getattr(klass, "COMMANDS", {}))
-        if overrides:
-            unknown = sorted(set(overrides) - set(table))
-            if unknown:
-                raise StationFileError(
-                    f"driver {cls.kind!r} has no command named {', '.join(unknown)}; "
-                    f"the names that can be overridden are: {', '.join(sorted(table))}"
-                )
-            for key, template in overrides.items():
-                if not isinstance(template, str) or not template.strip():
-                    raise StationFileError(f"command override {key!r} must be a non-empty string")
-                _check_template(key, template)
-            table.update(overrides)
-        return table
+        """The merged command table; an unknown or unusable override is a station-file error."""
+        return _table.command_table(cls, overrides)
+
+    @classmethod
+    def check_configuration(cls, commands: Mapping[str, Any], options: Mapping[str, Any]) -> list[str]:
+        """Every problem of a station entry's ``commands`` and ``options`` for this driver
+        (texts starting ``commands:`` or ``options.<key>``); empty when it can be used.
+        Called by ``benchctl.station`` when the file is loaded, before anything is opened."""
+        return _table.check_configuration(cls, commands, options)
+
+    @classmethod
+    def option_defaults(cls) -> dict[str, Any]:
+        """Every station option of this driver with its default."""
+        return {key: spec.default for key, spec in _table.merged(cls, "OPTIONS").items()}
+
+    def option(self, key: str) -> Any:
+        """The value of declared option ``key``: the station's, or its default."""
+        spec = _table.merged(type(self), "OPTIONS")[key]
+        return self.options.get(key, spec.default)
 
     def command(self, key: str, **fields: Any) -> str:
         """The SCPI text for command ``key`` with its fields filled in."""
         template = self.commands[key]
         try:
             return template.format(**fields)
-        except (KeyError, IndexError, ValueError) as exc:
-            raise InstrumentError(
-                f"command template {template!r} for {key!r} cannot be filled with {sorted(fields)}: {exc}; "
-                "fix the override in the station file",
-                instrument=self.name,
-            ) from exc
+        except (KeyError, IndexError, ValueError, TypeError) as exc:
+            if key in self._overridden:
+                raise StationFileError(
+                    f"instruments.{self.name}.commands.{key} = {template!r} cannot be filled with "
+                    f"{sorted(fields)}: {exc}; fix the override in the station file") from exc
+            raise UsageError(f"command {key!r} ({template!r}) of instrument {self.name} cannot be filled with "
+                             f"{fields!r}: {exc}") from exc
+
+    on_off = staticmethod(on_off)
 
     # -- session -------------------------------------------------------------------
 
     def open(self) -> "ScpiDriver":
-        """Open the VISA session and read the identity. Safe to call twice.
+        """Open the session and read the identity. Safe to call twice.
 
         The power-on bit of ``*ESR?`` is read (and so cleared) here, so a later PON means
         the instrument reset while this driver used it.
@@ -294,7 +210,7 @@ class ScpiDriver:
         with self._lock:
             if self._session is not None:
                 return self
-            self._open_session()
+            self._session = self._connect(self.timeout_s)
         try:
             self.identity = self._identify_once()
             self._read_event_status(strict=False)
@@ -306,37 +222,14 @@ class ScpiDriver:
         self._settings.clear()
         return self
 
-    def _open_session(self, timeout_s: float | None = None) -> None:
-        self._session = self._connect(self.timeout_s if timeout_s is None else timeout_s)
+    def _connect(self, timeout_s: float) -> Session:
+        """A new session to the resource, answering within ``timeout_s`` (also to open)."""
+        return self._connect_session(self.resource, name=self.name, timeout_s=timeout_s)
 
-    def _connect(self, timeout_s: float) -> Any:
-        """A new VISA session to the resource, answering within ``timeout_s`` (also to open)."""
-        import pyvisa
-
-        ms = max(1, int(timeout_s * 1000))
-        try:
-            session = resource_manager().open_resource(
-                self.resource,
-                read_termination="\n",
-                write_termination="\n",
-                timeout=ms,
-                open_timeout=ms,
-            )
-        except pyvisa.errors.VisaIOError as exc:
-            raise InstrumentConnectionError(
-                f"cannot open VISA resource {self.resource!r} ({exc.description}); "
-                "check the resource string in the station file, that the instrument is on "
-                "and reachable (for the simulated bench: that `benchctl sim` is running)",
-                instrument=self.name,
-            ) from exc
-        except Exception as exc:  # pyvisa-py raises bare exceptions too (a port that is not a number ...)
-            raise InstrumentConnectionError(
-                f"cannot open VISA resource {self.resource!r}: {exc}; check the resource "
-                "string and that the instrument is reachable",
-                instrument=self.name,
-            ) from exc
-        _disable_nagle(session)
-        return session
+    @property
+    def session(self) -> Session | None:
+        """The open session (None while closed or lost)."""
+        return self._session
 
     def close(self) -> None:
         """Close the session. Safe to call twice; never raises."""
@@ -344,10 +237,7 @@ class ScpiDriver:
             self._wanted_open = False
             session, self._session = self._session, None
         if session is not None:
-            try:
-                session.close()
-            except Exception as exc:  # closing a dead socket must not mask the real error
-                logger.debug("%s: error while closing: %s", self.name, exc)
+            session.close()
 
     @property
     def is_open(self) -> bool:
@@ -355,14 +245,85 @@ class ScpiDriver:
         connection is being re-established (so a shutdown still tries to reach it)."""
         return self._wanted_open
 
+    def __enter__(self) -> "ScpiDriver":
+        return self.open()
+
+    def __exit__(self, *exc_info: object) -> None:
+        self.close()
+
     def _drop_session(self) -> None:
         with self._lock:
             session, self._session = self._session, None
         if session is not None:
+            session.close()
+
+    def _require_session(self) -> Session:
+        if self._session is None:
+            if self._wanted_open:
+                raise InstrumentConnectionError(
+                    f"the connection to {self.resource} was lost and could not be re-established; check the "
+                    "instrument is on and reachable", instrument=self.name)
+            raise InstrumentConnectionError("the session is not open; call open() first", instrument=self.name)
+        return self._session
+
+    # -- exchanges (no policy) ------------------------------------------------------------
+
+    def _exchange(self, text: str, call: Callable[[Session], T]) -> T:
+        """``call(session)`` for message ``text`` under the lock; an interrupt (a signal) drops the
+        session, since part of the message may be on the wire or its answer still to come."""
+        with self._lock:
+            session = self._require_session()
+            self.last_command = text
+            logger.debug("%s <- %s", self.name, text)
             try:
-                session.close()
-            except Exception as exc:
-                logger.debug("%s: error while dropping the session: %s", self.name, exc)
+                return call(session)
+            except InstrumentError as exc:
+                raise exc if exc.instrument else exc.located(instrument=self.name)
+            except BaseException as exc:
+                if not isinstance(exc, Exception):
+                    self._drop_session()
+                raise
+
+    def send(self, text: str) -> None:
+        """Send one program message (no error check)."""
+        self._exchange(text, lambda s: s.write(text))
+
+    def ask(self, text: str) -> str:
+        """Send a query and return its answer line (no error check)."""
+        answer = self._exchange(text, lambda s: s.query(text))
+        logger.debug("%s -> %s", self.name, answer)
+        self.last_answer_s = time.monotonic()
+        return answer
+
+    def read_block(self, text: str) -> bytes:
+        """Send query ``text`` and read its definite-length block answer (payload bytes).
+
+        An answer that is not a block is reported with the instrument's queued error when
+        there is one (:class:`ScpiError`), else as an :class:`InstrumentResponseError`.
+        """
+        with self._lock:
+            try:
+                payload = self._exchange(text, lambda s: s.read_block(text))
+            except NotABlock:
+                self.raise_on_errors(text)
+                raise
+            self.last_answer_s = time.monotonic()
+            return payload
+
+    def query_text_and_block(self, text: str) -> tuple[str, bytes] | None:
+        """``<text query>;<block query>`` in one round trip where the session can (its fast path):
+        (text answer, block payload); None where it cannot (ask the two apart)."""
+        with self._lock:
+            try:
+                both = self._exchange(text, lambda s: s.query_text_and_block(text))
+            except NotABlock:
+                self.raise_on_errors(text)
+                raise
+            if both is not None:
+                self.last_answer_s = time.monotonic()
+            return both
+
+    # -- policy: retries, reconnects, read-back --------------------------------------------
 
     def _reconnect(self, *, skip_key: str | None = None, deadline_at: float | None = None) -> None:
         """A fresh session; then the same identity, no power-on since, and every setting as programmed.
@@ -375,8 +336,13 @@ class ScpiDriver:
             self._drop_session()
             self.reconnects += 1
             logger.warning("%s: reconnecting to %s (reconnect %d)", self.name, self.resource, self.reconnects)
-            bound = (lambda: None) if deadline_at is None else (lambda: self._bound_session(deadline_at))
-            self._open_session(None if deadline_at is None else self._remaining(deadline_at, "reconnect"))
+
+            def bound() -> None:
+                if deadline_at is not None:
+                    self._require_session().timeout_s = self._remaining(deadline_at, self.last_command)
+
+            self._session = self._connect(self.timeout_s if deadline_at is None
+                                          else self._remaining(deadline_at, "reconnect"))
             bound()
             identity = self._identify_once()
             if self.identity is not None and identity != self.identity:
@@ -384,17 +350,13 @@ class ScpiDriver:
                     f"after reconnecting, *IDN? answers '{identity}' but '{self.identity}' answered when the run "
                     f"opened {self.resource}; another instrument is there now. Check the wiring and the "
                     "resource string, then start the run again",
-                    instrument=self.name, command=self.commands["identify"],
-                )
+                    instrument=self.name, command=self.commands["identify"])
             bound()
             esr = self._read_event_status()
             if esr is not None and esr & ESR_POWER_ON:
-                raise InstrumentStateError(
-                    "after reconnecting, *ESR? shows the power-on bit: the instrument was reset or power-cycled "
-                    "and every setting made before is lost; the run stops so no point is taken on wrong "
-                    "settings. Check its mains and connection, then start the run again",
-                    instrument=self.name, command=self.commands["event_status"],
-                )
+                raise InstrumentStateError("after reconnecting, *ESR? shows the power-on bit: "
+                                           + _POWER_ON_LOST.format(during=""),
+                                           instrument=self.name, command=self.commands["event_status"])
             for key, fields in list(self._settings.items()):
                 if key == skip_key:
                     continue
@@ -403,16 +365,15 @@ class ScpiDriver:
                     continue
                 bound()
                 answer = self.ask(self.command(getter))
-                if _read_back_matches(fields, answer) is False:
+                if read_back_matches(fields, answer) is False:
                     raise InstrumentStateError(
                         f"after reconnecting, {self.command(getter)!r} reads {answer!r} but "
                         f"{self.command(key, **fields)!r} was programmed: the instrument lost its settings "
                         "(reset, power cycle or its own protection?); the run stops so no point is taken on "
                         "wrong settings. Check the instrument, then start the run again",
-                        instrument=self.name, command=self.command(getter),
-                    )
+                        instrument=self.name, command=self.command(getter))
             if deadline_at is not None and self._session is not None:
-                self._session.timeout = int(self.timeout_s * 1000)
+                self._session.timeout_s = self.timeout_s
 
     def _getter_for(self, key: str) -> str | None:
         """The command-table key that reads back setting ``key`` (``set_x`` -> ``get_x``), if any."""
@@ -422,7 +383,7 @@ class ScpiDriver:
                 return getter
         return None
 
-    def _retrying(self, text: str, exchange: Any) -> Any:
+    def _retrying(self, text: str, exchange: Callable[[], T]) -> T:
         """Run an idempotent ``exchange()``; on a lost connection or a timeout reconnect and try again."""
         attempts = 1 + self.retries
         with self._lock:
@@ -438,10 +399,9 @@ class ScpiDriver:
                             raise
                         during = f"; the last failure was {exc.command!r} while reconnecting" \
                             if exc.command and exc.command != text else ""
-                        raise type(exc)(
-                            f"{_bare(exc)} (gave up after {attempts} attempts with a reconnect before each "
-                            f"retry{during})", instrument=self.name, command=text,
-                        ) from exc
+                        raise exc.located(
+                            detail=f"{exc.detail} (gave up after {attempts} attempts with a reconnect before each "
+                                   f"retry{during})", instrument=self.name, command=text) from exc
                     logger.warning("%s: %r failed (attempt %d of %d): %s; reconnecting and asking again",
                                    self.name, text, attempt, attempts, exc)
                     self._drop_session()
@@ -449,87 +409,14 @@ class ScpiDriver:
                         time.sleep(self.retry_delay_s)
         raise AssertionError("unreachable")  # pragma: no cover
 
-    def __enter__(self) -> "ScpiDriver":
-        return self.open()
+    def stop_retries(self) -> None:
+        """No retry, read-back or re-send from now until the next :meth:`open`.
 
-    def __exit__(self, *exc_info: object) -> None:
-        self.close()
+        A retry chain in progress gives up at its next attempt: used when the run is shutting down.
+        """
+        self._retries_stopped = True
 
-    def _require_session(self) -> Any:
-        if self._session is None:
-            if self._wanted_open:
-                raise InstrumentConnectionError(
-                    f"the connection to {self.resource} was lost and could not be re-established; check the "
-                    "instrument is on and reachable", instrument=self.name)
-            raise InstrumentConnectionError(
-                "the session is not open; call open() first", instrument=self.name
-            )
-        return self._session
-
-    # -- transport -----------------------------------------------------------------
-
-    def _translate(self, exc: Exception, command: str) -> InstrumentError:
-        import pyvisa
-
-        if isinstance(exc, pyvisa.errors.VisaIOError):
-            if exc.error_code == pyvisa.constants.StatusCode.error_timeout:
-                return InstrumentTimeout(
-                    f"no answer within {self.timeout_s:g} s; check the instrument is on, "
-                    "reachable and not busy, or raise timeout_s in the station file",
-                    instrument=self.name,
-                    command=command,
-                )
-            return InstrumentConnectionError(
-                f"VISA I/O error: {exc.description}", instrument=self.name, command=command
-            )
-        if isinstance(exc, ConnectionRefusedError):
-            return InstrumentConnectionError(
-                f"connection refused at {self.resource}: nothing listens there; check the resource "
-                "string, that the instrument is on (for the simulated bench: that `benchctl sim` is running)",
-                instrument=self.name, command=command,
-            )
-        if isinstance(exc, UnicodeDecodeError):
-            return InstrumentResponseError(
-                f"the answer is not text: {exc}", instrument=self.name, command=command
-            )
-        return InstrumentConnectionError(
-            f"connection failed: {exc}; check the cable/network and that the instrument is on",
-            instrument=self.name,
-            command=command,
-        )
-
-    def send(self, text: str) -> None:
-        """Send one program message (no error check)."""
-        with self._lock:
-            session = self._require_session()
-            self.last_command = text
-            logger.debug("%s <- %s", self.name, text)
-            try:
-                session.write(text)
-            except Exception as exc:
-                raise self._translate(exc, text) from exc
-            except BaseException:  # interrupted (a signal): part of the message may be on the wire
-                self._drop_session()
-                raise
-
-    def ask(self, text: str) -> str:
-        """Send a query and return its answer line (no error check)."""
-        with self._lock:
-            session = self._require_session()
-            self.last_command = text
-            logger.debug("%s <- %s", self.name, text)
-            try:
-                answer = session.query(text)
-            except Exception as exc:
-                raise self._translate(exc, text) from exc
-            except BaseException:  # interrupted (a signal): its answer may still come
-                self._drop_session()
-                raise
-            logger.debug("%s -> %s", self.name, answer)
-            self.last_answer_s = time.monotonic()
-            return answer.strip()
-
-    # -- SCPI helpers ---------------------------------------------------------------
+    # -- settings and readings ----------------------------------------------------------
 
     def write(self, key: str, **fields: Any) -> None:
         """Send setting ``key`` and raise if the instrument queued an error for it.
@@ -548,33 +435,24 @@ class ScpiDriver:
             self._settings[key] = dict(fields)
 
     def _status_query(self) -> str:
-        esr, err = self.commands["event_status"], self.commands["next_error"]
-        return f"{esr};{err if err.startswith((':', '*')) else ':' + err}"
+        return compound(self.commands["event_status"], self.commands["next_error"])
 
     def _check_setting(self, text: str) -> None:
         check = self._status_query()
         try:
             answer = self.ask(check)
         except InstrumentError as exc:
-            raise type(exc)(f"{_bare(exc)} (while checking {text!r})", instrument=self.name, command=text) from exc
-        esr_text, sep, error_text = answer.partition(";")
-        try:
-            esr = int(float(esr_text))
-            code = int(error_text.partition(",")[0]) if sep else None
-        except ValueError:
-            code = None
-        if code is None:
+            raise exc.located(detail=f"{exc.detail} (while checking {text!r})", command=text) from exc
+        status = parse_status_answer(answer)
+        if status is None:
             raise InstrumentResponseError(
                 f"the check {check!r} after the setting answered {answer!r}, not '<ESR>;<code>,\"<message>\"'",
                 instrument=self.name, command=text)
+        esr, first = status
         if esr & ESR_POWER_ON:
-            raise InstrumentStateError(
-                f"*ESR? shows the power-on bit after {text!r}: the instrument was reset or power-cycled and every "
-                "setting made before is lost; the run stops so no point is taken on wrong settings. Check its "
-                "mains and connection, then start the run again",
-                instrument=self.name, command=text)
-        if code != 0:
-            first = (code, error_text.partition(",")[2].strip().strip('"'))
+            raise InstrumentStateError(f"*ESR? shows the power-on bit after {text!r}: "
+                                       + _POWER_ON_LOST.format(during=""), instrument=self.name, command=text)
+        if first[0] != 0:
             self._raise_scpi([first] + self.read_errors(), text)
 
     def _recover_setting(self, key: str, fields: Mapping[str, Any], text: str, first: InstrumentError) -> None:
@@ -584,10 +462,10 @@ class ScpiDriver:
             raise first
         getter = self._getter_for(key)
         if getter is None:
-            raise type(first)(
-                f"{_bare(first)}; the setting has no read-back command, so whether it took effect is unknown and "
-                "it is not sent again blindly. Check the instrument, then start the run again",
-                instrument=self.name, command=text) from first
+            raise first.located(
+                detail=f"{first.detail}; the setting has no read-back command, so whether it took effect is unknown "
+                       "and it is not sent again blindly. Check the instrument, then start the run again",
+                command=text) from first
         attempts = max(1, self.retries)
         exc: InstrumentError = first
         for attempt in range(1, attempts + 1):
@@ -605,7 +483,7 @@ class ScpiDriver:
             except (*_RETRYABLE, InstrumentResponseError) as again:
                 exc = again
                 continue
-            match = _read_back_matches(fields, answer)
+            match = read_back_matches(fields, answer)
             if match is None:
                 raise InstrumentResponseError(
                     f"read-back {self.command(getter)!r} answered {answer!r}, which cannot be compared with "
@@ -623,9 +501,8 @@ class ScpiDriver:
                 return
             except (*_RETRYABLE, InstrumentResponseError) as again:
                 exc = again
-        raise type(exc)(
-            f"{_bare(exc)} (setting not confirmed after {attempts} read-back attempt(s) with reconnects)",
-            instrument=self.name, command=text) from exc
+        raise exc.located(detail=f"{exc.detail} (setting not confirmed after {attempts} read-back attempt(s) with "
+                                 "reconnects)", instrument=self.name, command=text) from exc
 
     def query(self, key: str, **fields: Any) -> str:
         text = self.command(key, **fields)
@@ -633,25 +510,22 @@ class ScpiDriver:
             return self.ask(text)
         return self._retrying(text, lambda: self.ask(text))
 
+    def _number(self, answer: str, text: str, *, check_errors: bool = True) -> float:
+        try:
+            value = float(answer.split(",")[0])
+        except ValueError:
+            if check_errors:
+                self.raise_on_errors(text)
+            raise InstrumentResponseError(f"expected a number, got {answer!r}", instrument=self.name,
+                                          command=text) from None
+        if not math.isfinite(value):
+            raise InstrumentResponseError(f"expected a finite number, got {answer!r}", instrument=self.name,
+                                          command=text)
+        return value
+
     def query_float(self, key: str, **fields: Any) -> float:
         text = self.command(key, **fields)
-
-        def exchange() -> float:
-            answer = self.ask(text)
-            try:
-                value = float(answer.split(",")[0])
-            except ValueError:
-                self.raise_on_errors(text)
-                raise InstrumentResponseError(
-                    f"expected a number, got {answer!r}", instrument=self.name, command=text
-                ) from None
-            if not math.isfinite(value):
-                raise InstrumentResponseError(
-                    f"expected a finite number, got {answer!r}", instrument=self.name, command=text
-                )
-            return value
-
-        return self._retrying(text, exchange)
+        return self._retrying(text, lambda: self._number(self.ask(text), text))
 
     def query_bool(self, key: str, **fields: Any) -> bool:
         text = self.command(key, **fields)
@@ -660,27 +534,21 @@ class ScpiDriver:
             return True
         if answer in ("0", "OFF"):
             return False
-        raise InstrumentResponseError(
-            f"expected 0/1/ON/OFF, got {answer!r}", instrument=self.name, command=text
-        )
+        raise InstrumentResponseError(f"expected 0/1/ON/OFF, got {answer!r}", instrument=self.name, command=text)
 
     def read_errors(self, limit: int = 32) -> list[tuple[int, str]]:
         """Drain the SCPI error queue: ``[(code, message), ...]`` (empty when none)."""
         errors: list[tuple[int, str]] = []
+        command = self.commands["next_error"]
         for _ in range(limit):
-            answer = self.ask(self.commands["next_error"])
-            code_text, _, message = answer.partition(",")
-            try:
-                code = int(code_text)
-            except ValueError:
-                raise InstrumentResponseError(
-                    f"error-queue answer {answer!r} is not '<code>,\"<message>\"'",
-                    instrument=self.name,
-                    command=self.commands["next_error"],
-                ) from None
-            if code == 0:
+            answer = self.ask(command)
+            entry = parse_error_entry(answer)
+            if entry is None:
+                raise InstrumentResponseError(f"error-queue answer {answer!r} is not '<code>,\"<message>\"'",
+                                              instrument=self.name, command=command)
+            if entry[0] == 0:
                 break
-            errors.append((code, message.strip().strip('"')))
+            errors.append(entry)
         return errors
 
     def raise_on_errors(self, command: str) -> None:
@@ -694,20 +562,18 @@ class ScpiDriver:
         raise ScpiError(
             f"SCPI error {code} {message!r}{more}; check the value is within the instrument's "
             "range and the command matches its dialect (override it in the station file if not)",
-            code=code,
-            instrument=self.name,
-            command=command,
-        )
+            code=code, instrument=self.name, command=command)
 
     def identify(self) -> Identity:
         return self._retrying(self.commands["identify"], self._identify_once)
 
     def _identify_once(self) -> Identity:
-        answer = self.ask(self.commands["identify"])
+        command = self.commands["identify"]
+        answer = self.ask(command)
         try:
             return Identity.parse(answer)
         except ValueError as exc:
-            raise InstrumentResponseError(str(exc), instrument=self.name, command="*IDN?") from exc
+            raise InstrumentResponseError(str(exc), instrument=self.name, command=command) from exc
 
     def check_power_on(self) -> None:
         """Raise :class:`InstrumentStateError` when ``*ESR?`` shows the power-on bit (one query).
@@ -718,25 +584,21 @@ class ScpiDriver:
         command = self.commands["event_status"]
         esr = self._retrying(command, self._read_event_status)
         if esr is not None and esr & ESR_POWER_ON:
-            raise InstrumentStateError(
-                "*ESR? shows the power-on bit: the instrument was reset or power-cycled during the run and every "
-                "setting made before is lost; the run stops so no point is taken on wrong settings. Check its "
-                "mains and connection, then start the run again",
-                instrument=self.name, command=command)
+            raise InstrumentStateError("*ESR? shows the power-on bit: " + _POWER_ON_LOST.format(during=" during the run"),
+                                       instrument=self.name, command=command)
 
     def _read_event_status(self, strict: bool = True) -> int | None:
         """Read (and so clear) ``*ESR?``. A non-number raises, or gives None when not ``strict`` (at open)."""
         command = self.commands["event_status"]
         answer = self.ask(command)
-        try:
-            return int(float(answer))
-        except ValueError:
+        esr = parse_event_status(answer)
+        if esr is None:
             if strict:
                 raise InstrumentResponseError(
                     f"expected the event status register as a number, got {answer!r}; whether the instrument "
-                    "reset cannot be told", instrument=self.name, command=command) from None
+                    "reset cannot be told", instrument=self.name, command=command)
             logger.debug("%s: *ESR? answered %r, not a number", self.name, answer)
-            return None
+        return esr
 
     def reset(self) -> None:
         """Reset to the instrument's default state (*RST), clear status (*CLS) and check."""
@@ -751,38 +613,22 @@ class ScpiDriver:
         """Block until pending operations are done (*OPC?, IEEE 488.2 §10.19)."""
         with self._lock:
             session = self._require_session()
-            previous = session.timeout
+            previous = session.timeout_s
             if timeout_s is not None:
-                session.timeout = int(timeout_s * 1000)
+                session.timeout_s = timeout_s
             try:
                 answer = self.ask(self.command("operation_complete"))
             finally:
-                session.timeout = previous
+                session.timeout_s = previous
         if answer != "1":
-            raise InstrumentResponseError(
-                f"*OPC? answered {answer!r}, expected '1'", instrument=self.name, command="*OPC?"
-            )
+            raise InstrumentResponseError(f"*OPC? answered {answer!r}, expected '1'", instrument=self.name,
+                                          command="*OPC?")
 
     def safe_state(self) -> None:
         """Put the instrument in its safe state: its output off (:meth:`output_off_now`)."""
         self.output_off_now(deadline_s=min(self.timeout_s, DEFAULT_OFF_DEADLINE_S))
 
-    on_off = staticmethod(_on_off)
-
     # -- bounded exchanges: no retries, a deadline (the interlock's watch and shutdown) ----
-
-    #: The command-table keys (setting, read-back) of the output switch; None: no output.
-    OUTPUT_SWITCH: ClassVar[tuple[str, str] | None] = None
-    #: How long :meth:`output_off_now` waits for the driver's own session before it uses a
-    #: short-lived connection of its own (s); a normal exchange takes a few ms.
-    OFF_LOCK_GRACE_S = 0.05
-
-    def stop_retries(self) -> None:
-        """No retry, read-back or re-send from now until the next :meth:`open`.
-
-        A retry chain in progress gives up at its next attempt: used when the run is shutting down.
-        """
-        self._retries_stopped = True
 
     def _remaining(self, deadline_at: float, command: str) -> float:
         remaining = deadline_at - time.monotonic()
@@ -790,11 +636,6 @@ class ScpiDriver:
             raise InstrumentTimeout("the deadline passed before the exchange could start (not retried)",
                                     instrument=self.name, command=command)
         return remaining
-
-    def _bound_session(self, deadline_at: float) -> None:
-        """Make the session's timeout the time left until ``deadline_at``."""
-        session = self._require_session()
-        session.timeout = max(1, int(self._remaining(deadline_at, self.last_command) * 1000))
 
     def _deadline_error(self, exc: InstrumentError, text: str, deadline_s: float) -> InstrumentError:
         if isinstance(exc, InstrumentTimeout):
@@ -827,21 +668,21 @@ class ScpiDriver:
                 except BaseException:
                     self._drop_session()
                     raise
-            session = self._session
-            previous = session.timeout
-            timeout_ms = (max(1, int(self._remaining(deadline_at, text) * 1000)) if answer_by_deadline
-                          else int(self.timeout_s * 1000))
-            if not answer_by_deadline:
-                deadline_s = self.timeout_s
+            session = self._require_session()
+            previous = session.timeout_s
+            if answer_by_deadline:
+                timeout_s = self._remaining(deadline_at, text)
+            else:
+                timeout_s = deadline_s = self.timeout_s
             try:
-                session.timeout = timeout_ms
+                session.timeout_s = timeout_s
                 return self.ask(text)
             except InstrumentError as exc:
                 self._drop_session()
                 raise self._deadline_error(exc, text, deadline_s) from exc
             finally:
                 if self._session is session:
-                    session.timeout = previous
+                    session.timeout_s = previous
         finally:
             self._lock.release()
 
@@ -850,50 +691,34 @@ class ScpiDriver:
         deadline_s = self._remaining(deadline_at, text)
         session = self._connect(deadline_s)
         try:
-            session.timeout = max(1, int(self._remaining(deadline_at, text) * 1000))
+            session.timeout_s = self._remaining(deadline_at, text)
             logger.debug("%s <- %s (separate connection)", self.name, text)
-            return session.query(text).strip()
-        except Exception as exc:
-            raise self._deadline_error(self._translate(exc, text), text, deadline_s) from exc
+            return session.query(text)
+        except InstrumentError as exc:
+            raise self._deadline_error(exc.located(instrument=self.name, command=text), text, deadline_s) from exc
         finally:
-            try:
-                session.close()
-            except Exception as exc:
-                logger.debug("%s: error while closing the separate connection: %s", self.name, exc)
+            session.close()
 
     def query_float_now(self, key: str, *, deadline_s: float) -> float:
         """Reading ``key`` as a number for the watch: no retry, no error-queue read; the driver
         is waited for ``deadline_s`` at most, the answer for its ``timeout_s``."""
         text = self.command(key)
-        answer = self._ask_bounded(text, deadline_s, answer_by_deadline=False)
-        try:
-            value = float(answer.split(",")[0])
-        except ValueError:
-            raise InstrumentResponseError(f"expected a number, got {answer!r}", instrument=self.name,
-                                          command=text) from None
-        if not math.isfinite(value):
-            raise InstrumentResponseError(f"expected a finite number, got {answer!r}", instrument=self.name,
-                                          command=text)
-        return value
+        return self._number(self._ask_bounded(text, deadline_s, answer_by_deadline=False), text, check_errors=False)
 
     def check_power_on_now(self, *, deadline_s: float) -> None:
         """:meth:`check_power_on` for the watch, never retried (waits as :meth:`query_float_now`)."""
         command = self.commands["event_status"]
         answer = self._ask_bounded(command, deadline_s, answer_by_deadline=False)
-        try:
-            esr = int(float(answer))
-        except ValueError:
+        esr = parse_event_status(answer)
+        if esr is None:
             raise InstrumentResponseError(
                 f"expected the event status register as a number, got {answer!r}; whether the instrument "
-                "reset cannot be told", instrument=self.name, command=command) from None
+                "reset cannot be told", instrument=self.name, command=command)
         if esr & ESR_POWER_ON:
-            raise InstrumentStateError(
-                "*ESR? shows the power-on bit: the instrument was reset or power-cycled during the run and every "
-                "setting made before is lost; the run stops so no point is taken on wrong settings. Check its "
-                "mains and connection, then start the run again",
-                instrument=self.name, command=command)
+            raise InstrumentStateError("*ESR? shows the power-on bit: " + _POWER_ON_LOST.format(during=" during the run"),
+                                       instrument=self.name, command=command)
 
-    def output_off_now(self, *, deadline_s: float = 0.5) -> str:
+    def output_off_now(self, *, deadline_s: float = DEFAULT_OFF_DEADLINE_S) -> str:
         """Switch the output off and read it back as off within ``deadline_s``; never retried.
 
         One message, the OFF setting and the read-back query (``OUTP OFF;:OUTP?``): its answer
@@ -905,20 +730,20 @@ class ScpiDriver:
         if self.OUTPUT_SWITCH is None:
             return "no output to switch"
         set_key, get_key = self.OUTPUT_SWITCH
-        off, check = self.command(set_key, state=_on_off(False)), self.command(get_key)
-        text = f"{off};{check if check.startswith((':', '*')) else ':' + check}"
+        off, check = self.command(set_key, state=on_off(False)), self.command(get_key)
+        text = compound(off, check)
         started = time.monotonic()
         deadline_at = started + deadline_s
-        self._settings[set_key] = {"state": _on_off(False)}  # a later reconnect must expect it off
+        self._settings[set_key] = {"state": on_off(False)}  # a later reconnect must expect it off
         errors: list[InstrumentError] = []
 
         def confirmed(answer: str) -> bool:
-            word = answer.strip().strip('"').upper()
-            if word in ("0", "OFF"):
+            is_off = reads_off(answer)
+            if is_off:
                 return True
             errors.append(InstrumentStateError(
                 f"after {off!r} the read-back {check!r} answered {answer!r}, not off; switch it off by hand and "
-                "check the instrument", instrument=self.name, command=text) if word in ("1", "ON") else
+                "check the instrument", instrument=self.name, command=text) if is_off is False else
                 InstrumentResponseError(f"expected 0/OFF from {check!r} after {off!r}, got {answer!r}",
                                         instrument=self.name, command=text))
             return False
@@ -942,5 +767,5 @@ class ScpiDriver:
             errors.append(exc)
         if len(errors) == 1:
             raise errors[0]
-        raise type(errors[-1])(f"over its session: {_bare(errors[0])}; over a separate connection: "
-                               f"{_bare(errors[-1])}", instrument=self.name, command=text) from errors[-1]
+        raise errors[-1].located(detail=f"over its session: {errors[0].detail}; over a separate connection: "
+                                        f"{errors[-1].detail}", instrument=self.name, command=text) from errors[-1]

@@ -15,7 +15,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from benchctl.errors import InstrumentError, InstrumentResponseError
+from benchctl.errors import InstrumentResponseError, UsageError
 from drivers.ieee488_block import (
     block_length,
     decode_samples,
@@ -106,7 +106,7 @@ def test_payload_too_long_for_nine_digits_is_refused():
         def __len__(self) -> int:  # avoid allocating a gigabyte
             return 10**9
 
-    with pytest.raises(InstrumentError, match="send it in parts"):
+    with pytest.raises(UsageError, match="send it in parts"):  # the caller's argument: a usage error
         encode_definite_block(Huge(b""))
 
 

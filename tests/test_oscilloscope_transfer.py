@@ -8,7 +8,6 @@ import numpy as np
 import pytest
 
 from benchctl.errors import ScpiError
-from drivers import oscilloscope as osc_mod
 from drivers.oscilloscope import Oscilloscope
 from simulated_instruments.bench import SimulatedBench
 
@@ -39,7 +38,8 @@ def test_int16_block_with_newline_bytes_is_scaled_by_the_preamble(scope_bench, m
     bench, scope = scope_bench
     scope.single(5.0)
     if not fast_path:  # the generic read_bytes path with termination cleared
-        monkeypatch.setattr(osc_mod, "_socket_of", lambda session: None)
+        scope.session.disable_fast_path()
+        assert not scope.session.fast_path
     codes = np.array([0x0A0A, -32768, 32767, 10, 0, -1, 2570, 0x0D0A], dtype="<i2")  # 0x0A = newline byte
     payload = codes.tobytes()
     assert payload.count(b"\n") >= 4
@@ -97,7 +97,7 @@ def test_100k_point_acquisition_survives_newline_bytes(scope_bench):
     assert wf.t_s[0] == pytest.approx(-0.0 + (-5e-5 + 5e-5), abs=1e-15)
     assert wf.t_s[-1] == pytest.approx(1e-4 - 1e-9, rel=1e-9)
     # the session still reads text answers after the binary transfer
-    assert scope.identify().model == "DSO-4-500"
+    assert scope.identify().model == "sim oscilloscope"
 
 
 def test_reading_before_an_acquisition_is_refused(scope_bench):
