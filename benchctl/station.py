@@ -426,6 +426,12 @@ def parse_station(text: str, *, path: Path | None = None) -> Station:
                     f"{key}.driver: {driver!r} drives a {getattr(cls, 'kind', '?')}, but role {role!r} needs a {expected}"
                 )
                 ok = False
+            elif callable(getattr(cls, "check_configuration", None)):
+                # the driver's command overrides and options, checked before any instrument is opened
+                found = cls.check_configuration(commands if isinstance(commands, dict) else {},
+                                                options if isinstance(options, dict) else {})
+                problems.extend(f"{key}.{problem}" for problem in found)
+                ok = ok and not found
             elif isinstance(commands, dict):
                 try:
                     cls.command_table(commands)
