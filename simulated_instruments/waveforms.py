@@ -32,6 +32,12 @@ array of model times; nothing here is a stored shape. Signals (``SIGNALS``):
     The electronic load's current, including its dynamic-mode steps and slew.
 ``gate``
     Gate drive of the main switch: 0 V / gate_drive_v during the on-time.
+``vin``, ``input_current``
+    The DUT's input voltage and current, from the model's own time series
+    (``ConverterModel.terminal_series``): the inrush into the input capacitance, the
+    input filter's lag, starts and stops.  While the model is in a start, stop or
+    lock-out (``free_running_mask``), ``vout`` and ``output_current`` also come from that
+    series (the soft start, the discharge after a stop), without switching ripple.
 
 Ring: f_n = 1/(2π√(L·C)) (LC resonance) with damping ζ = r_s/(2·Z0) + G·Z0/2, Z0 = √(L/C):
 r_s the series loss (winding or switch resistance), G the conductance of the RC snubber
@@ -61,9 +67,30 @@ from .converter.operating_point import OperatingPoint
 from .converter.small_signal import (RationalTF, closed_loop_output_impedance, control_chain, plant_gvd,
                                      plant_zout_open)
 
-SIGNALS = ("vout", "drain", "switch_current", "output_current", "gate")
-SIGNAL_UNITS = {"vout": "V", "drain": "V", "switch_current": "A", "output_current": "A", "gate": "V"}
+SIGNALS = ("vout", "drain", "switch_current", "output_current", "gate", "vin", "input_current")
+SIGNAL_UNITS = {"vout": "V", "drain": "V", "switch_current": "A", "output_current": "A", "gate": "V",
+                "vin": "V", "input_current": "A"}
+#: Signals read from the model's terminal time series, and their index in its vector
+#: (``converter.dynamics.QUANTITIES``: input_v 2, input_a 3, output_v 4, load_a 6).
+SERIES_INDEX = {"vin": 2, "input_current": 3, "vout": 4, "output_current": 6}
+#: Signals that always come from the series (the others only during starts and stops).
+SERIES_ONLY = ("vin", "input_current")
 _CYCLE_POINTS = 4096
+
+
+def probed_signal(model: Any, synth: "RecordSynth", name: str, t: NDArray[np.float64]) -> NDArray[np.float64]:
+    """Value of probed signal ``name`` at increasing model times ``t``: the switching
+    synthesis, or the model's terminal series where the module docstring says so."""
+    t = np.asarray(t, dtype=float)
+    if name in SERIES_ONLY:
+        return np.asarray(model.terminal_series(t)[SERIES_INDEX[name]], dtype=float)
+    v = synth.signal(name, t)
+    if name in SERIES_INDEX:
+        mask = model.free_running_mask(t)
+        if mask.any():
+            v = np.array(v, dtype=float)
+            v[mask] = model.terminal_series(t[mask])[SERIES_INDEX[name]]
+    return v
 
 
 # ---------------------------------------------------------------- load activity
@@ -506,6 +533,10 @@ class RecordSynth:
 
     def dc_level(self, name: str) -> float:
         """Cycle-mean value of ``name`` at the base operating point (what AC coupling removes)."""
+        if name == "vin":
+            return self.ctx.op_base.vin_v
+        if name == "input_current":
+            return self.ctx.op_base.iin_a
         if name == "vout":
             return self.ctx.op_base.vout_v
         if name == "output_current":

@@ -127,8 +127,9 @@ def turn_on_metrics(t_s: ArrayLike, vout_v: ArrayLike, *, t_input_s: float | Non
     ``t_input_s``: when the input reached its level (see :func:`input_edge_s`), None if
     unknown.  ``final_v``: the top state level (default: median of the last
     ``tail_fraction`` of the record).  ``band_v``: half-width of the regulation band
-    (default 1 % of the amplitude).  ``dip_tol_v``: monotonicity tolerance (default 5 ×
-    the standard deviation of the base samples, at least 0.2 % of the amplitude).
+    (default 1 % of the amplitude).  ``dip_tol_v``: monotonicity tolerance (default 2.5·sqrt(2·ln N)
+    × the standard deviation of the base samples, N the samples above the 10 % level — what
+    noise alone produces, with margin — at least 0.2 % of the amplitude).
     ``base_before_s``: the base level is the median before this time (default: the first
     5 % of the record).
     """
@@ -144,7 +145,11 @@ def turn_on_metrics(t_s: ArrayLike, vout_v: ArrayLike, *, t_input_s: float | Non
     band = 0.01 * amp if band_v is None else float(band_v)
     pre = v[t < (base_before_s if base_before_s is not None else (t_input_s if t_input_s is not None else t[v.size // 20]))]
     noise = float(np.std(pre)) if pre.size > 2 else 0.0
-    tol = max(5.0 * noise, 0.002 * amp) if dip_tol_v is None else float(dip_tol_v)
+    # noise alone makes the running maximum exceed a later sample by up to ~2·sqrt(2·ln N)·σ
+    # (the expected extreme of N Gaussian samples, common practice); 25 % margin on top
+    n_rise = max(int(np.count_nonzero(v > base + LOW_REF * amp)), 2)
+    tol = (max(2.5 * np.sqrt(2.0 * np.log(n_rise)) * noise, 0.002 * amp) if dip_tol_v is None
+           else float(dip_tol_v))
     after = t_input_s
     t_low = first_crossing_s(t, v, base + LOW_REF * amp, rising=True, after_s=after)
     t_high = first_crossing_s(t, v, base + HIGH_REF * amp, rising=True, after_s=t_low) if t_low is not None else None

@@ -304,6 +304,36 @@ class ConverterModel:
                 sums = np.concatenate([v @ w, self._powers(v) @ w]) / (t1_s - t0_s)
             return TerminalMeans(float(t0_s), float(t1_s), *(float(x) for x in sums))
 
+    def terminal_series(self, t_s: ArrayLike) -> NDArray[np.float64]:
+        """True terminal vectors (7 × n, order ``QUANTITIES``) at increasing model times ``t_s``.
+
+        What a scope sees of the slow quantities (no switching ripple); times in the recent
+        past or ahead as for :meth:`terminals_at`.
+        """
+        t = np.atleast_1d(np.asarray(t_s, dtype=float))
+        with self._lock:
+            return self._values_at(t)
+
+    def free_running_mask(self, t_s: ArrayLike) -> NDArray[np.bool_]:
+        """True at the model times ``t_s`` (increasing) that lie in a start, stop, lock-out or fault
+        transient still moving (not a regulated load or line change, and within 10 τ of its event)."""
+        t = np.atleast_1d(np.asarray(t_s, dtype=float))
+        out = np.zeros(t.shape, dtype=bool)
+        with self._lock:
+            segs = list(self._segments)
+            for k, seg in enumerate(segs):
+                if isinstance(seg.transient, RegulatedTransient):
+                    continue
+                end = segs[k + 1].t0_s if k + 1 < len(segs) else math.inf
+                moving_until = seg.t0_s + 10.0 * seg.transient.tau_s
+                out |= (t >= seg.t0_s) & (t < min(end, moving_until))
+        return out
+
+    def event_times_between(self, t0_s: float, t1_s: float) -> list[float]:
+        """Model times of the settings (events) in (t0_s, t1_s]."""
+        with self._lock:
+            return [seg.t0_s for seg in self._segments if t0_s < seg.t0_s <= t1_s]
+
     def operating_point(self) -> OperatingPoint:
         """Steady state the DUT is heading to at the present model time (and temperature)."""
         with self._lock:

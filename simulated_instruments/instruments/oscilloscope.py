@@ -31,8 +31,18 @@ EXTernal is the electronic load's trigger output (its dynamic-mode steps). The
 simulated DUT fixture (not part of a real scope) places probes and adds a known
 capacitance at the switch node for the two-capacitor method::
 
-    FIXTure:PROBe<n> VOUT|DRAin|ISWitch|IOUT|GATE     (default 1 VOUT, 2 DRAin, 3 ISWitch, 4 IOUT)
+    FIXTure:PROBe<n> VOUT|DRAin|ISWitch|IOUT|GATE|VIN|IIN   (default 1 VOUT, 2 DRAin, 3 ISWitch, 4 IOUT;
+                                                      VIN/IIN: the DUT's input voltage and current)
     FIXTure:CAPacitance <F>                           0 to 10 nF, default 0
+    FIXTure:LOAD:CAPacitance <F>                      capacitance across the output (a capacitive
+                                                      load for start-up tests), 0 to 1 F, default 0
+
+Single shot on a start or a stop: while the model is in a start, stop or lock-out (and
+always on VIN/IIN) the trigger searches the model's terminal series from the moment of
+INIT up to now, so an edge caused by switching the source on after arming is found.
+Pre-trigger samples come from a negative SENSe:SWEep:OFFSet:TIME. A trigger that never
+comes leaves INITiate:DONE? at 0; ABORt ends the wait (a driver polls DONE? with its own
+deadline rather than blocking in *OPC?).
 
 Scaling of integer samples: value = y_origin + (code − y_reference)·y_increment,
 time = x_origin + (i − x_reference)·x_increment (common practice). Noise is seeded;
@@ -52,11 +62,12 @@ from scipy.signal import lfilter, lfilter_zi
 
 from ..scpi import Boolean, Choice, Identity, Numeric, ScpiInstrument
 from ..scpi.errors import ScpiExecutionError
-from ..waveforms import SIGNAL_UNITS, RecordContext, RecordSynth, activity_for
+from ..waveforms import SERIES_INDEX, SERIES_ONLY, SIGNAL_UNITS, RecordContext, RecordSynth, activity_for, probed_signal
 
 logger = logging.getLogger(__name__)
 
-_PROBE_WORDS = {"VOUT": "vout", "DRA": "drain", "ISW": "switch_current", "IOUT": "output_current", "GATE": "gate"}
+_PROBE_WORDS = {"VOUT": "vout", "DRA": "drain", "ISW": "switch_current", "IOUT": "output_current", "GATE": "gate",
+                "VIN": "vin", "IIN": "input_current"}
 _DEFAULT_PROBES = {1: "vout", 2: "drain", 3: "switch_current", 4: "output_current"}
 
 
@@ -147,7 +158,10 @@ class SimulatedOscilloscope(ScpiInstrument):
         self.add_command("TRACe[:DATA]", getter=self._data, params=[Numeric(minimum=1, maximum=4, integer=True)])
         self.add_command("FIXTure:PROBe<n:1-4>", setter=self._set_probe,
                          getter=lambda n: [k for k, v in _PROBE_WORDS.items() if v == self._ch[n].signal][0],
-                         params=[Choice("VOUT", "DRAin", "ISWitch", "IOUT", "GATE")])
+                         params=[Choice("VOUT", "DRAin", "ISWitch", "IOUT", "GATE", "VIN", "IIN")])
+        self.add_command("FIXTure:LOAD:CAPacitance", setter=self._set_load_capacitance,
+                         getter=lambda: self.model.output_capacitance_f - self.model.design.stage.c_out_f,
+                         params=[Numeric(unit="F", minimum=0.0, maximum=1.0, default=0.0)])
         self.add_command("FIXTure:CAPacitance", setter=self._set_attr("fixture_c_f"),
                          getter=lambda: self.fixture_c_f, params=[Numeric(unit="F", minimum=0.0, maximum=10e-9,
                                                                           default=0.0)])
@@ -225,6 +239,10 @@ class SimulatedOscilloscope(ScpiInstrument):
     def _get_format(self) -> str:
         return f"{'REAL' if self.data_real else 'INT'},{self.data_bits}"
 
+    def _set_load_capacitance(self, value: float) -> None:
+        self.model.set_output_capacitance(value)
+        self.audit_state("fixture_load_capacitance_f", value)
+
     def _set_probe(self, word: str, n: int) -> None:
         self._ch[n].signal = _PROBE_WORDS[word]
         self._record = None
@@ -271,6 +289,8 @@ class SimulatedOscilloscope(ScpiInstrument):
             return None
         n = int(self.trig_source[2])
         signal = self._ch[n].signal
+        if signal in SERIES_ONLY or (signal in SERIES_INDEX and self._free_running_since(t_arm, now)):
+            return self._find_series_trigger(signal, t_arm, now)
         dt = self.duration_s / self.points
         ts = self.model.design.ts_s
         windows = [(t_arm, t_arm + 3 * ts + self.trig_holdoff_s)]
@@ -289,12 +309,47 @@ class SimulatedOscilloscope(ScpiInstrument):
             t = np.arange(a, b, step)
             if t.size < 2:
                 continue
-            v = synth.signal(signal, t)
+            v = probed_signal(self.model, synth, signal, t)
             hit = self._first_edge(t, v, level, step)
             if hit is not None and hit >= t_arm:
                 return hit
             self._searched.add((a, b))
         return None
+
+    def _free_running_since(self, t_arm: float, now: float) -> bool:
+        """Whether a start, stop or lock-out is in force at arming or began after it."""
+        times = [t_arm] + self.model.event_times_between(t_arm, now)
+        return bool(np.any(self.model.free_running_mask(np.array(sorted(times)))))
+
+    def _find_series_trigger(self, signal: str, t_arm: float, now: float) -> float | None:
+        """First edge of ``signal`` in the model's series from ``t_arm`` to ``now``, refined once."""
+        if now <= t_arm:
+            return None
+        level = self.trig_level
+        if self._ch[int(self.trig_source[2])].coupling == "AC":
+            level = level + RecordSynth(RecordContext(self.model.design, self._op_at_arm, ())).dc_level(signal)
+        synth = RecordSynth(self._context(t_arm, now))
+        a = t_arm - self.trig_holdoff_s
+        step = max((now - a) / self.SERIES_SEARCH_POINTS, 1e-9)
+        t = np.arange(a, now, step)
+        if t.size < 2:
+            return None
+        v = probed_signal(self.model, synth, signal, t)
+        hit = self._first_edge(t, v, level, step)
+        if hit is None:
+            return None
+        fine = max(step / 1000.0, 1e-10)
+        lo = max(hit - 2 * step, a)
+        tf = np.arange(lo, min(hit + 2 * step, now), fine)
+        if tf.size >= 2:
+            vf = probed_signal(self.model, synth, signal, tf)
+            edges = np.flatnonzero((vf[1:] > level) != (vf[:-1] > level))
+            if edges.size:
+                k = int(edges[0]) + 1
+                a0, b0 = vf[k - 1], vf[k]
+                frac = (level - a0) / (b0 - a0) if b0 != a0 else 0.0
+                hit = float(tf[k - 1] + frac * fine)
+        return hit if hit >= t_arm else None
 
     def _first_edge(self, t: np.ndarray, v: np.ndarray, level: float, step: float) -> float | None:
         above = v > level
@@ -328,7 +383,7 @@ class SimulatedOscilloscope(ScpiInstrument):
         for n, ch in self._ch.items():
             if not ch.on:
                 continue
-            v = synth.signal(ch.signal, t_abs)
+            v = probed_signal(self.model, synth, ch.signal, t_abs)
             if ch.coupling == "AC":
                 v = v - synth.dc_level(ch.signal)
             bw = min(self.ANALOG_BANDWIDTH_HZ, ch.bw_freq_hz) if ch.bw_limit else self.ANALOG_BANDWIDTH_HZ
