@@ -24,7 +24,7 @@ def _free_port() -> int:
 def test_source_identify_set_measure(bench):
     with DcSource(bench.resources["source"], name="source") as src:
         # *IDN? has four comma-separated fields (IEEE 488.2-1992 §10.14, from memory)
-        assert src.identity.maker == "benchctl-sim" and src.identity.model == "DCS-100-10"
+        assert src.identity.maker == "benchctl-sim" and src.identity.model == "sim dc source"
         src.reset()
         assert src.output_enabled() is False
         src.set_ovp(80.0)

@@ -115,7 +115,7 @@ def test_other_instrument_after_reconnect_raises(bench):
     inst = bench.instruments["source"]
     original = inst.identity
     try:
-        inst.identity = Identity("benchctl-sim", "DCS-100-10", "OTHER", "1.0")
+        inst.identity = Identity("benchctl-sim", "sim dc source", "OTHER", "1.0")
         plan.fire("drop@source:manual,for=0")
         with pytest.raises(InstrumentStateError, match="another instrument"):
             src.measure_voltage()

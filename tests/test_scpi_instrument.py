@@ -303,9 +303,9 @@ def test_opc_query_wait_is_bounded() -> None:
 
 
 def test_common_queries_and_their_errors(inst: DemoSource) -> None:
-    assert inst.handle_message("*IDN?") == "benchctl-sim,DEMO-PSU-80V,SN0001,0.1"  # §10.14 four fields
+    assert inst.handle_message("*IDN?") == "benchctl-sim,sim demo supply,SN0001,0.1"  # §10.14 four fields
     assert inst.handle_message("*TST?") == "0"  # §10.38: 0 = self-test passed
-    assert inst.handle_message("*idn?") == "benchctl-sim,DEMO-PSU-80V,SN0001,0.1"
+    assert inst.handle_message("*idn?") == "benchctl-sim,sim demo supply,SN0001,0.1"
     for bad, code in [("*XYZ", -113), ("*RST?", -113), ("*IDN", -113), ("*IDN? 5", -108), ("*ESE", -109)]:
         assert inst.handle_message(bad) is None
         assert errors(inst) == [code], bad
@@ -313,7 +313,7 @@ def test_common_queries_and_their_errors(inst: DemoSource) -> None:
 
 def test_query_after_idn_is_440(inst: DemoSource) -> None:
     # IEEE 488.2-1992 §8.7.11 / §6.5.7.5 (from memory): *IDN? is arbitrary ASCII data, must end the response
-    assert inst.handle_message("*IDN?;*OPC?;VOLT 3") == "benchctl-sim,DEMO-PSU-80V,SN0001,0.1"
+    assert inst.handle_message("*IDN?;*OPC?;VOLT 3") == "benchctl-sim,sim demo supply,SN0001,0.1"
     assert inst.voltage_v == 3.0
     assert errors(inst) == [-440]
 

@@ -31,7 +31,7 @@ def setup():
 
 def test_identity_settings_and_measurement(setup) -> None:
     inst, srv, res, rm = setup
-    assert res.query("*IDN?").split(",") == ["benchctl-sim", "DEMO-PSU-80V", "SN0001", "0.1"]
+    assert res.query("*IDN?").split(",") == ["benchctl-sim", "sim demo supply", "SN0001", "0.1"]
     res.write("*RST;*CLS")
     res.write("SOUR:VOLT 12 V;CURR 500 mA")
     res.write("OUTP ON")

@@ -97,7 +97,7 @@ def test_start_logs_listens_and_is_idempotent(inst: DemoSource, caplog: pytest.L
         assert srv.start() is srv and srv.port == port  # idempotent
         c = Client(port)
         assert c.sock.getpeername() == ("127.0.0.1", port)
-        assert c.query("*IDN?") == "benchctl-sim,DEMO-PSU-80V,SN0001,0.1"
+        assert c.query("*IDN?") == "benchctl-sim,sim demo supply,SN0001,0.1"
         c.close()
     finally:
         srv.stop()
@@ -176,7 +176,7 @@ def test_bad_bytes_do_not_kill_the_server(client: Client) -> None:
     client.send(b"\xff\xfe\x00\x80garbage\n")
     client.send(b"DISP:TEXT '\xc3\x28'\n")  # invalid UTF-8 inside a string
     client.send(b"VOLT \x81\n;;;,,,\n#\n'\n")
-    assert client.query("*IDN?") == "benchctl-sim,DEMO-PSU-80V,SN0001,0.1"
+    assert client.query("*IDN?") == "benchctl-sim,sim demo supply,SN0001,0.1"
     codes = [int(client.query("SYST:ERR?").split(",")[0]) for _ in range(7)]
     # bytes above 0x7E are -101 Invalid character; stray separators and quotes -102 Syntax error
     assert codes == [-101, -101, -101, -102, -102, -102, 0]
@@ -263,7 +263,7 @@ def test_fault_unresponsive_then_recovered(server: ScpiServer, client: Client, i
     assert inst.audit.commands() == []  # nothing was processed
     client.sock.settimeout(3)
     server.set_fault("none")
-    assert client.readline() == b"benchctl-sim,DEMO-PSU-80V,SN0001,0.1"  # the held message runs now
+    assert client.readline() == b"benchctl-sim,sim demo supply,SN0001,0.1"  # the held message runs now
 
 
 def test_fault_drop_closes_and_refuses_until_cleared(server: ScpiServer, client: Client) -> None:

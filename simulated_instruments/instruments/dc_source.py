@@ -36,7 +36,7 @@ class SimulatedDcSource(ScpiInstrument):
 
     def __init__(self, model, *, serial: str = "S1001", seed: int = 0, aperture_s: float = DEFAULT_APERTURE_S,
                  sleep: Callable[[float], None] = time.sleep) -> None:
-        super().__init__(Identity(maker="benchctl-sim", model="DCS-100-10", serial=serial, firmware="1.0"))
+        super().__init__(Identity(maker="benchctl-sim", model="sim dc source", serial=serial, firmware="1.0"))
         self.model = model
         self.errors = InstrumentErrors(self.ACCURACY, [seed, 1])
         self.aperture = Aperture(model.clock, aperture_s, sleep)

@@ -65,7 +65,7 @@ class SimulatedElectronicLoad(ScpiInstrument):
 
     def __init__(self, model, *, serial: str = "L2001", seed: int = 0, aperture_s: float = DEFAULT_APERTURE_S,
                  sleep: Callable[[float], None] = time.sleep) -> None:
-        super().__init__(Identity(maker="benchctl-sim", model="ELD-150-30", serial=serial, firmware="1.0"))
+        super().__init__(Identity(maker="benchctl-sim", model="sim electronic load", serial=serial, firmware="1.0"))
         self.model = model
         self.activity = activity_for(model)
         self.errors = InstrumentErrors(self.ACCURACY, [seed, 2])

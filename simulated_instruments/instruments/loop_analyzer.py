@@ -129,7 +129,7 @@ class SimulatedLoopAnalyzer(ScpiInstrument):
     MIN_PERIODS_PER_POINT = 5.0
 
     def __init__(self, model, *, serial: str = "A4001", seed: int = 0, opc_timeout_s: float = 3600.0) -> None:
-        super().__init__(Identity(maker="benchctl-sim", model="FRA-10M", serial=serial, firmware="1.0"),
+        super().__init__(Identity(maker="benchctl-sim", model="sim loop analyzer", serial=serial, firmware="1.0"),
                          opc_timeout_s=opc_timeout_s)
         self.model = model
         self._rng = np.random.default_rng([seed, 5])

@@ -106,9 +106,10 @@ class SimulatedOscilloscope(ScpiInstrument):
     AUTO_TIMEOUT_S = 10e-3
     NOISE_DIV_RMS = 0.004  # front-end noise, divisions rms
     TRIGGER_SEARCH_POINTS = 400_000
+    SERIES_SEARCH_POINTS = 20_000
 
     def __init__(self, model, *, serial: str = "O4001", seed: int = 0) -> None:
-        super().__init__(Identity(maker="benchctl-sim", model="DSO-4-500", serial=serial, firmware="1.0"),
+        super().__init__(Identity(maker="benchctl-sim", model="sim oscilloscope", serial=serial, firmware="1.0"),
                          opc_timeout_s=60.0)
         self.model = model
         self.activity = activity_for(model)

@@ -55,7 +55,7 @@ class SimulatedPowerMeter(ScpiInstrument):
                  aperture_s: float = DEFAULT_APERTURE_S, sleep: Callable[[float], None] = time.sleep) -> None:
         if side not in ("input", "output"):
             raise ValueError(f"side must be 'input' or 'output', not {side!r}")
-        super().__init__(Identity(maker="benchctl-sim", model="PWM-600", serial=serial, firmware="1.0"), sleep=sleep)
+        super().__init__(Identity(maker="benchctl-sim", model="sim power meter", serial=serial, firmware="1.0"), sleep=sleep)
         self.model = model
         self.side = side
         self.errors = InstrumentErrors(self.ACCURACY, [seed, 3 if side == "input" else 4])

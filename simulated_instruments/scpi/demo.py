@@ -11,7 +11,7 @@ from .errors import ScpiExecutionError
 from .instrument import Identity, ScpiInstrument
 from .params import Block, Boolean, Choice, Numeric, Text
 
-DEMO_IDENTITY = Identity(maker="benchctl-sim", model="DEMO-PSU-80V", serial="SN0001", firmware="0.1")
+DEMO_IDENTITY = Identity(maker="benchctl-sim", model="sim demo supply", serial="SN0001", firmware="0.1")
 
 
 class DemoSource(ScpiInstrument):
