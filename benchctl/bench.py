@@ -90,6 +90,12 @@ class Bench:
     def has_role(self, name: str) -> bool:
         return name in self._instruments
 
+    def roles_of_kind(self, kind: str) -> list[str]:
+        """The names of this bench's roles of driver kind ``kind`` (``"electronic_load"``), in
+        the station's order: a procedure that declared ``Role("load2", "electronic_load")``
+        drives every load with ``for name in bench.roles_of_kind("electronic_load")``."""
+        return [name for name, inst in self._instruments.items() if getattr(inst, "kind", None) == kind]
+
     @property
     def source(self) -> Any:
         return self.role("source")

@@ -31,6 +31,11 @@ class Guarded:
         return self._driver.identity
 
     @property
+    def kind(self) -> str:
+        """The driver kind (``dc_source``, ``electronic_load`` ...) this guard was chosen by."""
+        return str(getattr(self._driver, "kind", ""))
+
+    @property
     def resource(self) -> str:
         return self._driver.resource
 
@@ -75,11 +80,11 @@ class GuardedSource(Guarded):
     def set_output(self, on: bool) -> None:
         self._before()
         if on:
-            self._interlock.output_state_changed(source_on=True)
+            self._interlock.output_switched(self.role, True)
             self._driver.set_output(True)
         else:
             self._driver.set_output(False)
-            self._interlock.output_state_changed(source_on=False)
+            self._interlock.output_switched(self.role, False)
 
     def output_enabled(self) -> bool:
         self._before()
@@ -154,11 +159,11 @@ class GuardedLoad(Guarded):
     def set_input(self, on: bool) -> None:
         self._before()
         if on:
-            self._interlock.output_state_changed(load_on=True)
+            self._interlock.output_switched(self.role, True)
             self._driver.set_input(True)
         else:
             self._driver.set_input(False)
-            self._interlock.output_state_changed(load_on=False)
+            self._interlock.output_switched(self.role, False)
 
     def input_enabled(self) -> bool:
         self._before()
@@ -178,7 +183,9 @@ class GuardedLoad(Guarded):
 
 
 class GuardedMeter(Guarded):
-    """Power meter / DMM behind the interlock; its limits depend on where it is connected."""
+    """Power meter / DMM behind the interlock; its limits depend on where it is connected:
+    ``input_meter`` against the source limits, ``output_meter`` against the DUT output's;
+    a meter in any other role observes only (its readings are not checked against limits)."""
 
     _LIMITS = {
         "input_meter": ("source_voltage_max_v", "source_current_max_a", None),
@@ -339,10 +346,24 @@ GUARDS: dict[str, type[Guarded]] = {
 }
 
 
+def register_guard(kind: str, cls: type[Guarded]) -> None:
+    """Give driver kind ``kind`` its guard (a lab's new kind: a subclass of :class:`Guarded`
+    exposing the methods a procedure may call, checking what they set)."""
+    if not (isinstance(cls, type) and issubclass(cls, Guarded)):
+        raise TypeError(f"register_guard({kind!r}, {cls!r}): the guard must subclass benchctl.guarded.Guarded")
+    GUARDS[kind] = cls
+
+
+def has_guard(kind: str) -> bool:
+    return kind in GUARDS
+
+
 def guard(driver: Any, interlock: Interlock) -> Guarded:
-    """The guarded wrapper for a driver of any known kind."""
+    """The guarded wrapper for a driver, chosen by the driver's kind (whatever its role is called)."""
     try:
         cls = GUARDS[driver.kind]
     except KeyError:
-        raise TypeError(f"no interlock guard for driver kind {driver.kind!r}") from None
+        raise TypeError(f"no interlock guard for driver kind {driver.kind!r} (role {getattr(driver, 'name', '?')}); "
+                        f"kinds with a guard: {', '.join(sorted(GUARDS))}. Register one with "
+                        "benchctl.guarded.register_guard") from None
     return cls(driver, interlock)

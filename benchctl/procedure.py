@@ -13,6 +13,21 @@ A procedure file defines, at module level::
     # analyse(points, p, accuracy=...) also receives the station's instrument accuracy by role
     # (benchctl.analysis.uncertainty.StationAccuracy, re-read from the run's stored station file)
 
+Roles: each item of ``ROLES`` is a role name or a :class:`Role`. A classic name
+(``source``, ``load``, ``input_meter``, ``output_meter``, ``analyzer``, ``scope``) implies
+its kind; any other role is declared with its kind, and optional ones say so::
+
+    ROLES = ("source", "load", "output_meter",
+             Role("load2", "electronic_load"),               # a second load, required
+             Role("temp_logger", "temperature_meter", optional=True))
+
+A required role the station lacks, or a role of the wrong kind, stops the run before any
+instrument is opened; an optional role is opened when the station has it
+(``bench.has_role("temp_logger")``). ``bench.role(name)`` returns it behind the interlock,
+guarded by its kind; ``bench.roles_of_kind("electronic_load")`` lists the station's roles
+of one kind that the procedure declared. Every role of kind ``dc_source`` or
+``electronic_load`` is switched off by the interlock at every end (sources first).
+
 Procedures are found by name in the ``procedures`` package or loaded from any path. The
 parameters are validated (names, types, ranges) before any instrument is opened.
 
@@ -39,6 +54,55 @@ from typing import Any, Callable, Iterable, Mapping, Sequence
 from benchctl.errors import ParameterError, ProcedureError
 
 _KINDS = ("float", "int", "bool", "str", "float_list")
+
+
+class Role(str):
+    """A role a procedure needs: its name (this string), the driver ``kind`` it must have and
+    whether it is ``optional``. ``Role("load2", "electronic_load")``. A plain string in
+    ``ROLES`` is a required role whose kind the classic role name implies (any kind for
+    another name). It compares and hashes as its name."""
+
+    kind: str
+    optional: bool
+
+    def __new__(cls, name: str, kind: str = "", optional: bool = False) -> "Role":
+        from benchctl.station import ROLE_KINDS
+
+        if not isinstance(name, str) or not name:
+            raise ProcedureError(f"Role: the name must be a non-empty string, not {name!r}")
+        implied = ROLE_KINDS.get(name, "")
+        if kind and implied and kind != implied:
+            raise ProcedureError(f"Role({name!r}, {kind!r}): role {name!r} is a {implied} by its name; give the "
+                                 f"{kind} another role name")
+        self = super().__new__(cls, name)
+        self.kind = kind or implied
+        self.optional = bool(optional)
+        return self
+
+    def __repr__(self) -> str:
+        extra = ", optional=True" if self.optional else ""
+        return f"Role({str(self)!r}, {self.kind!r}{extra})"
+
+    def __reduce__(self) -> Any:
+        return (Role, (str(self), self.kind, self.optional))
+
+
+def declared_roles(items: Iterable[Any], where: str = "ROLES") -> tuple[Role, ...]:
+    """``ROLES`` as :class:`Role` objects (names become required roles); duplicates are refused."""
+    if isinstance(items, (str, bytes)) or not isinstance(items, Iterable):
+        raise ProcedureError(f"{where} must be a tuple of role names or Role(...) items, not {items!r}")
+    out: list[Role] = []
+    for item in items:
+        if isinstance(item, Role):
+            role = item
+        elif isinstance(item, str):
+            role = Role(item)
+        else:
+            raise ProcedureError(f"{where}: item {item!r} is neither a role name nor Role(name, kind)")
+        if role in out:
+            raise ProcedureError(f"{where}: role {str(role)!r} is declared twice")
+        out.append(role)
+    return tuple(out)
 
 
 @dataclass(frozen=True)
@@ -174,7 +238,7 @@ class Procedure:
 
     name: str
     description: str
-    roles: tuple[str, ...]
+    roles: tuple[Role, ...]  # each a str (its name) with .kind and .optional
     parameters: tuple[Parameter, ...]
     plan: Callable[[Parameters], list[dict[str, Any]]]
     run: Callable[..., None]
@@ -182,6 +246,14 @@ class Procedure:
     path: Path
     source_sha256: str
     module: ModuleType
+
+    @property
+    def required_roles(self) -> tuple[Role, ...]:
+        return tuple(r for r in self.roles if not getattr(r, "optional", False))
+
+    def roles_on(self, station: Any) -> tuple[Role, ...]:
+        """The declared roles the station has (every required one, the optional ones present)."""
+        return tuple(r for r in declared_roles(self.roles) if str(r) in station.instruments)
 
     def planned(self, params: Parameters) -> list[dict[str, Any]]:
         """``plan(params)``; an exception in it becomes a :class:`~benchctl.errors.ProcedureError`
@@ -308,7 +380,7 @@ def load_procedure(name_or_path: str) -> Procedure:
     return Procedure(
         name=str(getattr(module, "NAME", path.stem)),
         description=str(getattr(module, "DESCRIPTION", (module.__doc__ or "").strip().splitlines()[0] if module.__doc__ else "")),
-        roles=tuple(module.ROLES),
+        roles=declared_roles(module.ROLES, f"{path}: ROLES"),
         parameters=parameters,
         plan=module.plan,
         run=module.run,

@@ -18,6 +18,7 @@ interrupted with the signal named. Further signals do not cut that shutdown shor
 
 from __future__ import annotations
 
+import datetime as _dt
 import logging
 import math
 import time
@@ -29,7 +30,7 @@ from benchctl.errors import BenchctlError, InstrumentError, InterlockTrip, Setpo
 from benchctl.guarded import guard
 from benchctl.interlock import Interlock, WatchSource
 from benchctl.procedure import Parameters, Procedure
-from benchctl.station import Station
+from benchctl.station import LOAD_KIND, SOURCE_KIND, Station
 from benchctl.station_lock import one_run_per_station
 from benchctl.termination import StopSignal, StopSignals
 
@@ -60,18 +61,22 @@ class RunOutcome:
         return self.status == "completed"
 
 
+def _outputs_of(drivers: Mapping[str, Any], station: Station, kind: str) -> dict[str, Any]:
+    """The opened drivers of ``kind`` by role, in the station file's order."""
+    return {role: drivers[role] for role in station.roles_of_kind(kind) if role in drivers}
+
+
 def _program_protection(drivers: Mapping[str, Any], station: Station) -> None:
-    """The instruments' own protection as a hardware second layer, and every output off."""
+    """The instruments' own protection as a hardware second layer, and every output off
+    (every source, then every load)."""
     lim = station.limits
-    source = drivers.get("source")
-    load = drivers.get("load")
     for driver in drivers.values():
         driver.reset()
-    if source is not None:
+    for source in _outputs_of(drivers, station, SOURCE_KIND).values():
         source.set_output(False)
         source.set_ovp(lim.source_voltage_max_v)
         source.set_current_limit(min(lim.source_current_max_a, source.current_limit()))
-    if load is not None:
+    for load in _outputs_of(drivers, station, LOAD_KIND).values():
         load.set_input(False)
         load.set_current_protection(lim.load_current_max_a)
         load.set_power_protection(lim.load_power_max_w)
@@ -93,6 +98,7 @@ def execute(
     resume_run_id: int | None = None,
     notify: Callable[[str], None] | None = None,
     accept_station_change: bool = False,
+    today: _dt.date | None = None,
 ) -> RunOutcome:
     """Run ``procedure`` on ``station`` into ``store`` and return how it ended.
 
@@ -104,16 +110,24 @@ def execute(
     how long it may take). A signal that arrives after the body ended (during the shutdown
     or the analysis) is raised as :class:`~benchctl.termination.StopSignal` once the run
     is stored, so a caller running several procedures stops too.
+
+    Calibration: an instrument of the run whose ``calibration_due`` is before ``today``
+    (default: the local date) is told through ``notify`` and stored as a
+    ``calibration_overdue`` event; with ``[station] calibration_overdue = "refuse"`` the run
+    is refused (:class:`~benchctl.errors.CalibrationOverdueError`) before any instrument
+    is opened. Every stated calibration is stored as a ``calibration`` event.
     """
     station.require_roles(procedure.roles, needed_by=f"procedure {procedure.name}")
+    roles = _roles_to_open(procedure, station)
+    overdue = _calibration_check(station, roles, today=today or _dt.date.today(), notify=notify)
     started = time.monotonic()
     if resume_run_id is not None and _resume_is_complete(store, procedure, params, resume_run_id):
         return _finish_complete_resume(store, procedure, params, resume_run_id, started)
     with StopSignals(notify=notify) as signals:
         with signals.interruptible():
-            drivers = _open_instruments(station, procedure.roles)
+            drivers = _open_instruments(station, roles)
         interlock = _interlock_for(station)
-        interlock.attach_outputs(drivers.get("source"), drivers.get("load"))
+        interlock.attach_outputs(_outputs_of(drivers, station, SOURCE_KIND), _outputs_of(drivers, station, LOAD_KIND))
         signals.budget_s = interlock.shutdown_budget_s
         try:
             with signals.deferred():
@@ -129,11 +143,12 @@ def execute(
         status, message, bench = "failed", "", None
         try:
             with signals.interruptible():
+                _record_calibration(writes, run_id, station, roles, overdue)
                 if on_begin is not None:
                     on_begin(run_id)
                 bench = _bench_for(writes, run_id, drivers, interlock, settle_enabled, progress, skip_points,
                                    station.dut_time_constant_s)
-                _arm_watch(interlock, bench, drivers)
+                _arm_watch(interlock, bench, drivers, station)
                 status, message = _run_body(procedure, params, bench, drivers, interlock, station, writes, run_id)
         except KeyboardInterrupt as exc:  # a stop before the body began, or as it returned
             status, message = _interrupted(store, run_id, exc)
@@ -155,6 +170,65 @@ def execute(
                              trip=interlock.trip_record, shutdown_steps=tuple(steps))
         signals.raise_if_received()
     return outcome
+
+
+def _roles_to_open(procedure: Procedure, station: Station) -> tuple[str, ...]:
+    """The declared roles the station has, checked to have a guard for their kind (before
+    anything is opened)."""
+    from benchctl.errors import StationFileError
+    from benchctl.guarded import has_guard
+
+    roles = tuple(str(r) for r in procedure.roles_on(station))
+    unguarded = [f"{r} ({station.kind_of(r)})" for r in roles if not has_guard(station.kind_of(r))]
+    if unguarded:
+        raise StationFileError(
+            f"station {station.name!r}: no interlock guard for role(s) {', '.join(unguarded)} used by procedure "
+            f"{procedure.name}; nothing was opened. A new kind needs its guard (benchctl.guarded.register_guard)")
+    return roles
+
+
+def _calibration_check(station: Station, roles: tuple[str, ...], *, today: _dt.date,
+                       notify: Callable[[str], None] | None) -> list[dict[str, Any]]:
+    """The run's instruments whose calibration is past due on ``today``: told through ``notify``
+    (the console's caution); refused before anything is opened when the station says so."""
+    from benchctl.errors import CalibrationOverdueError
+
+    overdue = [{"role": role, "calibration_due": cfg.calibration_due.isoformat() if cfg.calibration_due else None,
+                "calibration_certificate": cfg.calibration_certificate, "days_overdue": days,
+                "resource": cfg.resource}
+               for role, cfg, days in station.overdue_calibrations(roles, today)]
+    if not overdue:
+        return []
+    lines = [f"{o['role']} (due {o['calibration_due']}, {o['days_overdue']} day(s) ago"
+             + (f", certificate {o['calibration_certificate']}" if o["calibration_certificate"] else "") + ")"
+             for o in overdue]
+    if station.calibration_overdue == "refuse":
+        raise CalibrationOverdueError(
+            f"station {station.name!r} ({station.path or 'in memory'}) refuses runs with an instrument past its "
+            f"calibration due date (calibration_overdue = \"refuse\"): {'; '.join(lines)}. Nothing was opened. "
+            "Have the instrument calibrated and update calibration_due, or use another instrument")
+    text = ("CAUTION: calibration overdue: " + "; ".join(lines) + ". Its readings are not traceable; the run "
+            "goes on and stores this")
+    logger.warning("%s", text)
+    if notify is not None:
+        notify(text)
+    return overdue
+
+
+def _record_calibration(store: Any, run_id: int, station: Station, roles: tuple[str, ...],
+                        overdue: list[dict[str, Any]]) -> None:
+    """The calibration records of the run's instruments (provenance), and the overdue ones."""
+    records = {role: {"calibration_due": cfg.calibration_due.isoformat(),
+                      "calibration_certificate": cfg.calibration_certificate}
+               for role in roles if (cfg := station.instruments[role]).calibration_due is not None}
+    if records:
+        store.record_event(run_id, "calibration", "instrument calibration: " + "; ".join(
+            f"{role} due {r['calibration_due']}" + (f" ({r['calibration_certificate']})" if r["calibration_certificate"]
+                                                   else "") for role, r in records.items()), {"instruments": records})
+    if overdue:
+        store.record_event(run_id, "calibration_overdue", "calibration overdue: " + "; ".join(
+            f"{o['role']} due {o['calibration_due']} ({o['days_overdue']} day(s) before the run)" for o in overdue),
+            {"instruments": overdue})
 
 
 def _interlock_for(station: Station) -> Interlock:
@@ -325,25 +399,45 @@ WATCHED = (
     ("input current", ("input_meter", "source"), "current"),
     ("output voltage", ("output_meter", "load"), "voltage"),
 )
-#: Roles whose instrument must answer the watch: they switch energy, so a silent one trips the run.
+#: Roles whose instrument must answer the watch: they switch energy, so a silent one trips the run
+#: (and so does any other role of a kind in :data:`benchctl.station.ENERGY_KINDS`).
 MUST_ANSWER = ("source", "load")
 
 
-def _arm_watch(interlock: Interlock, bench: Bench, drivers: Mapping[str, Any]) -> None:
+def _arm_watch(interlock: Interlock, bench: Bench, drivers: Mapping[str, Any], station: Station | None = None) -> None:
     """What the background watch reads: every instrument's power-on status (first: it is quick;
     a reset stops the run; a source or load that answers nobody trips it), the DUT input
     (input meter and the source's read-back) and the DUT output (output meter and the load's
-    read-back)."""
+    read-back). Every further source and load role (``source2``, ``load2``) is watched on its own
+    read-back: its input (source) or output (load) voltage, each a quantity of its own."""
+    energy = _energy_roles(drivers, station)
     for role, d in drivers.items():
         check = getattr(d, "check_power_on_now", None)
         if callable(check):
             interlock.watch(f"{role} power-on status",
                             [WatchSource(role, _bounded(check), answered_at=_last_answer(d))],
-                            required=role in MUST_ANSWER)
+                            required=role in MUST_ANSWER or role in energy)
     for name, roles, quantity in WATCHED:
         sources = [bench.role(role).watch_source(quantity) for role in roles if bench.has_role(role)]
         if sources:
             interlock.watch(name, sources)
+    for role, kind in energy.items():
+        if role in MUST_ANSWER:
+            continue  # watched above
+        quantities = (("input voltage", "voltage"), ("input current", "current")) if kind == SOURCE_KIND else \
+            (("output voltage", "voltage"),)
+        for name, quantity in quantities:
+            interlock.watch(f"{name} at {role}", [bench.role(role).watch_source(quantity)])
+
+
+def _energy_roles(drivers: Mapping[str, Any], station: Station | None) -> dict[str, str]:
+    """Role -> kind of every opened source and load (by the station's kinds, else the drivers')."""
+    out = {}
+    for role, d in drivers.items():
+        kind = station.kind_of(role) if station is not None and role in station.instruments else getattr(d, "kind", "")
+        if kind in (SOURCE_KIND, LOAD_KIND):
+            out[role] = kind
+    return out
 
 
 def _last_answer(driver: Any) -> Callable[[], float]:

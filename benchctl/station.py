@@ -43,7 +43,9 @@ uncertainty (:mod:`benchctl.analysis.uncertainty`).
 
 from __future__ import annotations
 
+import datetime as _dt
 import math
+import re
 import tomllib
 from dataclasses import dataclass, field, fields
 from functools import lru_cache
@@ -67,7 +69,9 @@ from benchctl.config_file import read_config_text
 #: boundary of 60 V DC (IEC 62368-1 Table 4; IEC 60950-1 §1.2.8.8 — from memory).
 HAZARDOUS_DC_VOLTAGE_V = 60.0
 
-#: The roles a procedure may ask for, and the driver kind each must have.
+#: The classic roles and the driver kind each name implies. A station may name any other
+#: role (``[instruments.load2]``, ``[instruments.temp_logger]``); its kind is then its
+#: ``kind`` key, or its driver's kind.
 ROLE_KINDS: dict[str, str] = {
     "source": "dc_source",
     "load": "electronic_load",
@@ -76,6 +80,18 @@ ROLE_KINDS: dict[str, str] = {
     "analyzer": "loop_analyzer",
     "scope": "oscilloscope",
 }
+
+#: Kinds that put energy into the DUT or take it out: every instrument of these kinds is
+#: switched off by the interlock's shutdown (sources first, then loads) and must answer its watch.
+SOURCE_KIND = "dc_source"
+LOAD_KIND = "electronic_load"
+ENERGY_KINDS = (SOURCE_KIND, LOAD_KIND)
+
+#: What ``[station] calibration_overdue`` may say: print a caution and store an event, or
+#: refuse the run before any instrument is opened.
+CALIBRATION_POLICIES = ("warn", "refuse")
+
+_ROLE_NAME = re.compile(r"^[A-Za-z][A-Za-z0-9_]{0,63}$")
 
 DRIVER_ENTRY_POINT_GROUP = "benchctl.drivers"
 
@@ -125,6 +141,25 @@ class InstrumentConfig:
     options: Mapping[str, Any] = field(default_factory=dict)
     commands: Mapping[str, str] = field(default_factory=dict)
     accuracy: Mapping[str, QuantityAccuracy] = field(default_factory=dict)
+    kind: str = ""  # the driver kind of this role ("" only for configs built in code: see effective_kind)
+    calibration_due: _dt.date | None = None  # the date the instrument's calibration expires
+    calibration_certificate: str = ""  # the certificate (report) id of its last calibration
+
+    @property
+    def effective_kind(self) -> str:
+        """The role's kind: as given, implied by a classic role name, or the driver's kind."""
+        if self.kind:
+            return self.kind
+        if self.role in ROLE_KINDS:
+            return ROLE_KINDS[self.role]
+        return str(getattr(load_driver_class(self.driver), "kind", ""))
+
+    def calibration_overdue_days(self, today: _dt.date) -> int | None:
+        """Days past the calibration due date on ``today`` (0 on the due date itself is not
+        overdue: None), or None when the instrument is in date or states no due date."""
+        if self.calibration_due is None or today <= self.calibration_due:
+            return None
+        return (today - self.calibration_due).days
 
     def create(self) -> Any:
         """A driver object for this instrument (not yet opened)."""
@@ -153,6 +188,7 @@ class Station:
     path: Path | None = None
     text: str = ""
     dut_time_constant_s: float | None = None  # the DUT's dominant settling time constant, s (settling)
+    calibration_overdue: str = "warn"  # an overdue instrument: "warn" (caution + event) or "refuse" the run
 
     @property
     def accuracy(self) -> dict[str, InstrumentAccuracy]:
@@ -161,21 +197,61 @@ class Station:
         return {role: InstrumentAccuracy(cfg.resource, dict(cfg.accuracy))
                 for role, cfg in self.instruments.items() if cfg.accuracy}
 
-    def require_roles(self, roles: list[str] | tuple[str, ...], *, needed_by: str = "") -> None:
-        missing = [r for r in roles if r not in self.instruments]
+    def kind_of(self, role: str) -> str:
+        """The driver kind of ``role`` (KeyError when the station has no such role)."""
+        return self.instruments[role].effective_kind
+
+    def roles_of_kind(self, kind: str) -> list[str]:
+        """The station's roles of ``kind``, in the order of the station file."""
+        return [role for role in self.instruments if self.kind_of(role) == kind]
+
+    def require_roles(self, roles: Any, *, needed_by: str = "") -> None:
+        """Check the station has every role of ``roles`` with the kind it needs.
+
+        ``roles`` are names (a classic role name implies its kind; another name accepts any
+        kind) or :class:`benchctl.procedure.Role` objects (with ``kind`` and ``optional``);
+        an optional role may be missing, but when present it must have its kind.
+        """
+        who = f" needed by {needed_by}" if needed_by else ""
+        missing, wrong = [], []
+        for r in roles:
+            name = str(r)
+            kind = getattr(r, "kind", None) or ROLE_KINDS.get(name)
+            if name not in self.instruments:
+                if not getattr(r, "optional", False):
+                    missing.append(f"{name} ({kind})" if kind else name)
+                continue
+            have = self.kind_of(name)
+            if kind and have != kind:
+                wrong.append(f"{name} is a {have}, but a {kind} is needed")
         if missing:
-            who = f" needed by {needed_by}" if needed_by else ""
             raise StationFileError(
                 f"station {self.name!r} ({self.path or 'in memory'}) has no instrument for role(s) "
                 f"{', '.join(missing)}{who}; add [instruments.<role>] tables for them"
             )
+        if wrong:
+            raise StationFileError(
+                f"station {self.name!r} ({self.path or 'in memory'}): {'; '.join(wrong)}{who}; give the role an "
+                "instrument of that kind (its driver, or its kind key)"
+            )
+
+    def overdue_calibrations(self, roles: Any, today: _dt.date) -> list[tuple[str, InstrumentConfig, int]]:
+        """(role, config, days overdue) of each of ``roles`` whose calibration is past due on ``today``."""
+        out = []
+        for r in roles:
+            cfg = self.instruments.get(str(r))
+            days = None if cfg is None else cfg.calibration_overdue_days(today)
+            if cfg is not None and days is not None:
+                out.append((str(r), cfg, days))
+        return out
 
 
 _LIMIT_KEYS = [f.name for f in fields(StationLimits)]
 _STATION_KEYS = {"name", "description", "watch_period_s", "hazardous_voltage_acknowledged", "database",
-                 "dut_time_constant_s"}
+                 "dut_time_constant_s", "calibration_overdue"}
 _STATION_KEYS |= {"watch_deadline_s", "watch_missed_periods", "shutdown_deadline_s"}
-_INSTRUMENT_KEYS = {"driver", "resource", "timeout_s", "options", "commands", "accuracy"}
+_INSTRUMENT_KEYS = {"driver", "resource", "timeout_s", "options", "commands", "accuracy", "kind",
+                    "calibration_due", "calibration_certificate"}
 _TERM_KEYS = {"pct_of_reading", "offset", "range_max", "distribution", "coverage_factor"}
 
 
@@ -326,6 +402,38 @@ def station_accuracy_from_text(text: str | None, *, where: str = "stored station
     return out
 
 
+@dataclass(frozen=True)
+class CalibrationRecord:
+    """One instrument's calibration as its station file states it."""
+
+    role: str
+    due: _dt.date
+    certificate: str = ""
+
+    def overdue_days(self, on: _dt.date) -> int | None:
+        """Days past due on ``on``, or None when in date."""
+        return (on - self.due).days if on > self.due else None
+
+
+def calibration_records_from_text(text: str | None) -> list[CalibrationRecord]:
+    """The calibration records (due date, certificate) of a station file's text, as stored with
+    a run; instruments with a wrong or missing date are left out. Empty when there is no text."""
+    if not text:
+        return []
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError:
+        return []
+    table = data.get("instruments", {})
+    out = []
+    for role, spec in (table.items() if isinstance(table, dict) else ()):
+        due = spec.get("calibration_due") if isinstance(spec, dict) else None
+        if isinstance(due, _dt.date) and not isinstance(due, _dt.datetime):
+            cert = spec.get("calibration_certificate", "")
+            out.append(CalibrationRecord(str(role), due, cert.strip() if isinstance(cert, str) else ""))
+    return out
+
+
 def parse_station(text: str, *, path: Path | None = None) -> Station:
     """Validate station TOML text completely; raise StationFileError listing every problem."""
     where = str(path) if path else "station text"
@@ -362,6 +470,12 @@ def parse_station(text: str, *, path: Path | None = None) -> Station:
         problems.append(f"station.dut_time_constant_s: {dut_tau!r} must be a number of seconds in (0, 3600] "
                         "(the DUT's slowest settling time constant; leave it out to have it estimated)")
 
+    overdue_policy = station.get("calibration_overdue", "warn")
+    if overdue_policy not in CALIBRATION_POLICIES:
+        problems.append(f"station.calibration_overdue: {overdue_policy!r} must be one of "
+                        f"{', '.join(repr(p) for p in CALIBRATION_POLICIES)} (what a run does when an instrument's "
+                        "calibration_due has passed)")
+
     limits_table = data.get("limits")
     limit_values: dict[str, float] = {}
     if not isinstance(limits_table, dict):
@@ -396,8 +510,9 @@ def parse_station(text: str, *, path: Path | None = None) -> Station:
         table = {}
     for role, spec in table.items():
         key = f"instruments.{role}"
-        if role not in ROLE_KINDS:
-            problems.append(f"{key}: unknown role; roles are {', '.join(ROLE_KINDS)}")
+        if not _ROLE_NAME.match(role):
+            problems.append(f"{key}: a role name is a letter, then letters, digits or _ (at most 64), such as "
+                            "load2 or temp_logger")
             continue
         if not isinstance(spec, dict):
             problems.append(f"{key}: must be a table with driver and resource")
@@ -420,11 +535,13 @@ def parse_station(text: str, *, path: Path | None = None) -> Station:
             ok = False
         else:
             cls = load_driver_class(driver)
-            expected = ROLE_KINDS[role]
-            if getattr(cls, "kind", None) != expected:
-                problems.append(
-                    f"{key}.driver: {driver!r} drives a {getattr(cls, 'kind', '?')}, but role {role!r} needs a {expected}"
-                )
+            expected = _role_kind(key, role, spec.get("kind"), problems)
+            if expected is None:
+                ok = False
+            elif expected and getattr(cls, "kind", None) != expected:
+                why = (f"role {role!r} needs a {expected}" if role in ROLE_KINDS and "kind" not in spec
+                       else f"{key}.kind says {expected!r}")
+                problems.append(f"{key}.driver: {driver!r} drives a {getattr(cls, 'kind', '?')}, but {why}")
                 ok = False
             elif callable(getattr(cls, "check_configuration", None)):
                 # the driver's command overrides and options, checked before any instrument is opened
@@ -455,6 +572,8 @@ def parse_station(text: str, *, path: Path | None = None) -> Station:
         if not isinstance(commands, dict):
             problems.append(f"{key}.commands: must be a table of command-name = \"SCPI template\"")
             ok = False
+        calibration_due, certificate = _calibration(key, spec, problems)
+        ok = ok and (calibration_due is not False)
         if ok:
             instruments[role] = InstrumentConfig(
                 role=role,
@@ -464,6 +583,9 @@ def parse_station(text: str, *, path: Path | None = None) -> Station:
                 options=dict(options),
                 commands=dict(commands),
                 accuracy=accuracy,
+                kind=str(getattr(load_driver_class(driver), "kind", "")),
+                calibration_due=calibration_due or None,
+                calibration_certificate=certificate,
             )
 
     if problems:
@@ -481,7 +603,63 @@ def parse_station(text: str, *, path: Path | None = None) -> Station:
         path=path,
         text=text,
         dut_time_constant_s=None if dut_tau is None else float(dut_tau),
+        calibration_overdue=str(overdue_policy),
     )
+
+
+def known_kinds() -> list[str]:
+    """Every driver kind benchctl knows: the classic roles' and those of the installed drivers."""
+    kinds = set(ROLE_KINDS.values())
+    for name in driver_names():
+        try:
+            kind = getattr(load_driver_class(name), "kind", None)
+        except Exception:  # a lab's broken entry point is reported where it is used
+            continue
+        if isinstance(kind, str) and kind:
+            kinds.add(kind)
+    return sorted(kinds)
+
+
+def _role_kind(key: str, role: str, given: Any, problems: list[str]) -> str | None:
+    """The kind role ``role`` must have: its ``kind`` key, else the one a classic name implies,
+    else "" (any: the driver's own); None when the key is wrong (the problem is appended)."""
+    if given is None:
+        return ROLE_KINDS.get(role, "")
+    if not isinstance(given, str) or given not in known_kinds():
+        problems.append(f"{key}.kind: {given!r} is not a known kind; kinds: {', '.join(known_kinds())}")
+        return None
+    implied = ROLE_KINDS.get(role)
+    if implied is not None and given != implied:
+        problems.append(f"{key}.kind: role {role!r} is a {implied} by its name, not a {given}; give this "
+                        f"instrument another role name (such as {role}2)")
+        return None
+    return given
+
+
+def _calibration(key: str, spec: Mapping[str, Any], problems: list[str]) -> tuple[Any, str]:
+    """(calibration_due date or None, certificate) of one instrument table; the date is False
+    when it is wrong (the problem is appended)."""
+    due = spec.get("calibration_due")
+    certificate = spec.get("calibration_certificate", "")
+    out: Any = None
+    if due is not None:
+        if isinstance(due, _dt.datetime) or not isinstance(due, _dt.date):
+            hint = ""
+            if isinstance(due, str):
+                hint = f" (write it without quotes: calibration_due = {due.strip()})"
+            problems.append(f"{key}.calibration_due: {due!r} must be a TOML date such as 2027-03-31, the day the "
+                            f"calibration expires{hint}")
+            out = False
+        else:
+            out = due
+    if not isinstance(certificate, str) or (certificate != "" and not certificate.strip()):
+        problems.append(f"{key}.calibration_certificate: {certificate!r} must be the certificate id as text")
+        certificate = ""
+    elif certificate and due is None:
+        problems.append(f"{key}.calibration_certificate: given without calibration_due; add the date the "
+                        "calibration expires (calibration_due = 2027-03-31)")
+        out = False
+    return out, certificate.strip() if isinstance(certificate, str) else ""
 
 
 def load_station(path: str | Path) -> Station:

@@ -9,8 +9,11 @@ The simulator knows nothing of benchctl: it is reached only through those socket
 Knobs (also ``benchctl sim`` options): ``time_scale`` (model s per wall s),
 ``thermal_drift`` (the parts warm with their loss over minutes of model time; off by
 default), ``reading_time_s`` (the aperture of every meter, source and load reading, wall
-s; default one 50 Hz line cycle, 20 ms).  The station file carries each instrument's
-documented accuracy (``[instruments.<role>.accuracy]``).
+s; default one 50 Hz line cycle, 20 ms), ``extra_loads`` (further electronic loads in
+parallel on the same converter output, roles ``load2``, ``load3`` ...; the model draws
+the sum of their currents and each reads its own share, see :mod:`.shared_output`).
+The station file carries each instrument's documented accuracy
+(``[instruments.<role>.accuracy]``).
 """
 
 from __future__ import annotations
@@ -27,6 +30,7 @@ from .instruments.accuracy import accuracy_toml
 from .instruments.aperture import DEFAULT_APERTURE_S
 from .instruments.oscilloscope import SimulatedOscilloscope
 from .scpi import ScpiServer
+from .shared_output import SharedOutput
 
 logger = logging.getLogger(__name__)
 
@@ -39,6 +43,15 @@ ROLE_DRIVERS = {
     "analyzer": "loop_analyzer",
     "scope": "oscilloscope",
 }
+
+
+def driver_for(role: str) -> str:
+    """The driver name of a role of the simulated bench (``load2`` ... are electronic loads)."""
+    if role in ROLE_DRIVERS:
+        return ROLE_DRIVERS[role]
+    if role.startswith("load") and role[4:].isdigit():
+        return ROLE_DRIVERS["load"]
+    raise KeyError(f"the simulated bench has no role {role!r}")
 
 
 @dataclass(frozen=True)
@@ -67,7 +80,8 @@ class SimulatedBench:
     """A converter model with a source, a load and two power meters served on loopback."""
 
     def __init__(self, model_name: str = "flyback-48v-5v", *, time_scale: float = 1.0, seed: int = 1,
-                 base_port: int = 0, thermal_drift: bool = False, reading_time_s: float | None = None) -> None:
+                 base_port: int = 0, thermal_drift: bool = False, reading_time_s: float | None = None,
+                 extra_loads: int = 0) -> None:
         if model_name not in DESIGNS:
             raise ValueError(f"unknown converter model {model_name!r}; models: {', '.join(sorted(DESIGNS))}")
         aperture_s = DEFAULT_APERTURE_S if reading_time_s is None else float(reading_time_s)
@@ -78,9 +92,14 @@ class SimulatedBench:
         self.clock = ScaledClock(time_scale)
         self.model = ConverterModel(self.design, clock=self.clock, seed=seed, thermal_drift=thermal_drift)
         self.reading_time_s = aperture_s
+        if not (isinstance(extra_loads, int) and 0 <= extra_loads <= 8):
+            raise ValueError(f"extra_loads={extra_loads!r} must be a whole number from 0 to 8")
+        self.extra_loads = extra_loads
+        shared = SharedOutput(self.model) if extra_loads else None
+        first_load_model = shared.port("load") if shared is not None else self.model
         self.instruments = {
             "source": SimulatedDcSource(self.model, serial=f"S{seed:04d}", seed=seed, aperture_s=aperture_s),
-            "load": SimulatedElectronicLoad(self.model, serial=f"L{seed:04d}", seed=seed, aperture_s=aperture_s),
+            "load": SimulatedElectronicLoad(first_load_model, serial=f"L{seed:04d}", seed=seed, aperture_s=aperture_s),
             "input_meter": SimulatedPowerMeter(self.model, "input", serial=f"MI{seed:04d}", seed=seed,
                                                aperture_s=aperture_s),
             "output_meter": SimulatedPowerMeter(self.model, "output", serial=f"MO{seed:04d}", seed=seed,
@@ -88,6 +107,10 @@ class SimulatedBench:
             "analyzer": SimulatedLoopAnalyzer(self.model, serial=f"A{seed:04d}", seed=seed),
             "scope": SimulatedOscilloscope(self.model, serial=f"O{seed:04d}", seed=seed),
         }
+        for k in range(2, extra_loads + 2):
+            assert shared is not None
+            self.instruments[f"load{k}"] = SimulatedElectronicLoad(
+                shared.port(f"load{k}"), serial=f"L{seed:04d}-{k}", seed=seed * 10 + k, aperture_s=aperture_s)
         self.servers = {
             role: ScpiServer(inst, port=(base_port + k if base_port else 0))
             for k, (role, inst) in enumerate(self.instruments.items())
@@ -141,7 +164,7 @@ class SimulatedBench:
         for key, value in lim.__dict__.items():
             lines.append(f"{key} = {value!r}")
         for role, resource in self.resources.items():
-            lines += ["", f"[instruments.{role}]", f'driver = "{ROLE_DRIVERS[role]}"', f'resource = "{resource}"',
+            lines += ["", f"[instruments.{role}]", f'driver = "{driver_for(role)}"', f'resource = "{resource}"',
                       "timeout_s = 2.0"]
             table = getattr(self.instruments[role], "ACCURACY", None)
             if accuracy and table:

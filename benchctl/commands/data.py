@@ -30,6 +30,17 @@ def _json_default(obj):
     return str(obj)
 
 
+def _calibration(info) -> list[dict]:
+    """The calibration records of the run's station file (stored with the run), with how many
+    days past due each was when the run began (None: in date)."""
+    from benchctl.station import calibration_records_from_text
+
+    started = info.started_utc.date() if info.started_utc is not None else None
+    return [{"role": r.role, "calibration_due": r.due.isoformat(), "calibration_certificate": r.certificate,
+             "days_overdue_at_run": r.overdue_days(started) if started is not None else None}
+            for r in calibration_records_from_text(info.station_text)]
+
+
 def cmd_runs(args: argparse.Namespace) -> int:
     with _open(args.db) as store:
         frame = store.runs(status=args.status, procedure=args.procedure, station=args.station_name, limit=args.limit)
@@ -71,6 +82,7 @@ def cmd_show(args: argparse.Namespace) -> int:
         info = store.run(run_id)
         if args.json:
             payload = asdict(info)
+            payload["calibration"] = _calibration(info)
             payload.pop("station_text", None)
             from benchctl.export_table import json_records
 
@@ -94,8 +106,16 @@ def cmd_show(args: argparse.Namespace) -> int:
             ("points", str(info.n_points)),
             ("parameters", json.dumps(info.parameters, default=_json_default)),
         ]
+        calibration = {c["role"]: c for c in _calibration(info)}
         for inst in info.instruments:
             rows.append((f"instrument {inst.role}", f"{inst.identity}  [{inst.driver} @ {inst.resource}]"))
+            cal = calibration.get(inst.role)
+            if cal is not None:
+                overdue = (f"  OVERDUE by {cal['days_overdue_at_run']} day(s) when the run began"
+                           if cal["days_overdue_at_run"] is not None else "")
+                rows.append((f"  calibration {inst.role}", f"due {cal['calibration_due']}"
+                             + (f", certificate {cal['calibration_certificate']}" if cal["calibration_certificate"]
+                                else "") + overdue))
         for k, v in rows:
             table.add_row(k, escape(v))
         out.print(table)

@@ -22,7 +22,7 @@ from .limit_marks import LimitMark
 from .result_summary import ResultLine, result_lines, scope_text
 from .run_data import RunData
 
-ALERT_EVENT_KINDS = frozenset({"interlock_trip", "interlock_refusal", "error", "interrupted"})
+ALERT_EVENT_KINDS = frozenset({"interlock_trip", "interlock_refusal", "error", "interrupted", "calibration_overdue"})
 """Event kinds shown highlighted in the events table."""
 
 
@@ -257,11 +257,29 @@ def _provenance_section(run: RunData, store_url: str) -> str:
         rows.append(("job", esc(i.job_id)))
     if store_url:
         rows.append(("store", f"<code>{esc(store_url)}</code>"))
-    inst_rows = [[esc(x.role), esc(x.identity or "—"), esc(x.driver), f"<code>{esc(x.resource)}</code>"]
+    calibration = calibration_cells(i.station_text, i.started_utc)
+    inst_rows = [[esc(x.role), esc(x.identity or "—"), esc(x.driver), f"<code>{esc(x.resource)}</code>",
+                  *calibration.get(x.role, ("—", "—"))]
                  for x in i.instruments]
-    instruments = (_table(["role", "identity (*IDN?)", "driver", "resource"], inst_rows) if inst_rows
+    instruments = (_table(["role", "identity (*IDN?)", "driver", "resource", "calibration due", "certificate"],
+                          inst_rows) if inst_rows
                    else '<p class="empty">No instruments were stored for this run.</p>')
     return "<h2>Provenance</h2>" + _kv(rows) + "<h3>Instruments</h3>" + instruments
+
+
+def calibration_cells(station_text: str | None, started: datetime | None) -> dict[str, tuple[str, str]]:
+    """Role -> (due date cell, certificate cell) from the station file stored with the run; the
+    due date says when it had passed on the day the run began."""
+    from benchctl.station import calibration_records_from_text
+
+    out: dict[str, tuple[str, str]] = {}
+    for rec in calibration_records_from_text(station_text):
+        days = rec.overdue_days(started.date()) if started is not None else None
+        due = esc(rec.due.isoformat())
+        if days is not None:
+            due += f' <span class="pill failed">overdue {days} day(s) at the run</span>'
+        out[rec.role] = (due, esc(rec.certificate or "—"))
+    return out
 
 
 def render_html(
