@@ -79,6 +79,22 @@ def _parameters(node: ast.AST, path: Path) -> tuple[Any, ...]:
     return tuple(out)
 
 
+def _roles(node: ast.AST, path: Path) -> tuple[Any, ...]:
+    """``ROLES`` written as names and ``Role(...)`` calls with literal arguments."""
+    from benchctl.procedure import Role, declared_roles
+
+    if not isinstance(node, (ast.List, ast.Tuple)):
+        return declared_roles(_literal(node, f"{path}: ROLES"), f"{path}: ROLES")
+    items: list[Any] = []
+    for item in node.elts:
+        if isinstance(item, ast.Call) and _call_name(item) == "Role":
+            args, kwargs = _call(item, f"{path}: Role(...)")
+            items.append(Role(*args, **kwargs))
+        else:
+            items.append(_literal(item, f"{path}: ROLES item"))
+    return declared_roles(items, f"{path}: ROLES")
+
+
 def read_summary(path: str | Path) -> ProcedureSummary:
     """The declarations of the procedure file at ``path``, read without running any of it.
 
@@ -104,6 +120,6 @@ def read_summary(path: str | Path) -> ProcedureSummary:
     name = _literal(found["NAME"], f"{path}: NAME") if "NAME" in found else path.stem
     description = (_literal(found["DESCRIPTION"], f"{path}: DESCRIPTION") if "DESCRIPTION" in found
                    else (doc.splitlines()[0] if doc else ""))
-    roles = _literal(found["ROLES"], f"{path}: ROLES")
-    return ProcedureSummary(name=str(name), description=str(description), roles=tuple(str(r) for r in roles),
+    roles = _roles(found["ROLES"], path)
+    return ProcedureSummary(name=str(name), description=str(description), roles=roles,
                             parameters=_parameters(found["PARAMETERS"], path), path=path)

@@ -272,3 +272,11 @@ def test_a_required_role_missing_stops_the_run_before_anything_is_opened(simulat
     with pytest.raises(StationFileError, match=r"load2 \(electronic_load\) needed by procedure two_loads"):
         execute(two_loads, two_loads.resolve_parameters(), station, benchctl_store)
     assert not _commands(bench, "source", "*IDN?")  # nothing was opened
+
+
+def test_a_listing_reads_role_declarations_without_running_the_file(two_loads):
+    from benchctl.procedure_summary import read_summary
+
+    summary = read_summary(two_loads.path)
+    assert summary.roles == two_loads.roles == ("source", "load", "load2", "temp_logger")
+    assert [(r.kind, r.optional) for r in summary.roles] == [(r.kind, r.optional) for r in two_loads.roles]
