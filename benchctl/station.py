@@ -30,6 +30,17 @@ key, so one edit fixes them all. The format is documented in the README::
                 { range_max = 10.0, pct_of_reading = 0.1, offset = 0.002 } ]  # smallest >= |reading|
     power = { pct_of_reading = 0.1, offset = 0.002, distribution = "rectangular" }
 
+Roles: any name (a letter, then letters, digits or ``_``). ``source``, ``load``,
+``input_meter``, ``output_meter``, ``analyzer`` and ``scope`` imply their kind
+(:data:`ROLE_KINDS`); another role takes its driver's kind or states it with
+``kind = "power_meter"`` (checked against the driver). Every role of kind ``dc_source`` or
+``electronic_load`` is protected, watched and switched off by the interlock.
+
+Calibration: ``calibration_due = 2027-03-31`` (a TOML date) and ``calibration_certificate
+= "..."`` per instrument; ``[station] calibration_overdue = "warn"`` (default: a caution
+and a stored event) or ``"refuse"`` (the run is refused before anything is opened) says
+what a run does with an instrument past its due date.
+
 Accuracy: per measured quantity (``voltage``, ``current``, ``power``: what the driver's
 measure_voltage / measure_current / measure_power return), ``±(pct_of_reading % of
 reading + offset)`` with the offset and ``range_max`` in SI units (V, A, W), one table or

@@ -280,3 +280,15 @@ def test_a_listing_reads_role_declarations_without_running_the_file(two_loads):
     summary = read_summary(two_loads.path)
     assert summary.roles == two_loads.roles == ("source", "load", "load2", "temp_logger")
     assert [(r.kind, r.optional) for r in summary.roles] == [(r.kind, r.optional) for r in two_loads.roles]
+
+
+def test_the_readme_station_with_open_roles_is_valid():
+    import re
+    from pathlib import Path
+
+    text = (Path(__file__).resolve().parents[1] / "README.md").read_text(encoding="utf-8")
+    block = next(b for b in re.findall(r"```toml\n(.*?)```", text, flags=re.S) if "[instruments.load2]" in b)
+    station = parse_station(block)
+    assert station.roles_of_kind("electronic_load") == ["load", "load2"]
+    assert station.kind_of("aux_meter") == "power_meter" and station.calibration_overdue == "refuse"
+    assert station.instruments["source"].calibration_certificate == "LAB-CAL-2026-118"
