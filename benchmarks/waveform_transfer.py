@@ -91,7 +91,7 @@ def main(argv: list[str] | None = None) -> int:
 
         t_raw = best(lambda: _raw_read(raw, b"TRAC? 1\n"))
         t_drv = best(lambda: scope.fetch_waveform(1))
-        session = scope._session  # the naive path on the driver's own session, for comparison only
+        session = scope.session.visa_resource  # the naive path on the driver's own pyvisa resource, for comparison only
         t_naive = best(lambda: session.query_binary_values("TRAC? 1", datatype="f", is_big_endian=True))
         scope.close()
         raw.close()
