@@ -31,7 +31,7 @@ from benchctl.store import InstrumentInfo, RunStart, Store, sha256_hex
 
 VINS_V = (36.0, 48.0, 60.0, 75.0)
 HOSTILE_SERIAL = "<script>alert('serial')</script>"
-IDN_SOURCE = "Northfield Power,DCS-160,SN40021,2.3.1"
+IDN_SOURCE = "Northfield Power,bench supply 160 V,SN40021,2.3.1"
 IDN_METER = "Kestrel Instruments,PM-4,PM00987,1.08"
 PROCEDURE_TEXT = "efficiency map, as run on bench 3"
 EXPECTED_PX = (round(style.FIG_WIDTH_IN * style.FIG_DPI), round(style.FIG_HEIGHT_IN * style.FIG_DPI))

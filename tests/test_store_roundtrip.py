@@ -49,7 +49,7 @@ def flyback_start(**overrides: object) -> RunStart:
         station_description="36-75 V telecom-input flyback",
         station_text=FLYBACK_STATION,
         instruments=[
-            InstrumentInfo("source", "dc_source", "TCPIP::127.0.0.1::5025::SOCKET", "SIM,DCS-80,0001,1.0"),
+            InstrumentInfo("source", "dc_source", "TCPIP::127.0.0.1::5025::SOCKET", "SIM,sim dc source,0001,1.0"),
             InstrumentInfo("load", "electronic_load", "TCPIP::127.0.0.1::5026::SOCKET", "SIM,EL-150,0002,1.0"),
         ],
         dut_part="FB-48-5",
