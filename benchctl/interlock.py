@@ -156,6 +156,14 @@ class _Worker:
                 done.set()
 
 
+def _read_back_now(load: Any, deadline_s: float) -> float:
+    """The load's voltage read-back, answered within ``deadline_s`` (the shutdown must not wait longer)."""
+    try:
+        return float(load.query_float_now("measure_voltage", deadline_s=deadline_s, answer_by_deadline=True))
+    except TypeError:  # a driver with only the watch's form: bounded by its own timeout
+        return float(load.query_float_now("measure_voltage", deadline_s=deadline_s))
+
+
 class Interlock:
     """Station limits, reading checks, the background watch and the one safe shutdown."""
 
@@ -406,8 +414,7 @@ class Interlock:
                     del pending[name]
                     continue
                 try:
-                    value = float(drivers[name].query_float_now("measure_voltage",
-                                                                deadline_s=min(left, self.shutdown_deadline_s)))
+                    value = _read_back_now(drivers[name], min(left, self.shutdown_deadline_s))
                 except Exception as exc:
                     steps[name] = f"output discharge{who} not watched: the load's voltage read-back failed ({exc})"
                     del pending[name]
@@ -489,20 +496,29 @@ class Interlock:
             for k, source in enumerate(item.sources):
                 by_instrument.setdefault(source.instrument, []).append((i, k, source))
         done: list[threading.Event] = []
-        for instrument, entries in by_instrument.items():
-            worker = self._workers.get(instrument)
-            if worker is None:
-                return  # stopping
-            if worker.busy:  # still on a reading of an earlier period: this one is missed
-                for i, k, _ in entries:
-                    results[(i, k)] = _Missed(f"instrument {instrument}: still busy with the reading of an earlier "
-                                              "period")
-                continue
-            event = threading.Event()
-            done.append(event)
-            worker.submit(functools.partial(self._read_entries, entries, deadline_at, results), event)
+        waiting = dict(by_instrument)  # a worker still on a reading of an earlier period gets until the deadline
+        while True:
+            for instrument in list(waiting):
+                worker = self._workers.get(instrument)
+                if worker is None:
+                    return  # stopping
+                if not worker.busy:
+                    event = threading.Event()
+                    done.append(event)
+                    worker.submit(functools.partial(self._read_entries, waiting.pop(instrument), deadline_at, results),
+                                  event)
+            if not waiting:
+                break
+            left = deadline_at - self.clock()
+            if left <= 0 or self._trip is not None or self._stop is not None or self._stop_watch.is_set():
+                break
+            self._trip_event.wait(min(left, 0.01))  # a busy worker: look again shortly
         for event in done:
             event.wait(max(0.0, deadline_at - self.clock()))
+        for instrument, entries in waiting.items():
+            for i, k, _ in entries:
+                results[(i, k)] = _Missed(f"instrument {instrument}: still busy with a reading of an earlier period "
+                                          f"when this one's deadline of {self.watch_deadline_s:g} s passed")
         if self._trip is not None or self._stop is not None or self._stop_watch.is_set():
             return
         snapshot = dict(results)

@@ -699,11 +699,13 @@ class ScpiDriver:
         finally:
             session.close()
 
-    def query_float_now(self, key: str, *, deadline_s: float) -> float:
-        """Reading ``key`` as a number for the watch: no retry, no error-queue read; the driver
-        is waited for ``deadline_s`` at most, the answer for its ``timeout_s``."""
+    def query_float_now(self, key: str, *, deadline_s: float, answer_by_deadline: bool = False) -> float:
+        """Reading ``key`` as a number: no retry, no error-queue read; the driver is waited for
+        ``deadline_s`` at most, the answer for its ``timeout_s`` (the watch) or, with
+        ``answer_by_deadline``, by the same deadline (the shutdown's discharge read-back)."""
         text = self.command(key)
-        return self._number(self._ask_bounded(text, deadline_s, answer_by_deadline=False), text, check_errors=False)
+        return self._number(self._ask_bounded(text, deadline_s, answer_by_deadline=answer_by_deadline), text,
+                            check_errors=False)
 
     def check_power_on_now(self, *, deadline_s: float) -> None:
         """:meth:`check_power_on` for the watch, never retried (waits as :meth:`query_float_now`)."""
