@@ -79,8 +79,8 @@ def bisect_threshold(changed_at: Callable[[float], bool], bracket: Bracket, reso
                      *, max_trials: int = 40) -> Threshold:
     """Narrow ``bracket`` until it is at most ``resolution_v`` wide.
 
-    ``changed_at(v)`` runs one trial at input ``v`` and answers whether the state had
-    changed (is on the ``high_v`` side of the threshold).
+    ``changed_at(v)`` runs one trial at input ``v`` and answers whether ``v`` is on the
+    ``high_v`` side of the threshold (for UVLO on and off alike: whether the converter runs).
     """
     if not resolution_v > 0:
         raise AnalysisInputError(f"bisect_threshold: resolution_v={resolution_v!r} must be > 0 V")
