@@ -12,8 +12,12 @@ from __future__ import annotations
 import math
 from typing import ClassVar
 
-from benchctl.errors import InstrumentResponseError, UsageError
+from benchctl.errors import InstrumentConnectionError, InstrumentResponseError, InstrumentTimeout, UsageError
 from drivers.scpi_driver import ScpiDriver
+
+
+class _CheckUnreadable(InstrumentResponseError):
+    """The error check after INITiate answered something unreadable: the reading is started again."""
 
 
 class PowerMeter(ScpiDriver):
@@ -46,14 +50,18 @@ class PowerMeter(ScpiDriver):
 
         The instrument lock is held throughout, so no other reading of this meter (the
         interlock watch's) can start an integration in between. The whole exchange is a
-        reading, not a setting: on a lost connection or a timeout it is started again
-        (INITiate, error check, the three FETCh), with the driver's usual retries."""
+        reading, not a setting: on a lost connection, a timeout or an unreadable answer to the
+        error check after INITiate it is started again (INITiate, error check, the three
+        FETCh), with the driver's usual retries; an unreadable reading is not retried."""
         init = self.command("initiate")
         fetches = [self.command(k) for k in ("fetch_voltage", "fetch_current", "fetch_power")]
 
         def exchange() -> tuple[float, float, float]:
             self.send(init)
-            self._check_setting(init)  # a meter without INITiate says so here (ScpiError, not retried)
+            try:
+                self._check_setting(init)  # a meter without INITiate says so here (ScpiError, not retried)
+            except InstrumentResponseError as exc:  # the check's answer garbled: start the integration again
+                raise _CheckUnreadable(exc.detail, instrument=self.name, command=init) from exc
             values = []
             for text in fetches:
                 answer = self.ask(text)
@@ -70,7 +78,8 @@ class PowerMeter(ScpiDriver):
             return values[0], values[1], values[2]
 
         with self._lock:
-            return self._retrying(init, exchange)
+            return self._retrying(init, exchange, retry_on=(InstrumentTimeout, InstrumentConnectionError,
+                                                            _CheckUnreadable))
 
     def set_averaging(self, count: int) -> None:
         if count < 1:

@@ -383,8 +383,10 @@ class ScpiDriver:
                 return getter
         return None
 
-    def _retrying(self, text: str, exchange: Callable[[], T]) -> T:
-        """Run an idempotent ``exchange()``; on a lost connection or a timeout reconnect and try again."""
+    def _retrying(self, text: str, exchange: Callable[[], T], *,
+                  retry_on: tuple[type[InstrumentError], ...] = _RETRYABLE) -> T:
+        """Run an idempotent ``exchange()``; on a lost connection or a timeout (or any of
+        ``retry_on``) reconnect and try again."""
         attempts = 1 + self.retries
         with self._lock:
             for attempt in range(1, attempts + 1):
@@ -392,7 +394,7 @@ class ScpiDriver:
                     if self._session is None and self._wanted_open:
                         self._reconnect()
                     return exchange()
-                except _RETRYABLE as exc:
+                except retry_on as exc:
                     if attempt == attempts or not self._wanted_open or self._retries_stopped:
                         self._drop_session()  # a late answer must not be read as the next one
                         if attempt == 1:

@@ -21,7 +21,7 @@ from typing import Any, Callable, Literal
 from benchctl.errors import InstrumentConnectionError, InstrumentTimeout
 from drivers.session import NotABlock
 
-Failure = Literal["timeout", "drop"]
+Failure = Literal["timeout", "drop", "garble"]
 
 
 @dataclass
@@ -63,6 +63,7 @@ class ScriptedInstrument:
              times: int = 1) -> None:
         """The next ``times`` messages equal to ``message`` fail with ``error``.
 
+        ``"garble"``: the message is acted on and its answer replaced by bytes that mean nothing.
         ``applied``: the instrument acts on the message before the failure (a setting takes
         effect, its answer is lost). ``late_answer`` (timeouts): the answer arrives after the
         timeout and waits on that session for whoever reads next.
@@ -161,7 +162,10 @@ class ScriptedSession:
         if fault is None:
             self._answer(inst.process(text))
             return
-        answers = inst.process(text) if fault.applied else []
+        answers = inst.process(text) if fault.applied or fault.error == "garble" else []
+        if fault.error == "garble":
+            self._answer(["~?GARBLED%&~"] if answers else [])
+            return
         if fault.error == "drop":
             self.closed = True
             raise InstrumentConnectionError("connection reset by the instrument", instrument=self.name, command=text)

@@ -14,6 +14,7 @@ import pytest
 from benchctl.errors import (
     InstrumentConnectionError,
     InstrumentError,
+    InstrumentResponseError,
     InstrumentStateError,
     InstrumentTimeout,
     ScpiError,
@@ -210,6 +211,18 @@ def test_measure_all_is_one_integration_retried_as_a_whole(inst):
     sent = _after_open(inst)
     # INITiate then FETCh of V, I, P (SCPI-1999 Vol. 1 §3.3 measurement model); started again after the failure
     assert sent.count("INIT") == 2 and sent[-3:] == ["FETC:VOLT?", "FETC:CURR?", "FETC:POW?"]
+
+
+def test_an_unreadable_check_after_initiate_starts_the_reading_again_an_unreadable_reading_does_not(inst):
+    inst.answers.update({"FETC:VOLT?": "5.0", "FETC:CURR?": "2.0", "FETC:POW?": "10.0"})
+    meter = scripted_driver(PowerMeter, inst, options=NO_DELAY)
+    inst.fail("*ESR?;:SYST:ERR?", "garble")
+    assert meter.measure_all() == (5.0, 2.0, 10.0)
+    assert _after_open(inst).count("INIT") == 2
+    inst.fail("FETC:CURR?", "garble")
+    with pytest.raises(InstrumentResponseError, match="expected a number") as info:
+        meter.measure_all()
+    assert info.value.command == "FETC:CURR?" and _after_open(inst).count("INIT") == 3
 
 
 # -- errors chosen by who is at fault --------------------------------------------------------------
