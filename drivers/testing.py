@@ -16,10 +16,15 @@ real sockets). Compound messages are split at ``;`` and a leading ``:`` is ignor
 from __future__ import annotations
 
 from dataclasses import dataclass
-from typing import Any, Callable, Literal
+from typing import TYPE_CHECKING, Any, Callable, Literal, TypeVar
 
 from benchctl.errors import InstrumentConnectionError, InstrumentTimeout
 from drivers.session import NotABlock
+
+if TYPE_CHECKING:
+    from drivers.scpi_driver import ScpiDriver
+
+D = TypeVar("D", bound="ScpiDriver")
 
 Failure = Literal["timeout", "drop", "garble"]
 
@@ -207,9 +212,10 @@ class ScriptedSession:
         return f"<ScriptedSession {self.name} {'closed' if self.closed else 'open'}>"
 
 
-def scripted_driver(cls: type, instrument: ScriptedInstrument | None = None, **kwargs: Any) -> Any:
+def scripted_driver(cls: type[D], instrument: ScriptedInstrument | None = None, **kwargs: Any) -> D:
     """An opened driver of class ``cls`` talking to ``instrument`` (a new one when None)."""
     instrument = instrument or ScriptedInstrument()
     kwargs.setdefault("name", cls.kind)
     driver = cls(f"SCRIPTED::{cls.kind}", connect=instrument.connect, **kwargs)
-    return driver.open()
+    driver.open()
+    return driver
