@@ -72,8 +72,13 @@ class LossSplit:
 
 
 def fit_loss_split(iout_a: ArrayLike, ploss_w: ArrayLike, *, u_ploss_w: ArrayLike | None = None,
-                   vin_v: float = math.nan) -> LossSplit:
-    """Fit P_loss = a + b·I + c·I² (module docstring).  Needs four points or more."""
+                   vin_v: float = math.nan, birge: bool = False) -> LossSplit:
+    """Fit P_loss = a + b·I + c·I² (module docstring).  Needs four points or more.
+
+    ``birge``: with point uncertainties, scale the covariance by the reduced chi-square when
+    it exceeds 1 (the Birge ratio, common practice), so a model error larger than the
+    readings' scatter widens the parameters' uncertainty instead of hiding.
+    """
     i = np.asarray(iout_a, dtype=float).ravel()
     p = np.asarray(ploss_w, dtype=float).ravel()
     if i.size != p.size:
@@ -101,6 +106,8 @@ def fit_loss_split(iout_a: ArrayLike, ploss_w: ArrayLike, *, u_ploss_w: ArrayLik
     cov = np.linalg.inv(xw.T @ xw)
     if not weighted:
         cov = cov * float(np.sum(resid ** 2) / dof) if dof > 0 else cov * math.nan
+    elif birge and dof > 0:
+        cov = cov * max(1.0, float(np.sum((resid * w) ** 2) / dof))
     rms = float(np.sqrt(np.mean(resid ** 2)))
     sd = np.sqrt(np.maximum(np.diag(cov), 0.0))
     return LossSplit(float(vin_v), float(coef[0]), float(coef[1]), float(coef[2]), float(sd[0]), float(sd[1]),
