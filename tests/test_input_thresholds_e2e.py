@@ -5,10 +5,12 @@ from __future__ import annotations
 import pytest
 
 from benchctl.procedure import load_procedure
+from benchctl.report import build_report
 from benchctl.runner import execute
 
 
-def test_uvlo_on_off_and_hysteresis_within_the_bisection_resolution(simulated_bench, station_for, benchctl_store):
+def test_uvlo_on_off_and_hysteresis_within_the_bisection_resolution(simulated_bench, station_for, benchctl_store,
+                                                                     tmp_path):
     bench = simulated_bench("flyback-48v-5v", time_scale=5.0)
     d = bench.design
     proc = load_procedure("input_thresholds")
@@ -27,3 +29,5 @@ def test_uvlo_on_off_and_hysteresis_within_the_bisection_resolution(simulated_be
     assert hyst == pytest.approx(d.protection.uvlo_on_v - d.protection.uvlo_off_v, abs=0.03)
     pts = benchctl_store.points(out.run_id)
     assert {"ramp_up", "ramp_down", "bisect_on", "bisect_off", "thresholds"} <= set(pts["tag"])
+    report = build_report(benchctl_store, out.run_id, tmp_path / "report")
+    assert sum("input-thresholds" in p.name for p in report.png_paths) == 1, (report.png_paths, report.notes)

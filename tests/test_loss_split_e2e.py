@@ -6,11 +6,12 @@ import numpy as np
 
 from benchctl.analysis.loss_split import fit_loss_split
 from benchctl.procedure import load_procedure
+from benchctl.report import build_report
 from benchctl.runner import execute
 
 
 def test_loss_split_matches_the_models_losses_and_predicts_between_points(simulated_bench, station_for,
-                                                                           benchctl_store):
+                                                                           benchctl_store, tmp_path):
     bench = simulated_bench("flyback-48v-5v")
     proc = load_procedure("loss_split")
     params = proc.resolve_parameters(values={"vin_v": [48.0], "source_current_limit_a": bench.limits.source_current_max_a,
@@ -34,3 +35,5 @@ def test_loss_split_matches_the_models_losses_and_predicts_between_points(simula
     pred = benchctl_store.results(out.run_id)
     pred = pred[pred["name"] == "predicted_efficiency"]
     assert len(pred) == 4 and np.all(pred["uncertainty"] > 0)
+    report = build_report(benchctl_store, out.run_id, tmp_path / "report")
+    assert sum("loss-split" in p.name for p in report.png_paths) == 1, (report.png_paths, report.notes)

@@ -7,10 +7,12 @@ import math
 import pytest
 
 from benchctl.procedure import load_procedure
+from benchctl.report import build_report
 from benchctl.runner import execute
 
 
-def test_turn_on_into_cc_cr_and_capacitive_loads_matches_the_model(simulated_bench, station_for, benchctl_store):
+def test_turn_on_into_cc_cr_and_capacitive_loads_matches_the_model(simulated_bench, station_for, benchctl_store,
+                                                                    tmp_path):
     bench = simulated_bench("flyback-48v-5v", time_scale=1.0)
     d = bench.design
     proc = load_procedure("turn_on")
@@ -48,3 +50,5 @@ def test_turn_on_into_cc_cr_and_capacitive_loads_matches_the_model(simulated_ben
     arrays = benchctl_store.arrays(out.run_id)
     kinds = [m["kind"] for m in arrays["meta"]]
     assert kinds.count("turn_on") == 3 and kinds.count("turn_off") == 3
+    report = build_report(benchctl_store, out.run_id, tmp_path / "report")
+    assert sum("turn-on" in p.name for p in report.png_paths) == 3, (report.png_paths, report.notes)
