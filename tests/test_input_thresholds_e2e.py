@@ -4,7 +4,10 @@ from __future__ import annotations
 
 import pytest
 
-from benchctl.procedure import load_procedure
+from benchctl.exit_codes import EXIT_OK
+from benchctl.limits import check_limits, load_limits
+from benchctl.procedure import load_procedure, procedures_dir
+from benchctl.commands.check import load_run_data
 from benchctl.report import build_report
 from benchctl.runner import execute
 
@@ -31,3 +34,8 @@ def test_uvlo_on_off_and_hysteresis_within_the_bisection_resolution(simulated_be
     assert {"ramp_up", "ramp_down", "bisect_on", "bisect_off", "thresholds"} <= set(pts["tag"])
     report = build_report(benchctl_store, out.run_id, tmp_path / "report")
     assert sum("input-thresholds" in p.name for p in report.png_paths) == 1, (report.png_paths, report.notes)
+    # the bundled flyback limits pass the bundled flyback model
+    limits = load_limits(procedures_dir() / "limits" / "flyback-48v-5v.toml")
+    checked = check_limits(limits, load_run_data(benchctl_store, out.run_id))
+    assert len({o.limit.quantity for o in checked.outcomes}) == 3
+    assert checked.exit_code == EXIT_OK, checked.summary + "\n" + "\n".join(o.reason for o in checked.outcomes)

@@ -5,7 +5,10 @@ from __future__ import annotations
 import numpy as np
 
 from benchctl.analysis.loss_split import fit_loss_split
-from benchctl.procedure import load_procedure
+from benchctl.exit_codes import EXIT_OK
+from benchctl.limits import check_limits, load_limits
+from benchctl.procedure import load_procedure, procedures_dir
+from benchctl.commands.check import load_run_data
 from benchctl.report import build_report
 from benchctl.runner import execute
 
@@ -37,3 +40,8 @@ def test_loss_split_matches_the_models_losses_and_predicts_between_points(simula
     assert len(pred) == 4 and np.all(pred["uncertainty"] > 0)
     report = build_report(benchctl_store, out.run_id, tmp_path / "report")
     assert sum("loss-split" in p.name for p in report.png_paths) == 1, (report.png_paths, report.notes)
+    # the bundled flyback limits pass the bundled flyback model
+    limits = load_limits(procedures_dir() / "limits" / "flyback-48v-5v.toml")
+    checked = check_limits(limits, load_run_data(benchctl_store, out.run_id))
+    assert len({o.limit.quantity for o in checked.outcomes}) == 2
+    assert checked.exit_code == EXIT_OK, checked.summary + "\n" + "\n".join(o.reason for o in checked.outcomes)

@@ -6,7 +6,10 @@ import math
 
 import pytest
 
-from benchctl.procedure import load_procedure
+from benchctl.exit_codes import EXIT_OK
+from benchctl.limits import check_limits, load_limits
+from benchctl.procedure import load_procedure, procedures_dir
+from benchctl.commands.check import load_run_data
 from benchctl.report import build_report
 from benchctl.runner import execute
 
@@ -52,3 +55,8 @@ def test_turn_on_into_cc_cr_and_capacitive_loads_matches_the_model(simulated_ben
     assert kinds.count("turn_on") == 3 and kinds.count("turn_off") == 3
     report = build_report(benchctl_store, out.run_id, tmp_path / "report")
     assert sum("turn-on" in p.name for p in report.png_paths) == 3, (report.png_paths, report.notes)
+    # the bundled flyback limits pass the bundled flyback model
+    limits = load_limits(procedures_dir() / "limits" / "flyback-48v-5v.toml")
+    checked = check_limits(limits, load_run_data(benchctl_store, out.run_id))
+    assert len({o.limit.quantity for o in checked.outcomes}) == 7
+    assert checked.exit_code == EXIT_OK, checked.summary + "\n" + "\n".join(o.reason for o in checked.outcomes)
