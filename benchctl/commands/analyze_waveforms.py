@@ -7,12 +7,16 @@
     benchctl analyze ripple vout.csv [--column C] [--fsw-hz F] [--bandwidth-limit-hz F] [--json]
     benchctl analyze mode isw.csv [--column C] [--gate-column C] [--fsw-hz F] [--threshold-ratio R] [--json]
     benchctl analyze ringing drain.csv [--column C] [--start-time-s T] [--json]
+    benchctl analyze turn-on start.csv [--vout-column C] [--vin-column C] [--vin-level-v V]
+                                       [--band-v B] [--final-v V] [--turn-off] [--json]
+    benchctl analyze inrush iin.csv [--column C] [--source-limit-a A] [--json]
 
 The files hold a time column in seconds and value columns (:mod:`benchctl.analysis.waveform_csv`);
 a bad file is reported with its row and column and exit code 2. With ``--fsw-hz`` the
 transient metrics are taken on the output averaged over one switching period (a boxcar with
 nulls at fsw and its harmonics: the ripple does not count as deviation), as the
 ``load_transient`` procedure does. Methods:
+:mod:`benchctl.analysis.turn_on`, :mod:`~benchctl.analysis.inrush`,
 :mod:`benchctl.analysis.transient`, :mod:`~benchctl.analysis.ripple`,
 :mod:`~benchctl.analysis.conduction_mode`, :mod:`~benchctl.analysis.ringing`.
 """
@@ -81,6 +85,27 @@ def add_waveform_subcommands(analyze_sub: Any) -> None:
                    help="where the ring starts (default: where it falls from its peak)")
     p.add_argument("--json", action="store_true", help="print JSON instead of a table")
     p.set_defaults(analyze_handler=f"{_HANDLERS}:run_ringing")
+
+    p = analyze_sub.add_parser("turn-on", help="turn-on delay, rise time, overshoot, monotonicity (or turn-off)",
+                               description="CSV: time in s, the output voltage and optionally the input voltage.")
+    p.add_argument("file", help="waveform CSV (time column first)")
+    p.add_argument("--vout-column", default=None, help="output-voltage column (default: the first value column)")
+    p.add_argument("--vin-column", default=None, help="input-voltage column: the delay counts from its edge")
+    p.add_argument("--vin-level-v", type=float, default=None,
+                   help="input level the delay counts from, V (default: 90 %% of the input's final value)")
+    p.add_argument("--band-v", type=float, default=None, help="regulation band half-width, V (default 1 %%)")
+    p.add_argument("--final-v", type=float, default=None, help="final output level, V (default: the record's tail)")
+    p.add_argument("--turn-off", action="store_true", help="measure a turn-off (fall time, undershoot) instead")
+    p.add_argument("--json", action="store_true", help="print JSON instead of a table")
+    p.set_defaults(analyze_handler=f"{_HANDLERS}:run_turn_on")
+
+    p = analyze_sub.add_parser("inrush", help="inrush peak current and I2t at switch-on",
+                               description="CSV: time in s and the input current.")
+    p.add_argument("file", help="waveform CSV (time column first)")
+    p.add_argument("--column", default=None, help="input-current column (default: the first value column)")
+    p.add_argument("--source-limit-a", type=float, default=None, help="the source's current limit, A")
+    p.add_argument("--json", action="store_true", help="print JSON instead of a table")
+    p.set_defaults(analyze_handler=f"{_HANDLERS}:run_inrush")
 
 
 # ---------------------------------------------------------------- output
@@ -203,3 +228,32 @@ def run_ringing(args: argparse.Namespace) -> int:
     fit = fit_ringing(table.t_s, v, start_index=start)
     return _emit(args, "ringing", {"column": name}, fit)
 
+
+def run_turn_on(args: argparse.Namespace) -> int:
+    import numpy as np
+
+    from benchctl.analysis.turn_on import input_edge_s, turn_off_metrics, turn_on_metrics
+
+    table = _load(args, 8)
+    vname, vout = table.column(args.vout_column)
+    t_in, level = None, None
+    if args.vin_column is not None:
+        _, vin = table.column(args.vin_column)
+        tail = vin[-max(len(vin) // 20, 1):] if not args.turn_off else vin[:max(len(vin) // 20, 1)]
+        level = args.vin_level_v if args.vin_level_v is not None else 0.9 * float(np.median(tail))
+        t_in = input_edge_s(table.t_s, vin, level, rising=not args.turn_off)
+    source: dict[str, Any] = {"vout_column": vname, "vin_column": args.vin_column, "vin_level_v": level}
+    if args.turn_off:
+        m_off = turn_off_metrics(table.t_s, vout, t_input_s=t_in, final_v=args.final_v)
+        return _emit(args, "turn-off", source, m_off)
+    m = turn_on_metrics(table.t_s, vout, t_input_s=t_in, final_v=args.final_v, band_v=args.band_v)
+    return _emit(args, "turn-on", source, m)
+
+
+def run_inrush(args: argparse.Namespace) -> int:
+    from benchctl.analysis.inrush import inrush_metrics
+
+    table = _load(args, 4)
+    name, i = table.column(args.column)
+    m = inrush_metrics(table.t_s, i, source_limit_a=args.source_limit_a)
+    return _emit(args, "inrush", {"column": name}, m)
