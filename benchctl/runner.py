@@ -140,34 +140,39 @@ def execute(
         # From now on a termination signal switches this run's outputs off at once.
         signals.on_first = interlock.stop
         writes = _WritesFinish(store, signals)
-        status, message, bench = "failed", "", None
         try:
-            with signals.interruptible():
-                _record_calibration(writes, run_id, station, roles, overdue)
-                if on_begin is not None:
-                    on_begin(run_id)
-                bench = _bench_for(writes, run_id, drivers, interlock, settle_enabled, progress, skip_points,
-                                   station.dut_time_constant_s)
-                _arm_watch(interlock, bench, drivers, station)
-                status, message = _run_body(procedure, params, bench, drivers, interlock, station, writes, run_id)
-        except KeyboardInterrupt as exc:  # a stop before the body began, or as it returned
-            status, message = _interrupted(store, run_id, exc)
-        finally:
-            # No signal interrupts what follows (the handler only acknowledges it).
-            steps = _shut_down(interlock, drivers, store, run_id)
-        trip = interlock.trip_record
-        if status == "failed" and trip is not None:  # e.g. a procedure's retry chain ended by the trip
-            status, message = "tripped", f"interlock tripped: {trip.message}; the outputs were switched off"
-        if status == "completed" and procedure.analyse is not None:
+            status, message, bench = "failed", "", None
             try:
-                store_results(store, run_id, procedure, params)
-            except Exception as exc:
-                logger.exception("analysis of run %s failed", run_id)
-                store.record_event(run_id, "error", f"analysis failed: {type(exc).__name__}: {exc}", {})
-        store.end_run(run_id, status, message)
-        points = store.run(run_id).n_points if resume_run_id or bench is None else bench.points_recorded
-        outcome = RunOutcome(run_id, status, message, points, time.monotonic() - started,
-                             trip=interlock.trip_record, shutdown_steps=tuple(steps))
+                with signals.interruptible():
+                    _record_calibration(writes, run_id, station, roles, overdue)
+                    if on_begin is not None:
+                        on_begin(run_id)
+                    bench = _bench_for(writes, run_id, drivers, interlock, settle_enabled, progress, skip_points,
+                                       station.dut_time_constant_s)
+                    _arm_watch(interlock, bench, drivers, station)
+                    status, message = _run_body(procedure, params, bench, drivers, interlock, station, writes, run_id)
+            except KeyboardInterrupt as exc:  # a stop before the body began, or as it returned
+                status, message = _interrupted(store, run_id, exc)
+            finally:
+                # No signal interrupts what follows (the handler only acknowledges it).
+                steps = _shut_down(interlock, drivers, store, run_id)
+            trip = interlock.trip_record
+            if status == "failed" and trip is not None:  # e.g. a procedure's retry chain ended by the trip
+                status, message = "tripped", f"interlock tripped: {trip.message}; the outputs were switched off"
+            if status == "completed" and procedure.analyse is not None:
+                try:
+                    store_results(store, run_id, procedure, params)
+                except Exception as exc:
+                    logger.exception("analysis of run %s failed", run_id)
+                    store.record_event(run_id, "error", f"analysis failed: {type(exc).__name__}: {exc}", {})
+            store.end_run(run_id, status, message)
+            points = store.run(run_id).n_points if resume_run_id or bench is None else bench.points_recorded
+            outcome = RunOutcome(run_id, status, message, points, time.monotonic() - started,
+                                 trip=interlock.trip_record, shutdown_steps=tuple(steps))
+        finally:
+            # Closed only once the run is stored: a watch reading still waiting on a hung
+            # instrument holds its driver, and must not delay the record.
+            _close_all(drivers)
         signals.raise_if_received()
     return outcome
 
@@ -489,7 +494,8 @@ def _run_body(procedure: Procedure, params: Parameters, bench: Bench, drivers: M
 
 
 def _shut_down(interlock: Interlock, drivers: Mapping[str, Any], store: Any, run_id: int) -> list[str]:
-    """Stop the watch, outputs off in the safe order, store the trip and any failure, close.
+    """Stop the watch, outputs off in the safe order, store the trip and any failure (the
+    instruments are closed by the caller once the run is stored).
 
     The watch is not waited for (the off path does not need its driver locks); a shutdown
     a trip or a signal started is finished first, then every output is switched off again,
@@ -511,7 +517,6 @@ def _shut_down(interlock: Interlock, drivers: Mapping[str, Any], store: Any, run
     if failed_off:
         store.record_event(run_id, "error", "could not confirm every output off: " + "; ".join(failed_off),
                            {"shutdown": steps})
-    _close_all(drivers)
     return steps
 
 
