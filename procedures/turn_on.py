@@ -3,7 +3,8 @@
 For every input voltage and load case the DUT starts from off (source and load off, the
 output discharged, the input capacitance run down): the load is set and switched on,
 the scope is armed single-shot on the input voltage rising through ``vin_trigger_fraction``
-of its setting (the source edge), the source is switched on, and the output voltage, the
+of its setting (the source edge; or, with ``trigger_on = "output"``, on the output rising),
+the source is switched on, and the output voltage, the
 input voltage and the input current are captured with pre-trigger.  Measured
 (:mod:`benchctl.analysis.turn_on`, IEEE 181-2011 reference levels): turn-on delay from the
 input reaching ``vin_level_fraction`` of its setting to the output's 10 % level, rise time
@@ -38,8 +39,13 @@ PARAMETERS = [
     Parameter("source_current_limit_a", "A", None, minimum=0.0, maximum=1000.0, optional=True,
               help="source current limit during the start, which limits the inrush (default: the station's "
                    "source_current_max_a)"),
+    Parameter("trigger_on", "", "input", kind="str", choices=("input", "output"),
+              help="edge the scope triggers on: the input (source) rising, or the output rising (then give "
+                   "pre_trigger_s longer than the turn-on delay, so the input edge is in the record)"),
     Parameter("vin_trigger_fraction", "", 0.5, minimum=0.01, maximum=0.99,
               help="the scope triggers on the input rising through this fraction of its setting"),
+    Parameter("vout_trigger_fraction", "", 0.5, minimum=0.01, maximum=0.99,
+              help="with trigger_on = output: the output rising through this fraction of vout_nominal_v"),
     Parameter("vin_level_fraction", "", 0.9, minimum=0.01, maximum=0.999,
               help="the turn-on delay counts from the input reaching this fraction of its setting"),
     Parameter("band_v", "V", 0.05, minimum=0.0, maximum=100.0, help="half-width of the regulation band"),
@@ -120,7 +126,10 @@ def run(bench, p: Parameters) -> None:
         if p.iin_channel:
             _screen(scope, p.iin_channel, 1.2 * limit_a)
         scope.set_record(p.record_s, p.points, pre_trigger_s=p.pre_trigger_s)
-        scope.set_trigger(p.vin_channel, level=p.vin_trigger_fraction * vin, slope="rising")
+        if p.trigger_on == "output":
+            scope.set_trigger(p.vout_channel, level=p.vout_trigger_fraction * p.vout_nominal_v, slope="rising")
+        else:
+            scope.set_trigger(p.vin_channel, level=p.vin_trigger_fraction * vin, slope="rising")
         load.set_input(True)
         scope.arm()
         source.set_output(True)

@@ -74,6 +74,32 @@ def test_a_turn_on_triggers_the_scope_with_pre_trigger_and_the_models_timing(ben
     assert inrush.i2t_a2s == pytest.approx(2.0 * d.start_up.input_capacitance_f * 48.0, rel=0.03)
 
 
+def test_a_trigger_on_the_output_edge_lands_where_the_models_output_crosses(bench) -> None:
+    b, scope, src, load = bench
+    d = b.design
+    load.set_mode("CC")
+    load.set_current(2.0)
+    load.set_input(True)
+    src.set_voltage(48.0)
+    src.set_current_limit(1.2)
+    _setup(scope)
+    scope.set_record(0.03, 30000, pre_trigger_s=0.015)
+    scope.set_trigger(1, level=2.5, slope="rising")
+    scope.arm()
+    src.set_output(True)
+    scope.wait_triggered(10.0)
+    vout, vin = scope.fetch_waveform(1), scope.fetch_waveform(2)
+    truth = b.model.start_up_truth()
+    v_final = b.model.operating_point().vout_v
+    # the output follows the linear reference ramp: it crosses 2.5 V at t_on + (2.5/V)·T_ss (start_up.py)
+    t_cross = truth.switching_start_s + 2.5 / v_final * d.start_up.soft_start_s
+    t_in = input_edge_s(vin.t_s, vin.values, 24.0)
+    # the input crossed 24 V at t0 + C·24 V/I (capacitor law); relative to the trigger:
+    assert t_in == pytest.approx(truth.t0_s + d.start_up.input_capacitance_f * 24.0 / 1.2 - t_cross, abs=5e-6)
+    k = int(np.searchsorted(vout.t_s, 0.0))
+    assert vout.values[k - 50:k + 50].mean() == pytest.approx(2.5, abs=0.02)
+
+
 def test_a_trigger_that_never_comes_times_out_cleanly(bench) -> None:
     b, scope, src, load = bench
     _setup(scope)

@@ -60,3 +60,18 @@ def test_turn_on_into_cc_cr_and_capacitive_loads_matches_the_model(simulated_ben
     checked = check_limits(limits, load_run_data(benchctl_store, out.run_id))
     assert len({o.limit.quantity for o in checked.outcomes}) == 7
     assert checked.exit_code == EXIT_OK, checked.summary + "\n" + "\n".join(o.reason for o in checked.outcomes)
+
+
+def test_turn_on_triggered_on_the_output_edge_measures_the_same_delay(simulated_bench, station_for, benchctl_store):
+    bench = simulated_bench("flyback-48v-5v", time_scale=1.0)
+    d, su = bench.design, bench.design.start_up
+    proc = load_procedure("turn_on")
+    params = proc.resolve_parameters(values={"vin_v": [48.0], "off_wait_s": 0.2, "source_current_limit_a": 1.2,
+                                             "cr_load_ohm": 0.0, "cap_load_f": 0.0, "trigger_on": "output",
+                                             "pre_trigger_s": 0.015})
+    out = execute(proc, params, station_for(bench), benchctl_store)
+    assert out.status == "completed", out.message
+    row = benchctl_store.points(out.run_id).set_index("tag").loc["cc"]
+    delay = (d.protection.uvlo_on_v - 0.9 * 48.0) * su.input_capacitance_f / 1.2 + su.start_delay_s \
+        + 0.1 * su.soft_start_s      # as above: the model's start-up design values
+    assert row["turn_on_delay_s"] == pytest.approx(delay, abs=50e-6)
