@@ -57,7 +57,7 @@ class Guarded:
             value = driver.query_float_now(key, deadline_s=deadline_s)
             return value if limit is None else interlock.check_reading(limit, value, role, what)
 
-        return WatchSource(role, read)
+        return WatchSource(role, read, fresh_key=None if limit is None else (role, limit))
 
     def __repr__(self) -> str:
         return f"<{type(self).__name__} {self.role} at {self.resource}>"

@@ -13,6 +13,11 @@ every ``watch_period_s``:
 * each watched quantity has every source the station offers — the input from the input
   meter and the source's own read-back, the output voltage from the output meter and
   the load's own read-back — and every answer is checked against its limit;
+* a quantity the procedure itself has just read through the guards (checked against the
+  same limit less than half a period before the watch's period starts) counts as read for
+  that period and is not read again: on integrating meters (a power-line cycle a reading)
+  the watch would otherwise queue in front of the procedure's own readings. The longest
+  time between two checks of a quantity stays under 1.5 periods;
 * a quantity none of whose sources answered in time for ``watch_missed_periods``
   periods in a row (default 3) trips the run, and so does an output instrument (source,
   load) that stops answering: the watch can no longer see, or switch, the DUT.
@@ -96,6 +101,9 @@ class WatchSource:
     #: For a check that the instrument answers at all: ``time.monotonic()`` of its last
     #: answer to anyone (a procedure's exchange shows it alive too), or None.
     answered_at: Callable[[], float] | None = None
+    #: (instrument, station limit) of the reading: a procedure's reading checked by
+    #: :meth:`Interlock.check_reading` under the same pair counts for the watch (None: never).
+    fresh_key: tuple[str, str] | None = None
 
 
 @dataclass
@@ -206,6 +214,7 @@ class Interlock:
         self._stop_watch = threading.Event()
         self._outputs_changed = threading.Event()
         self.watch_errors: list[str] = []
+        self._checked_at: dict[tuple[str, str], float] = {}  # (instrument, limit) -> clock() of its last check
         #: What the shutdown started by :meth:`stop` did (empty until it ran).
         self.stop_shutdown_steps: list[str] = []
 
@@ -276,6 +285,7 @@ class Interlock:
 
     def check_reading(self, limit: str, value: float, instrument: str, what: str) -> float:
         """Trip when a reading exceeds station limit ``limit``; returns the reading otherwise."""
+        self._checked_at[(instrument, limit)] = self.clock()
         maximum = float(getattr(self.limits, limit))
         if value > maximum:
             self.trip(limit, maximum, value, instrument,
@@ -476,6 +486,11 @@ class Interlock:
                 return
             self._stop_watch.wait(max(0.0, started + self.watch_period_s - self.clock()))
 
+    def _read_by_procedure_since(self, item: _Watched, t_s: float) -> bool:
+        """Whether a source of ``item`` was read and checked against its limit (by anyone) since ``t_s``."""
+        return any(s.fresh_key is not None and self._checked_at.get(s.fresh_key, float("-inf")) >= t_s
+                   for s in item.sources)
+
     @staticmethod
     def _answered_since(item: _Watched, t_s: float) -> bool:
         """An "it answers" check whose instrument answered someone since ``t_s`` (only timeouts missed)."""
@@ -492,7 +507,11 @@ class Interlock:
         """One period: every instrument read in parallel until ``deadline_at``; count the misses."""
         results: dict[tuple[int, int], BaseException | None] = {}
         by_instrument: dict[str, list[tuple[int, int, WatchSource]]] = {}
+        fresh_since = period_started - self.watch_period_s / 2.0
+        fresh = {i for i, item in enumerate(self._watched) if self._read_by_procedure_since(item, fresh_since)}
         for i, item in enumerate(self._watched):
+            if i in fresh:
+                continue
             for k, source in enumerate(item.sources):
                 by_instrument.setdefault(source.instrument, []).append((i, k, source))
         done: list[threading.Event] = []
@@ -523,6 +542,9 @@ class Interlock:
             return
         snapshot = dict(results)
         for i, item in enumerate(self._watched):
+            if i in fresh:
+                item.misses = 0
+                continue
             outcomes = [snapshot.get((i, k), _Missed(f"instrument {s.instrument}: no answer within the watch deadline "
                                                       f"of {self.watch_deadline_s:g} s"))
                         for k, s in enumerate(item.sources)]

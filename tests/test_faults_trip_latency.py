@@ -18,9 +18,10 @@ from simulated_instruments.faults import apply_fault_specs
 WATCH_PERIOD_S = 0.2
 # One watch cycle is a handful of loopback exchanges (~1 ms each); allow for a loaded 2-core machine.
 CYCLE_SLACK_S = 0.3
-READING = {"dut_output_voltage_max_v": ("output_meter", "MEAS:VOLT?"),
-           "source_voltage_max_v": ("source", "MEAS:VOLT?"),
-           "source_current_max_a": ("source", "MEAS:CURR?")}
+# The roles the watch reads each limit's quantity from (a second source each: interlock.py), and the query.
+READING = {"dut_output_voltage_max_v": (("output_meter", "load"), "MEAS:VOLT?"),
+           "source_voltage_max_v": (("input_meter", "source"), "MEAS:VOLT?"),
+           "source_current_max_a": (("input_meter", "source"), "MEAS:CURR?")}
 
 
 def test_watch_trips_within_one_period_during_a_fixed_wait(simulated_bench, benchctl_store):
@@ -44,8 +45,9 @@ def test_watch_trips_within_one_period_during_a_fixed_wait(simulated_bench, benc
     t_fault = plan.fired[0].t_monotonic_s  # same clock as the audit logs (time.monotonic)
     source_log = bench.instruments["source"].audit.entries()
     off = next(e for e in source_log if e.kind == "command" and e.text == "OUTP OFF" and e.t_s > t_fault)
-    role, query = READING[trip.limit]
-    readings = [e for e in bench.instruments[role].audit.entries()
+    roles, query = READING[trip.limit]
+    assert trip.instrument in roles, trip
+    readings = [e for e in bench.instruments[trip.instrument].audit.entries()
                 if e.kind == "command" and e.text == query and t_fault < e.t_s <= off.t_s]
     assert readings, "the crossing reading must be in the audit log between the fault and the off command"
     crossing = readings[-1]
