@@ -41,7 +41,7 @@ def test_loss_split_matches_the_models_losses_and_predicts_between_points(simula
     report = build_report(benchctl_store, out.run_id, tmp_path / "report")
     assert sum("loss-split" in p.name for p in report.png_paths) == 1, (report.png_paths, report.notes)
     # the bundled flyback limits pass the bundled flyback model
-    limits = load_limits(procedures_dir() / "limits" / "flyback-48v-5v.toml")
+    limits = load_limits(procedures_dir() / "limits" / "flyback-48v-5v-start-up.toml")
     checked = check_limits(limits, load_run_data(benchctl_store, out.run_id))
     assert len({o.limit.quantity for o in checked.outcomes}) == 2
     assert checked.exit_code == EXIT_OK, checked.summary + "\n" + "\n".join(o.reason for o in checked.outcomes)

@@ -56,7 +56,7 @@ def test_turn_on_into_cc_cr_and_capacitive_loads_matches_the_model(simulated_ben
     report = build_report(benchctl_store, out.run_id, tmp_path / "report")
     assert sum("turn-on" in p.name for p in report.png_paths) == 3, (report.png_paths, report.notes)
     # the bundled flyback limits pass the bundled flyback model
-    limits = load_limits(procedures_dir() / "limits" / "flyback-48v-5v.toml")
+    limits = load_limits(procedures_dir() / "limits" / "flyback-48v-5v-start-up.toml")
     checked = check_limits(limits, load_run_data(benchctl_store, out.run_id))
     assert len({o.limit.quantity for o in checked.outcomes}) == 7
     assert checked.exit_code == EXIT_OK, checked.summary + "\n" + "\n".join(o.reason for o in checked.outcomes)
