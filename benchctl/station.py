@@ -191,7 +191,7 @@ class Station:
     instruments: Mapping[str, InstrumentConfig]
     description: str = ""
     watch_period_s: float = 0.1
-    watch_deadline_s: float | None = None  # None: the period, at least 0.25 s (benchctl.interlock)
+    watch_deadline_s: float | None = None  # None: the period, at least 0.5 s (benchctl.interlock)
     watch_missed_periods: int = 3  # a watched quantity unread this many periods in a row trips the run
     shutdown_deadline_s: float = 0.5  # each output's off at every end, no retries (s)
     hazardous_voltage_acknowledged: bool = False
@@ -456,8 +456,17 @@ def parse_station(text: str, *, path: Path | None = None) -> Station:
     problems: list[str] = []
     for key in sorted(set(data) - {"station", "limits", "instruments"}):
         problems.append(f"[{key}]: unknown table; expected [station], [limits], [instruments.<role>]")
+    settings = _station_table(data.get("station"), problems)
+    limits = _limits_table(data.get("limits"), settings["hazardous_voltage_acknowledged"], problems)
+    instruments = _instruments_table(data.get("instruments", {}), problems)
+    if problems:
+        raise StationFileError(f"{where}: {len(problems)} problem(s) in the station file", problems)
+    assert limits is not None
+    return Station(limits=limits, instruments=instruments, path=path, text=text, **settings)
 
-    station = data.get("station")
+
+def _station_table(station: Any, problems: list[str]) -> dict[str, Any]:
+    """The ``[station]`` table checked key by key: the Station fields it gives."""
     if not isinstance(station, dict):
         problems.append("[station]: missing table with at least name = \"...\"")
         station = {}
@@ -480,23 +489,35 @@ def parse_station(text: str, *, path: Path | None = None) -> Station:
     if dut_tau is not None and (not _positive_number(dut_tau) or dut_tau > 3600):
         problems.append(f"station.dut_time_constant_s: {dut_tau!r} must be a number of seconds in (0, 3600] "
                         "(the DUT's slowest settling time constant; leave it out to have it estimated)")
-
     overdue_policy = station.get("calibration_overdue", "warn")
     if overdue_policy not in CALIBRATION_POLICIES:
         problems.append(f"station.calibration_overdue: {overdue_policy!r} must be one of "
                         f"{', '.join(repr(p) for p in CALIBRATION_POLICIES)} (what a run does when an instrument's "
                         "calibration_due has passed)")
+    return dict(
+        name=name.strip() if isinstance(name, str) else "",
+        description=str(station.get("description", "")),
+        watch_period_s=float(watch) if _positive_number(watch) else 0.1,
+        **watch_options,
+        hazardous_voltage_acknowledged=ack is True,
+        database=database,
+        dut_time_constant_s=None if not _positive_number(dut_tau) else float(dut_tau),
+        calibration_overdue=str(overdue_policy),
+    )
 
-    limits_table = data.get("limits")
+
+def _limits_table(limits_table: Any, acknowledged: bool, problems: list[str]) -> StationLimits | None:
+    """The ``[limits]`` table: every limit present and positive; above 60 V DC only when acknowledged."""
     limit_values: dict[str, float] = {}
-    if not isinstance(limits_table, dict):
+    given = isinstance(limits_table, dict)
+    if not given:
         problems.append(f"[limits]: missing table; required keys: {', '.join(_LIMIT_KEYS)}")
         limits_table = {}
     for key in sorted(set(limits_table) - set(_LIMIT_KEYS)):
         problems.append(f"limits.{key}: unknown key; known keys: {', '.join(_LIMIT_KEYS)}")
     for key in _LIMIT_KEYS:
         if key not in limits_table:
-            if isinstance(data.get("limits"), dict):
+            if given:
                 problems.append(f"limits.{key}: required (SI units: V, A, W)")
             continue
         value = limits_table[key]
@@ -504,118 +525,116 @@ def parse_station(text: str, *, path: Path | None = None) -> Station:
             problems.append(f"limits.{key}: {value!r} must be a positive number")
         else:
             limit_values[key] = float(value)
-
     limits = StationLimits(**limit_values) if len(limit_values) == len(_LIMIT_KEYS) else None
-    if limits is not None and limits.hazardous and ack is not True:
+    if limits is not None and limits.hazardous and not acknowledged:
         problems.append(
             f"station.hazardous_voltage_acknowledged: the limits allow "
             f"{max(limits.source_voltage_max_v, limits.dut_output_voltage_max_v):g} V, above "
             f"{HAZARDOUS_DC_VOLTAGE_V:g} V DC (SELV/ES1 boundary, IEC 62368-1): read the README's "
             "safety section, then set hazardous_voltage_acknowledged = true"
         )
+    return limits
 
+
+def _instruments_table(table: Any, problems: list[str]) -> dict[str, InstrumentConfig]:
+    """Every ``[instruments.<role>]`` table checked, its driver's options and commands included."""
     instruments: dict[str, InstrumentConfig] = {}
-    table = data.get("instruments", {})
     if not isinstance(table, dict) or not table:
         problems.append("[instruments]: at least one [instruments.<role>] table is required")
         table = {}
     for role, spec in table.items():
-        key = f"instruments.{role}"
-        if not _ROLE_NAME.match(role):
-            problems.append(f"{key}: a role name is a letter, then letters, digits or _ (at most 64), such as "
-                            "load2 or temp_logger")
-            continue
-        if not isinstance(spec, dict):
-            problems.append(f"{key}: must be a table with driver and resource")
-            continue
-        for extra in sorted(set(spec) - _INSTRUMENT_KEYS):
-            problems.append(f"{key}.{extra}: unknown key; known keys: {', '.join(sorted(_INSTRUMENT_KEYS))}")
-        driver = spec.get("driver")
-        resource = spec.get("resource")
-        timeout = spec.get("timeout_s", 2.0)
-        options = spec.get("options", {})
-        commands = spec.get("commands", {})
-        n_before = len(problems)
-        accuracy = parse_accuracy(f"{key}.accuracy", spec["accuracy"], problems) if "accuracy" in spec else {}
-        ok = len(problems) == n_before
-        if not isinstance(driver, str) or not driver:
-            problems.append(f"{key}.driver: required, one of {', '.join(driver_names())}")
-            ok = False
-        elif driver not in _driver_entry_points():
-            problems.append(f"{key}.driver: unknown driver {driver!r}; installed: {', '.join(driver_names())}")
-            ok = False
-        else:
-            cls = load_driver_class(driver)
-            expected = _role_kind(key, role, spec.get("kind"), problems)
-            if expected is None:
-                ok = False
-            elif expected and getattr(cls, "kind", None) != expected:
-                why = (f"role {role!r} needs a {expected}" if role in ROLE_KINDS and "kind" not in spec
-                       else f"{key}.kind says {expected!r}")
-                problems.append(f"{key}.driver: {driver!r} drives a {getattr(cls, 'kind', '?')}, but {why}")
-                ok = False
-            elif callable(getattr(cls, "check_configuration", None)):
-                # the driver's command overrides and options, checked before any instrument is opened
-                found = cls.check_configuration(commands if isinstance(commands, dict) else {},
-                                                options if isinstance(options, dict) else {})
-                problems.extend(f"{key}.{problem}" for problem in found)
-                ok = ok and not found
-            elif isinstance(commands, dict):
-                try:
-                    cls.command_table(commands)
-                except StationFileError as exc:
-                    problems.append(f"{key}.commands: {exc}")
-                    ok = False
-        if not isinstance(resource, str) or not resource:
-            problems.append(f"{key}.resource: required, a VISA resource string such as TCPIP::127.0.0.1::5025::SOCKET")
-            ok = False
-        else:
-            reason = _check_resource(resource)
-            if reason:
-                problems.append(f"{key}.resource: {resource!r} is not a VISA resource string ({reason})")
-                ok = False
-        if not _positive_number(timeout) or timeout > 600:
-            problems.append(f"{key}.timeout_s: {timeout!r} must be a number of seconds in (0, 600]")
-            ok = False
-        if not isinstance(options, dict):
-            problems.append(f"{key}.options: must be a table")
-            ok = False
-        if not isinstance(commands, dict):
-            problems.append(f"{key}.commands: must be a table of command-name = \"SCPI template\"")
-            ok = False
-        calibration_due, certificate = _calibration(key, spec, problems)
-        ok = ok and (calibration_due is not False)
-        if ok:
-            instruments[role] = InstrumentConfig(
-                role=role,
-                driver=driver,
-                resource=resource,
-                timeout_s=float(timeout),
-                options=dict(options),
-                commands=dict(commands),
-                accuracy=accuracy,
-                kind=str(getattr(load_driver_class(driver), "kind", "")),
-                calibration_due=calibration_due or None,
-                calibration_certificate=certificate,
-            )
+        config = _instrument(role, spec, problems)
+        if config is not None:
+            instruments[role] = config
+    return instruments
 
-    if problems:
-        raise StationFileError(f"{where}: {len(problems)} problem(s) in the station file", problems)
-    assert limits is not None and isinstance(name, str)
-    return Station(
-        name=name.strip(),
-        description=str(station.get("description", "")),
-        limits=limits,
-        instruments=instruments,
-        watch_period_s=float(watch),
-        **watch_options,
-        hazardous_voltage_acknowledged=bool(ack),
-        database=database,
-        path=path,
-        text=text,
-        dut_time_constant_s=None if dut_tau is None else float(dut_tau),
-        calibration_overdue=str(overdue_policy),
+
+def _instrument(role: str, spec: Any, problems: list[str]) -> InstrumentConfig | None:
+    """One ``[instruments.<role>]`` table, or None (with its problems added) when it is not usable."""
+    key = f"instruments.{role}"
+    if not _ROLE_NAME.match(role):
+        problems.append(f"{key}: a role name is a letter, then letters, digits or _ (at most 64), such as "
+                        "load2 or temp_logger")
+        return None
+    if not isinstance(spec, dict):
+        problems.append(f"{key}: must be a table with driver and resource")
+        return None
+    for extra in sorted(set(spec) - _INSTRUMENT_KEYS):
+        problems.append(f"{key}.{extra}: unknown key; known keys: {', '.join(sorted(_INSTRUMENT_KEYS))}")
+    driver = spec.get("driver")
+    resource = spec.get("resource")
+    timeout = spec.get("timeout_s", 2.0)
+    options = spec.get("options", {})
+    commands = spec.get("commands", {})
+    n_before = len(problems)
+    accuracy = parse_accuracy(f"{key}.accuracy", spec["accuracy"], problems) if "accuracy" in spec else {}
+    ok = len(problems) == n_before
+    if not isinstance(driver, str) or not driver:
+        problems.append(f"{key}.driver: required, one of {', '.join(driver_names())}")
+        ok = False
+    elif driver not in _driver_entry_points():
+        problems.append(f"{key}.driver: unknown driver {driver!r}; installed: {', '.join(driver_names())}")
+        ok = False
+    else:
+        ok = _check_driver(key, role, spec, load_driver_class(driver), commands, options, problems) and ok
+    if not isinstance(resource, str) or not resource:
+        problems.append(f"{key}.resource: required, a VISA resource string such as TCPIP::127.0.0.1::5025::SOCKET")
+        ok = False
+    else:
+        reason = _check_resource(resource)
+        if reason:
+            problems.append(f"{key}.resource: {resource!r} is not a VISA resource string ({reason})")
+            ok = False
+    if not _positive_number(timeout) or timeout > 600:
+        problems.append(f"{key}.timeout_s: {timeout!r} must be a number of seconds in (0, 600]")
+        ok = False
+    if not isinstance(options, dict):
+        problems.append(f"{key}.options: must be a table")
+        ok = False
+    if not isinstance(commands, dict):
+        problems.append(f"{key}.commands: must be a table of command-name = \"SCPI template\"")
+        ok = False
+    calibration_due, certificate = _calibration(key, spec, problems)
+    if not ok or calibration_due is False:
+        return None
+    assert isinstance(driver, str) and isinstance(resource, str)
+    return InstrumentConfig(
+        role=role,
+        driver=driver,
+        resource=resource,
+        timeout_s=float(timeout),
+        options=dict(options),
+        commands=dict(commands),
+        accuracy=accuracy,
+        kind=str(getattr(load_driver_class(driver), "kind", "")),
+        calibration_due=calibration_due or None,
+        calibration_certificate=certificate,
     )
+
+
+def _check_driver(key: str, role: str, spec: Mapping[str, Any], cls: type, commands: Any, options: Any,
+                  problems: list[str]) -> bool:
+    """The driver's kind against the role's, and its command overrides and options (before anything opens)."""
+    expected = _role_kind(key, role, spec.get("kind"), problems)
+    if expected is None:
+        return False
+    if expected and getattr(cls, "kind", None) != expected:
+        why = (f"role {role!r} needs a {expected}" if role in ROLE_KINDS and "kind" not in spec
+               else f"{key}.kind says {expected!r}")
+        problems.append(f"{key}.driver: {spec.get('driver')!r} drives a {getattr(cls, 'kind', '?')}, but {why}")
+        return False
+    check = getattr(cls, "check_configuration", None)
+    if callable(check):
+        found = check(commands if isinstance(commands, dict) else {}, options if isinstance(options, dict) else {})
+        problems.extend(f"{key}.{problem}" for problem in found)
+        return not found
+    if isinstance(commands, dict):
+        try:
+            cls.command_table(commands)  # type: ignore[attr-defined]  # a driver without check_configuration
+        except StationFileError as exc:
+            problems.append(f"{key}.commands: {exc}")
+            return False
+    return True
 
 
 def known_kinds() -> list[str]:
