@@ -240,16 +240,19 @@ def _missing_section(ev: RevisionEvidence) -> str:
 def _instrument_section(ev: RevisionEvidence) -> str:
     rows = [[esc(u.station), esc(u.role), esc(u.identity or "—"), f"<code>{esc(u.resource)}</code>",
              esc(u.accuracy) if u.accuracy else '<span class="bad">none stated: its readings carry no type B '
-                                                'uncertainty</span>', esc(", ".join(str(r) for r in u.run_ids))]
+                                                'uncertainty</span>',
+             (f'<span class="bad">{esc(u.calibration)}</span>' if "OVERDUE" in u.calibration
+              else esc(u.calibration) if u.calibration else '<span class="empty">not stated</span>'),
+             esc(", ".join(str(r) for r in u.run_ids))]
             for u in ev.instruments]
     if not rows:
         return "<h2>Instruments</h2><p class=\"empty\">No instruments were stored with these runs.</p>"
     return ("<h2>Instruments and their stated accuracy</h2>"
             '<p class="note">As identified at the start of each run (*IDN?) and as its station file states the '
-            "accuracy (a data sheet or a calibration certificate). Calibration due dates are not recorded in "
-            "station files: check each instrument's label or certificate before signing off.</p>"
+            "accuracy (a data sheet or a calibration certificate) and its calibration (calibration_due, "
+            "calibration_certificate); an instrument past its due date at a run's start is marked OVERDUE.</p>"
             + _table(["station", "role", "identity", "resource", "accuracy (± % of reading + offset, SI units)",
-                      "runs"], rows))
+                      "calibration", "runs"], rows))
 
 
 def _provenance_section(ev: RevisionEvidence, store_url: str) -> str:

@@ -87,6 +87,9 @@ class InstrumentUse:
     driver: str
     accuracy: str
     run_ids: tuple[int, ...]
+    #: The calibration its station file states, as of the runs: "" when none is stated, else
+    #: "due YYYY-MM-DD (certificate ...)" with "OVERDUE by N days at run R" where it had passed.
+    calibration: str = ""
 
 
 @dataclass(frozen=True)
@@ -160,6 +163,25 @@ class RevisionEvidence:
         return frame.drop(columns=["_scope"]).reset_index(drop=True)
 
 
+def _calibration_text(station_text: str | None, role: str, started: list[tuple[int, Any]]) -> str:
+    """The calibration record of ``role`` in a stored station text, checked against the runs' start dates."""
+    from benchctl.station import calibration_records_from_text
+
+    record = next((r for r in calibration_records_from_text(station_text) if r.role == role), None)
+    if record is None:
+        return ""
+    text = f"due {record.due.isoformat()}" + (f" (certificate {record.certificate})" if record.certificate else "")
+    late: list[tuple[int, int]] = []
+    for run_id, t in started:
+        days = record.overdue_days(t.date()) if t is not None else None
+        if days is not None:
+            late.append((run_id, days))
+    if late:
+        run_id, days = max(late, key=lambda x: x[1])
+        text += f"; OVERDUE by {days} days at run {run_id}"
+    return text
+
+
 def _accuracy_text(station_text: str | None, role: str) -> str:
     from benchctl.station import station_accuracy_from_text
 
@@ -217,10 +239,13 @@ def revision_evidence(store: Any, part: str, revision: str, *,
         for inst in info.instruments:
             key = (info.station_name, inst.role, inst.identity)
             entry = uses.setdefault(key, {"resource": inst.resource, "driver": inst.driver,
-                                          "accuracy": _accuracy_text(info.station_text, inst.role), "runs": []})
+                                          "accuracy": _accuracy_text(info.station_text, inst.role), "runs": [],
+                                          "text": info.station_text})
             entry["runs"].append(run_id)
-    instruments = tuple(InstrumentUse(k[0], k[1], k[2], v["resource"], v["driver"], v["accuracy"], tuple(v["runs"]))
-                        for k, v in sorted(uses.items()))
+    instruments = tuple(
+        InstrumentUse(k[0], k[1], k[2], v["resource"], v["driver"], v["accuracy"], tuple(v["runs"]),
+                      _calibration_text(v["text"], k[1], [(r, infos[r].started_utc) for r in v["runs"]]))
+        for k, v in sorted(uses.items()))
     ran = set(runs.latest["procedure"])
     not_measured = tuple(f"{s.title.lower()}: procedure {s.procedure} was not run on any unit"
                          for s in MERIT_SECTIONS if s.procedure not in ran) + NOT_YET_MEASURED
