@@ -330,9 +330,9 @@ def load_parameter_file(path: str | Path) -> dict[str, Any]:
 
 def procedures_dir() -> Path:
     """The folder of the procedures that come with benchctl."""
-    import procedures
+    import benchctl.procedures as bundled
 
-    return Path(procedures.__file__).resolve().parent
+    return Path(bundled.__file__).resolve().parent
 
 
 def available_procedures() -> list[str]:

@@ -40,7 +40,7 @@ FAST_READING_TIME_S = 1e-4
 
 @pytest.fixture
 def simulated_bench() -> Any:
-    from simulated_instruments.bench import SimulatedBench
+    from benchctl.simulated_instruments.bench import SimulatedBench
 
     started: list[SimulatedBench] = []
 

@@ -32,7 +32,7 @@ from benchctl.procedure import load_procedure
 from benchctl.runner import execute
 from benchctl.station import parse_station
 from benchctl.store import Store
-from simulated_instruments.bench import SimulatedBench
+from benchctl.simulated_instruments.bench import SimulatedBench
 
 
 def bare_script(resources: dict[str, str], plan: list[dict], ilimit_a: float) -> tuple[float, float]:

@@ -33,10 +33,10 @@ from benchctl.procedure import load_procedure
 from benchctl.runner import execute
 from benchctl.station import parse_station
 from benchctl.store import Store
-from drivers.dc_source import DcSource
-from drivers.electronic_load import ElectronicLoad
-from drivers.power_meter import PowerMeter
-from simulated_instruments.bench import SimulatedBench
+from benchctl.drivers.dc_source import DcSource
+from benchctl.drivers.electronic_load import ElectronicLoad
+from benchctl.drivers.power_meter import PowerMeter
+from benchctl.simulated_instruments.bench import SimulatedBench
 
 APERTURE_S = 0.02
 WATCH_PERIOD_S = 0.1  # the station default (benchctl.station)

@@ -46,7 +46,7 @@ def _raw_read(sock: socket.socket, command: bytes) -> bytes:
 
 def _serve(conn) -> None:
     """Child process: run a simulated bench until told to stop."""
-    from simulated_instruments.bench import SimulatedBench
+    from benchctl.simulated_instruments.bench import SimulatedBench
 
     bench = SimulatedBench("flyback-48v-5v", time_scale=50.0).start()
     try:
@@ -64,7 +64,7 @@ def main(argv: list[str] | None = None) -> int:
 
     import multiprocessing
 
-    from drivers.oscilloscope import Oscilloscope
+    from benchctl.drivers.oscilloscope import Oscilloscope
 
     parent, child = multiprocessing.Pipe()
     proc = multiprocessing.Process(target=_serve, args=(child,), daemon=True)

@@ -9,7 +9,7 @@ from __future__ import annotations
 
 from typing import ClassVar
 
-from drivers.scpi_driver import ScpiDriver
+from benchctl.drivers.scpi_driver import ScpiDriver
 
 
 class DcSource(ScpiDriver):

@@ -16,7 +16,7 @@ import math
 from typing import ClassVar, Literal
 
 from benchctl.errors import UsageError
-from drivers.scpi_driver import ScpiDriver
+from benchctl.drivers.scpi_driver import ScpiDriver
 
 LoadMode = Literal["CC", "CR"]
 TransientMode = Literal["single", "continuous"]

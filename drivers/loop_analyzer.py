@@ -34,8 +34,8 @@ import numpy as np
 from numpy.typing import NDArray
 
 from benchctl.errors import InstrumentResponseError, InstrumentStateError, InstrumentTimeout, UsageError
-from drivers.ieee488_block import decode_samples
-from drivers.scpi_driver import OptionSpec, ScpiDriver
+from benchctl.drivers.ieee488_block import decode_samples
+from benchctl.drivers.scpi_driver import OptionSpec, ScpiDriver
 
 logger = logging.getLogger(__name__)
 

@@ -30,8 +30,8 @@ import numpy as np
 from numpy.typing import NDArray
 
 from benchctl.errors import BenchctlError, InstrumentResponseError, InstrumentStateError, InstrumentTimeout, UsageError
-from drivers.ieee488_block import decode_samples, scale_waveform
-from drivers.scpi_driver import OptionSpec, ScpiDriver
+from benchctl.drivers.ieee488_block import decode_samples, scale_waveform
+from benchctl.drivers.scpi_driver import OptionSpec, ScpiDriver
 
 logger = logging.getLogger(__name__)
 

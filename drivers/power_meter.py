@@ -13,7 +13,7 @@ import math
 from typing import ClassVar
 
 from benchctl.errors import InstrumentConnectionError, InstrumentResponseError, InstrumentTimeout, UsageError
-from drivers.scpi_driver import ScpiDriver
+from benchctl.drivers.scpi_driver import ScpiDriver
 
 
 class _CheckUnreadable(InstrumentResponseError):

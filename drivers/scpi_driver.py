@@ -64,10 +64,10 @@ from benchctl.errors import (
     StationFileError,
     UsageError,
 )
-from drivers import command_table as _table
-from drivers.command_table import OptionSpec
-from drivers.session import Connect, NotABlock, Session, VisaSession, resource_manager
-from drivers.status import (
+from benchctl.drivers import command_table as _table
+from benchctl.drivers.command_table import OptionSpec
+from benchctl.drivers.session import Connect, NotABlock, Session, VisaSession, resource_manager
+from benchctl.drivers.status import (
     ESR_POWER_ON,
     Identity,
     compound,

@@ -49,7 +49,7 @@ from benchctl.errors import (
     InstrumentResponseError,
     InstrumentTimeout,
 )
-from drivers.ieee488_block import block_length, header_length
+from benchctl.drivers.ieee488_block import block_length, header_length
 
 logger = logging.getLogger(__name__)
 

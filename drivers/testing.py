@@ -19,10 +19,10 @@ from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any, Callable, Literal, TypeVar
 
 from benchctl.errors import InstrumentConnectionError, InstrumentTimeout
-from drivers.session import NotABlock
+from benchctl.drivers.session import NotABlock
 
 if TYPE_CHECKING:
-    from drivers.scpi_driver import ScpiDriver
+    from benchctl.drivers.scpi_driver import ScpiDriver
 
 D = TypeVar("D", bound="ScpiDriver")
 

@@ -124,7 +124,7 @@ def _tolerances(p: Parameters) -> CheckTolerances:
 # ---------------------------------------------------------------------------- run
 
 def _injection(p: Parameters):
-    from drivers.loop_analyzer import InjectionProfile
+    from benchctl.drivers.loop_analyzer import InjectionProfile
 
     if p.injection_profile_hz is not None or p.injection_profile_v is not None:
         from benchctl.errors import ParameterError

@@ -10,7 +10,7 @@ import pytest
 from scipy.optimize import curve_fit
 
 from benchctl.analysis.loss_split import fit_loss_split, predict_efficiency
-from simulated_instruments.converter import FLYBACK_48V_5V, ConverterModel, ManualClock
+from benchctl.simulated_instruments.converter import FLYBACK_48V_5V, ConverterModel, ManualClock
 
 
 def _data(seed: int = 4):

@@ -15,7 +15,7 @@ import re
 import pytest
 
 from benchctl.cli import EXIT_OK, main
-from simulated_instruments.bench import SimulatedBench
+from benchctl.simulated_instruments.bench import SimulatedBench
 
 
 @pytest.fixture(scope="module")

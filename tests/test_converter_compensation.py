@@ -17,9 +17,9 @@ import numpy as np
 import pytest
 import scipy.signal
 
-import simulated_instruments.converter.designs as designs_module
+import benchctl.simulated_instruments.converter.designs as designs_module
 from benchctl.analysis.compensator import design_type3
-from simulated_instruments.converter import FLYBACK_48V_5V, ConverterModel, ManualClock, plant_gvd
+from benchctl.simulated_instruments.converter import FLYBACK_48V_5V, ConverterModel, ManualClock, plant_gvd
 
 D = FLYBACK_48V_5V
 CORNERS = list(itertools.product((36.0, 48.0, 75.0), (0.5, 1.0, 2.5, 5.0)))

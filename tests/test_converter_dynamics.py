@@ -10,7 +10,7 @@ import pytest
 import scipy.integrate
 import scipy.signal
 
-from simulated_instruments.converter import (BUCK_12V_1V2, DEFAULT_LOAD_SLEW_A_PER_S, FLYBACK_48V_5V,
+from benchctl.simulated_instruments.converter import (BUCK_12V_1V2, DEFAULT_LOAD_SLEW_A_PER_S, FLYBACK_48V_5V,
                                              ConverterModel, ManualClock, ModelClock, ScaledClock)
 
 DESIGNS = [FLYBACK_48V_5V, BUCK_12V_1V2]

@@ -6,7 +6,7 @@ import math
 
 import pytest
 
-from simulated_instruments.converter import (BUCK_12V_1V2, FLYBACK_48V_5V, ConverterModel, ManualClock,
+from benchctl.simulated_instruments.converter import (BUCK_12V_1V2, FLYBACK_48V_5V, ConverterModel, ManualClock,
                                              SettingError)
 
 

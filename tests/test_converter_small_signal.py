@@ -10,7 +10,7 @@ import numpy as np
 import pytest
 from scipy import signal
 
-from simulated_instruments.converter import (BUCK_12V_1V2, FLYBACK_48V_5V, ConverterModel, ManualClock,
+from benchctl.simulated_instruments.converter import (BUCK_12V_1V2, FLYBACK_48V_5V, ConverterModel, ManualClock,
                                              NotRegulatingError, RationalTF, Type3Network, buck_ccm_gvd,
                                              closed_loop_output_impedance, flyback_ccm_gvd, flyback_ccm_parameters,
                                              flyback_dcm_gvd, loop_margins, output_impedance_open,

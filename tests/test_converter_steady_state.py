@@ -8,7 +8,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from simulated_instruments.converter import (BUCK_12V_1V2, DESIGNS, FLYBACK_48V_5V, ConverterModel,
+from benchctl.simulated_instruments.converter import (BUCK_12V_1V2, DESIGNS, FLYBACK_48V_5V, ConverterModel,
                                              LoadSetting, ManualClock, solve_dut)
 
 DESIGN_LIST = [FLYBACK_48V_5V, BUCK_12V_1V2]

@@ -12,7 +12,7 @@ import math
 import pytest
 from scipy.integrate import solve_ivp
 
-from simulated_instruments.converter import (BUCK_12V_1V2, FLYBACK_48V_5V, ConverterModel, LoadSetting, ManualClock,
+from benchctl.simulated_instruments.converter import (BUCK_12V_1V2, FLYBACK_48V_5V, ConverterModel, LoadSetting, ManualClock,
                                              ScaledClock, solve_dut)
 
 

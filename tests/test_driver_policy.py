@@ -22,12 +22,12 @@ from benchctl.errors import (
     UsageError,
 )
 from benchctl.exit_codes import ExitCode, exit_code_for_error
-from drivers.dc_source import DcSource
-from drivers.electronic_load import ElectronicLoad
-from drivers.loop_analyzer import InjectionProfile, LoopAnalyzer
-from drivers.oscilloscope import Oscilloscope
-from drivers.power_meter import PowerMeter
-from drivers.testing import ScriptedInstrument, scripted_driver
+from benchctl.drivers.dc_source import DcSource
+from benchctl.drivers.electronic_load import ElectronicLoad
+from benchctl.drivers.loop_analyzer import InjectionProfile, LoopAnalyzer
+from benchctl.drivers.oscilloscope import Oscilloscope
+from benchctl.drivers.power_meter import PowerMeter
+from benchctl.drivers.testing import ScriptedInstrument, scripted_driver
 
 NO_DELAY = {"retry_delay_s": 0}
 
@@ -181,7 +181,7 @@ def test_a_timeout_message_states_the_timeout_that_applied(inst):
 def test_the_visa_session_states_its_own_timeout():
     import pyvisa
 
-    from drivers.session import VisaSession
+    from benchctl.drivers.session import VisaSession
 
     class Resource:  # stands in for a pyvisa resource: only the timeout is read
         timeout = 5000

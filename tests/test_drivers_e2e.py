@@ -5,9 +5,9 @@ import socket
 import pytest
 
 from benchctl.errors import InstrumentConnectionError, InstrumentResponseError, InstrumentTimeout, ScpiError
-from drivers.dc_source import DcSource
-from drivers.electronic_load import ElectronicLoad
-from drivers.power_meter import PowerMeter
+from benchctl.drivers.dc_source import DcSource
+from benchctl.drivers.electronic_load import ElectronicLoad
+from benchctl.drivers.power_meter import PowerMeter
 
 
 @pytest.fixture

@@ -9,9 +9,9 @@ import pytest
 from benchctl.errors import ScpiError, SetpointRefused
 from benchctl.guarded import guard
 from benchctl.interlock import Interlock
-from drivers.dc_source import DcSource
-from drivers.electronic_load import ElectronicLoad
-from drivers.oscilloscope import Oscilloscope
+from benchctl.drivers.dc_source import DcSource
+from benchctl.drivers.electronic_load import ElectronicLoad
+from benchctl.drivers.oscilloscope import Oscilloscope
 
 
 @pytest.fixture

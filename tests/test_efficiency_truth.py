@@ -49,7 +49,7 @@ def emap():
 
 
 def _start(simulated_bench, model, *, time_scale, thermal_drift, reading_time_s=None):
-    from simulated_instruments.bench import SimulatedBench
+    from benchctl.simulated_instruments.bench import SimulatedBench
 
     accepted = inspect.signature(SimulatedBench.__init__).parameters
     if thermal_drift and "thermal_drift" not in accepted:

@@ -9,11 +9,11 @@ import pytest
 from benchctl.errors import InstrumentConnectionError, InstrumentStateError, InstrumentTimeout, StationFileError
 
 LOST = (InstrumentConnectionError, InstrumentTimeout)  # a reset connection can also show as a timeout
-from drivers.dc_source import DcSource
-from drivers.electronic_load import ElectronicLoad
-from simulated_instruments.faults import (FaultSpec, FaultSpecError, apply_fault_specs, parse_fault_spec,
+from benchctl.drivers.dc_source import DcSource
+from benchctl.drivers.electronic_load import ElectronicLoad
+from benchctl.simulated_instruments.faults import (FaultSpec, FaultSpecError, apply_fault_specs, parse_fault_spec,
                                           random_after)
-from simulated_instruments.scpi import Identity
+from benchctl.simulated_instruments.scpi import Identity
 
 
 @pytest.fixture
@@ -42,7 +42,7 @@ def test_setting_applied_before_the_drop_is_confirmed_not_resent(bench, caplog):
     src = _source(bench)
     plan = apply_fault_specs(bench, ["drop@source:on=VOLT 12,for=0"])
     try:
-        with caplog.at_level(logging.WARNING, logger="drivers.scpi_driver"):
+        with caplog.at_level(logging.WARNING, logger="benchctl.drivers.scpi_driver"):
             src.set_voltage(12.0)
         assert src.voltage_setpoint() == pytest.approx(12.0)
     finally:
@@ -130,7 +130,7 @@ def test_retries_are_bounded_and_logged(bench, caplog):
     plan = apply_fault_specs(bench, ["drop@source:manual"])  # permanent: every reconnect is reset
     try:
         plan.fire(plan.specs[0])
-        with caplog.at_level(logging.WARNING, logger="drivers.scpi_driver"):
+        with caplog.at_level(logging.WARNING, logger="benchctl.drivers.scpi_driver"):
             with pytest.raises(LOST, match="gave up after 2 attempts"):
                 src.measure_voltage()
     finally:

@@ -17,8 +17,8 @@ import pytest
 from benchctl.procedure import load_procedure
 from benchctl.runner import DutInfo, execute
 from benchctl.station import parse_station
-from simulated_instruments.bench import SimulatedBench
-from simulated_instruments.faults import apply_fault_specs
+from benchctl.simulated_instruments.bench import SimulatedBench
+from benchctl.simulated_instruments.faults import apply_fault_specs
 
 ROLES = ("source", "load", "input_meter", "output_meter")
 OUTPUT_STATE = {"source": "output", "load": "input"}
@@ -106,7 +106,7 @@ def test_transient_connection_fault_is_recovered(kind, transient, role, emap, cl
                                                  benchctl_store, caplog):
     bench = simulated_bench("flyback-48v-5v", time_scale=50.0)
     spec = f"{kind}@{role}:after={_after(clean_counts, role)},{transient}"
-    with caplog.at_level(logging.WARNING, logger="drivers.scpi_driver"):
+    with caplog.at_level(logging.WARNING, logger="benchctl.drivers.scpi_driver"):
         outcome, plan, committed = _run(emap, bench, benchctl_store, [spec])
     assert plan.fired, "the fault must have happened during the run"
     assert outcome.status == "completed", outcome.message

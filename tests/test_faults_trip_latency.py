@@ -13,7 +13,7 @@ from __future__ import annotations
 from benchctl.procedure import load_procedure
 from benchctl.runner import execute
 from benchctl.station import parse_station
-from simulated_instruments.faults import apply_fault_specs
+from benchctl.simulated_instruments.faults import apply_fault_specs
 
 WATCH_PERIOD_S = 0.2
 # One watch cycle is a handful of loopback exchanges (~1 ms each); allow for a loaded 2-core machine.

@@ -16,7 +16,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from benchctl.errors import InstrumentResponseError, UsageError
-from drivers.ieee488_block import (
+from benchctl.drivers.ieee488_block import (
     block_length,
     decode_samples,
     encode_definite_block,

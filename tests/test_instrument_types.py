@@ -8,11 +8,11 @@ import pytest
 
 from benchctl import guarded
 from benchctl.instrument_types import KIND_PROTOCOLS
-from drivers.dc_source import DcSource
-from drivers.electronic_load import ElectronicLoad
-from drivers.loop_analyzer import LoopAnalyzer
-from drivers.oscilloscope import Oscilloscope
-from drivers.power_meter import PowerMeter
+from benchctl.drivers.dc_source import DcSource
+from benchctl.drivers.electronic_load import ElectronicLoad
+from benchctl.drivers.loop_analyzer import LoopAnalyzer
+from benchctl.drivers.oscilloscope import Oscilloscope
+from benchctl.drivers.power_meter import PowerMeter
 
 DRIVERS = [DcSource, ElectronicLoad, PowerMeter, LoopAnalyzer, Oscilloscope]
 

@@ -21,7 +21,7 @@ from benchctl.interlock import Interlock
 from benchctl.procedure import load_procedure
 from benchctl.runner import execute
 from benchctl.station import parse_station
-from simulated_instruments.bench import SimulatedBench
+from benchctl.simulated_instruments.bench import SimulatedBench
 
 SETPOINT = re.compile(r"^(VOLT|CURR|RES|VOLT:PROT|CURR:PROT|POW:PROT)\s+([-+0-9.eE]+)$", re.IGNORECASE)
 REL = 1e-5  # setpoints are sent with 6 significant digits ({value:.6g})
@@ -125,9 +125,9 @@ OPS = ("set_voltage", "set_current_limit", "set_output", "load_current", "load_r
 @given(lim=limits_strategy,
        calls=st.lists(st.tuples(st.sampled_from(OPS), st.one_of(st.floats(-5.0, 120.0), st.just(float("nan")))), min_size=1, max_size=12))
 def test_random_guarded_calls_never_send_a_setpoint_beyond_the_limits(bench, lim, calls):
-    from drivers.dc_source import DcSource
-    from drivers.electronic_load import ElectronicLoad
-    from drivers.power_meter import PowerMeter
+    from benchctl.drivers.dc_source import DcSource
+    from benchctl.drivers.electronic_load import ElectronicLoad
+    from benchctl.drivers.power_meter import PowerMeter
     from benchctl.station import StationLimits
 
     _clear_audits(bench)

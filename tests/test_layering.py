@@ -32,5 +32,19 @@ def test_nothing_imports_the_command_line():
 
 
 def test_the_simulator_never_imports_benchctl():
+    """The simulator is installed as benchctl.simulated_instruments but uses nothing else of benchctl:
+    it is reached through sockets only, like hardware."""
     for path in (ROOT / "simulated_instruments").rglob("*.py"):
-        assert not any(i == "benchctl" or i.startswith("benchctl.") for i in _imports(path)), path
+        outside = [i for i in _imports(path) if (i == "benchctl" or i.startswith("benchctl."))
+                   and not i.startswith("benchctl.simulated_instruments")]
+        assert not outside, (path, outside)
+
+
+def test_bundled_folders_are_imported_in_benchctl_namespace():
+    """drivers/, procedures/ and simulated_instruments/ install as benchctl.drivers, ... (no top-level
+    packages that could collide with another distribution's): nothing imports them by the old names."""
+    old = ("drivers", "procedures", "simulated_instruments")
+    for folder in ("benchctl", "drivers", "procedures", "simulated_instruments", "tests", "benchmarks"):
+        for path in (ROOT / folder).rglob("*.py"):
+            bad = [i for i in _imports(path) if i.split(".")[0] in old]
+            assert not bad, (path, bad)

@@ -9,7 +9,7 @@ from benchctl.errors import InstrumentTimeout, SetpointRefused, StationFileError
 from benchctl.guarded import GuardedAnalyzer
 from benchctl.interlock import Interlock
 from benchctl.station import StationLimits, parse_station, render_station
-from drivers.loop_analyzer import InjectionProfile, LoopAnalyzer
+from benchctl.drivers.loop_analyzer import InjectionProfile, LoopAnalyzer
 
 
 @pytest.fixture

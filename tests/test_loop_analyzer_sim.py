@@ -7,8 +7,8 @@ import math
 import numpy as np
 import pytest
 
-from simulated_instruments.converter import DESIGNS, ConverterModel, ManualClock
-from simulated_instruments.instruments.loop_analyzer import SimulatedLoopAnalyzer, saturation_describing_function
+from benchctl.simulated_instruments.converter import DESIGNS, ConverterModel, ManualClock
+from benchctl.simulated_instruments.instruments.loop_analyzer import SimulatedLoopAnalyzer, saturation_describing_function
 
 
 def _setup(seed: int = 3, polarity: str = "NORM"):

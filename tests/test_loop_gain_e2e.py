@@ -7,7 +7,7 @@ import pytest
 
 from benchctl.procedure import load_procedure
 from benchctl.runner import execute
-from simulated_instruments.converter import ConverterModel, ManualClock
+from benchctl.simulated_instruments.converter import ConverterModel, ManualClock
 
 
 @pytest.fixture(scope="module")

@@ -20,7 +20,7 @@ SERIALS = ["N001", "N002", "N003"]
 
 @pytest.fixture(scope="module")
 def night(tmp_path_factory):
-    from simulated_instruments.bench import SimulatedBench
+    from benchctl.simulated_instruments.bench import SimulatedBench
 
     tmp = tmp_path_factory.mktemp("night")
     limits = procedures_dir() / "limits" / "flyback-48v-5v.toml"

@@ -21,8 +21,8 @@ from benchctl.interlock import Interlock
 from benchctl.procedure import Role, declared_roles, load_procedure
 from benchctl.runner import execute
 from benchctl.station import StationLimits, parse_station
-from simulated_instruments.bench import SimulatedBench
-from simulated_instruments.faults import apply_fault_specs
+from benchctl.simulated_instruments.bench import SimulatedBench
+from benchctl.simulated_instruments.faults import apply_fault_specs
 
 HEAD = """
 [station]
@@ -211,8 +211,8 @@ def test_the_model_draws_the_sum_of_both_loads_and_the_run_ends_source_first(two
 def test_model_sums_the_loads_kirchhoff(two_load_bench):
     """Kirchhoff's current law at the output node: the DUT's output current is the sum of the
     currents of the loads in parallel on it; CR loads in parallel are 1/(1/R1 + 1/R2)."""
-    from drivers.dc_source import DcSource
-    from drivers.electronic_load import ElectronicLoad
+    from benchctl.drivers.dc_source import DcSource
+    from benchctl.drivers.electronic_load import ElectronicLoad
 
     bench = two_load_bench
     source = DcSource(bench.resources["source"], name="source").open()

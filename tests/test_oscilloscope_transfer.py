@@ -8,8 +8,8 @@ import numpy as np
 import pytest
 
 from benchctl.errors import ScpiError
-from drivers.oscilloscope import Oscilloscope
-from simulated_instruments.bench import SimulatedBench
+from benchctl.drivers.oscilloscope import Oscilloscope
+from benchctl.simulated_instruments.bench import SimulatedBench
 
 
 @pytest.fixture

@@ -30,7 +30,7 @@ STATION = textwrap.dedent(
     from pathlib import Path
     url, name, revision, seed, folder, repo = sys.argv[1:7]
     sys.path.insert(0, repo)
-    from simulated_instruments.bench import SimulatedBench
+    from benchctl.simulated_instruments.bench import SimulatedBench
     from benchctl.procedure import load_procedure
     from benchctl.runner import DutInfo, execute
     from benchctl.station import load_station

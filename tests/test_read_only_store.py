@@ -91,7 +91,7 @@ def _digest(folder: Path) -> dict[str, str]:
 @pytest.fixture(scope="module")
 def stored_runs(tmp_path_factory):
     """A SQLite store with a completed efficiency map and a run left running by a dead process."""
-    from simulated_instruments.bench import SimulatedBench
+    from benchctl.simulated_instruments.bench import SimulatedBench
 
     folder = tmp_path_factory.mktemp("medium")
     db = folder / "runs.db"

@@ -110,9 +110,9 @@ def test_meters_give_voltage_current_and_power_of_one_integration_at_the_same_mo
     from benchctl.guarded import guard
     from benchctl.interlock import Interlock
     from benchctl.station import StationLimits
-    from drivers.dc_source import DcSource
-    from drivers.electronic_load import ElectronicLoad
-    from drivers.power_meter import PowerMeter
+    from benchctl.drivers.dc_source import DcSource
+    from benchctl.drivers.electronic_load import ElectronicLoad
+    from benchctl.drivers.power_meter import PowerMeter
 
     aperture_s = 0.02
     bench = simulated_bench("flyback-48v-5v", time_scale=50.0, reading_time_s=aperture_s)

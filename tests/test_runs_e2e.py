@@ -178,9 +178,9 @@ def test_bad_parameters_refused(emap):
 def test_adaptive_settle_finishes_near_true_settling_time(simulated_bench):
     """The settle helper against the model's own first-order settling, τ·ln(step/tol)."""
     from benchctl.settle import settle_adaptive
-    from drivers.dc_source import DcSource
-    from drivers.electronic_load import ElectronicLoad
-    from drivers.power_meter import PowerMeter
+    from benchctl.drivers.dc_source import DcSource
+    from benchctl.drivers.electronic_load import ElectronicLoad
+    from benchctl.drivers.power_meter import PowerMeter
 
     # The model runs 4x slower than real time (τ = 20 ms model = 80 ms real), so the few
     # milliseconds a loaded machine adds to a reading are small against the dynamics.

@@ -22,7 +22,7 @@ from benchctl.interlock import Interlock, default_watch_deadline_s
 from benchctl.procedure import load_procedure
 from benchctl.runner import execute
 from benchctl.station import parse_station
-from simulated_instruments.faults import FaultPlan
+from benchctl.simulated_instruments.faults import FaultPlan
 
 #: Generous slack for a loaded 2-core machine (the bounds' terms are each well under a second).
 SLACK_S = 2.0

@@ -29,7 +29,7 @@ from benchctl.procedure import load_procedure
 from benchctl.runner import execute
 from benchctl.station import StationLimits, parse_station
 from benchctl.termination import StopSignal, StopSignals
-from simulated_instruments.faults import FaultPlan
+from benchctl.simulated_instruments.faults import FaultPlan
 
 LIMITS = StationLimits(source_voltage_max_v=60.0, source_current_max_a=2.0, dut_output_voltage_max_v=6.0,
                        load_current_max_a=5.0, load_power_max_w=30.0)
@@ -73,7 +73,7 @@ def test_normal_end_switches_the_source_off_first_and_discharges_the_output(simu
 
 
 def test_output_off_does_not_wait_behind_a_retry_chain(simulated_bench):
-    from drivers.electronic_load import ElectronicLoad
+    from benchctl.drivers.electronic_load import ElectronicLoad
 
     bench = simulated_bench("flyback-48v-5v", time_scale=50.0)
     # A retry chain that holds the session long: 0.3 s per attempt, 3 s between attempts.
@@ -109,8 +109,8 @@ def test_output_off_does_not_wait_behind_a_retry_chain(simulated_bench):
 
 
 def test_power_down_with_a_dead_source_still_switches_the_load_off_then_raises(simulated_bench):
-    from drivers.dc_source import DcSource
-    from drivers.electronic_load import ElectronicLoad
+    from benchctl.drivers.dc_source import DcSource
+    from benchctl.drivers.electronic_load import ElectronicLoad
 
     bench = simulated_bench("flyback-48v-5v", time_scale=50.0)
     source = DcSource(bench.resources["source"], name="source").open()

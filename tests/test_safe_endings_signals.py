@@ -27,7 +27,7 @@ import pytest
 
 from benchctl.exit_codes import EXIT_INTERRUPTED
 from benchctl.store import Store
-from simulated_instruments.faults import FaultPlan
+from benchctl.simulated_instruments.faults import FaultPlan
 
 #: Generous bounds for a loaded 2-core machine (waits on conditions end far sooner).
 START_TIMEOUT_S = 60.0

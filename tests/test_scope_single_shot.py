@@ -10,10 +10,10 @@ import pytest
 from benchctl.analysis.inrush import inrush_metrics
 from benchctl.analysis.turn_on import input_edge_s, turn_on_metrics
 from benchctl.errors import InstrumentTimeout
-from drivers.dc_source import DcSource
-from drivers.electronic_load import ElectronicLoad
-from drivers.oscilloscope import Oscilloscope
-from simulated_instruments.bench import SimulatedBench
+from benchctl.drivers.dc_source import DcSource
+from benchctl.drivers.electronic_load import ElectronicLoad
+from benchctl.drivers.oscilloscope import Oscilloscope
+from benchctl.simulated_instruments.bench import SimulatedBench
 
 
 @pytest.fixture

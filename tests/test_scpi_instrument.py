@@ -14,8 +14,8 @@ import threading
 
 import pytest
 
-from simulated_instruments.scpi import STANDARD_ERRORS, Identity, Numeric, ScpiExecutionError
-from simulated_instruments.scpi.demo import DemoSource
+from benchctl.simulated_instruments.scpi import STANDARD_ERRORS, Identity, Numeric, ScpiExecutionError
+from benchctl.simulated_instruments.scpi.demo import DemoSource
 
 
 def errors(inst: DemoSource) -> list[int]:
@@ -335,7 +335,7 @@ def test_handler_exception_becomes_200_and_is_logged(inst: DemoSource, caplog: p
         raise ZeroDivisionError("division by zero")
 
     inst.add_command("TEST:BROKen", setter=broken, getter=lambda: None, params=[Numeric()])
-    with caplog.at_level(logging.ERROR, logger="simulated_instruments.scpi"):
+    with caplog.at_level(logging.ERROR, logger="benchctl.simulated_instruments.scpi"):
         assert inst.handle_message("TEST:BROK 1;:VOLT 2;TEST:BROK?") is None
     assert inst.voltage_v == 2.0
     first = inst.handle_message("SYST:ERR?")
@@ -405,7 +405,7 @@ def test_simulator_core_never_imports_benchctl() -> None:
     import ast
     import pathlib
 
-    import simulated_instruments.scpi as pkg
+    import benchctl.simulated_instruments.scpi as pkg
 
     for path in pathlib.Path(pkg.__file__).parent.glob("*.py"):
         tree = ast.parse(path.read_text(encoding="utf-8"))

@@ -11,7 +11,7 @@ import logging
 
 import pytest
 
-from simulated_instruments.scpi.mnemonics import match_nodes, parse_pattern, short_form_rule
+from benchctl.simulated_instruments.scpi.mnemonics import match_nodes, parse_pattern, short_form_rule
 
 # Long and short forms as printed in SCPI-1999 Vol. 2 command tables (from memory).
 PUBLISHED_FORMS = [

@@ -16,12 +16,12 @@ import pytest
 from hypothesis import given
 from hypothesis import strategies as st
 
-from simulated_instruments.scpi import Block, Boolean, Choice, Numeric, ScpiError, Text, format_response
-from simulated_instruments.scpi.lexer import (BlockToken, NumberToken, StringToken, WordToken, parse_unit,
+from benchctl.simulated_instruments.scpi import Block, Boolean, Choice, Numeric, ScpiError, Text, format_response
+from benchctl.simulated_instruments.scpi.lexer import (BlockToken, NumberToken, StringToken, WordToken, parse_unit,
                                               split_units)
-from simulated_instruments.scpi.params import convert_params
-from simulated_instruments.scpi.responses import format_float
-from simulated_instruments.scpi.suffixes import suffix_scale
+from benchctl.simulated_instruments.scpi.params import convert_params
+from benchctl.simulated_instruments.scpi.responses import format_float
+from benchctl.simulated_instruments.scpi.suffixes import suffix_scale
 
 
 def _code(fn, *args) -> int:

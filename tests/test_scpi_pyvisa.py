@@ -10,8 +10,8 @@ from __future__ import annotations
 
 import pytest
 
-from simulated_instruments.scpi import ScpiServer
-from simulated_instruments.scpi.demo import DemoSource
+from benchctl.simulated_instruments.scpi import ScpiServer
+from benchctl.simulated_instruments.scpi.demo import DemoSource
 
 pyvisa = pytest.importorskip("pyvisa")
 

@@ -15,8 +15,8 @@ import threading
 
 import pytest
 
-from simulated_instruments.scpi import GARBLED_RESPONSE, ScpiServer
-from simulated_instruments.scpi.demo import DemoSource
+from benchctl.simulated_instruments.scpi import GARBLED_RESPONSE, ScpiServer
+from benchctl.simulated_instruments.scpi.demo import DemoSource
 
 
 class Client:
@@ -88,7 +88,7 @@ def test_start_logs_listens_and_is_idempotent(inst: DemoSource, caplog: pytest.L
     srv = ScpiServer(inst)
     with pytest.raises(RuntimeError, match="start"):
         _ = srv.port
-    with caplog.at_level(logging.INFO, logger="simulated_instruments.scpi.server"):
+    with caplog.at_level(logging.INFO, logger="benchctl.simulated_instruments.scpi.server"):
         srv.start()
     try:
         port = srv.port
@@ -136,7 +136,7 @@ def test_blocks_with_newlines_travel_both_ways(client: Client, inst: DemoSource)
 
 
 def test_exchanges_are_logged_at_debug(client: Client, caplog: pytest.LogCaptureFixture) -> None:
-    with caplog.at_level(logging.DEBUG, logger="simulated_instruments.scpi"):
+    with caplog.at_level(logging.DEBUG, logger="benchctl.simulated_instruments.scpi"):
         client.query("CURR 0.25;CURR?")
     assert "CURR 0.25;CURR?" in caplog.text and "+2.500000000E-01" in caplog.text
 

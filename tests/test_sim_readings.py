@@ -14,11 +14,11 @@ import numpy as np
 import pytest
 import scipy.integrate
 
-from simulated_instruments.bench import SimulatedBench
-from simulated_instruments.converter import FLYBACK_48V_5V, ConverterModel, ManualClock
-from simulated_instruments.instruments import SimulatedDcSource, SimulatedElectronicLoad, SimulatedPowerMeter
-from simulated_instruments.instruments.accuracy import FIXED_FRACTION, InstrumentErrors
-from simulated_instruments.instruments.aperture import DEFAULT_APERTURE_S
+from benchctl.simulated_instruments.bench import SimulatedBench
+from benchctl.simulated_instruments.converter import FLYBACK_48V_5V, ConverterModel, ManualClock
+from benchctl.simulated_instruments.instruments import SimulatedDcSource, SimulatedElectronicLoad, SimulatedPowerMeter
+from benchctl.simulated_instruments.instruments.accuracy import FIXED_FRACTION, InstrumentErrors
+from benchctl.simulated_instruments.instruments.aperture import DEFAULT_APERTURE_S
 
 
 def _bench_in_process(seed: int = 3):

@@ -10,10 +10,10 @@ import pytest
 from benchctl.acquire import clip_flags, add_flags, widened_screen
 from benchctl.procedure import load_procedure
 from benchctl.runner import execute
-from drivers.oscilloscope import Oscilloscope
-from simulated_instruments.bench import SimulatedBench
-from simulated_instruments.converter import ConverterModel, ManualClock
-from simulated_instruments.waveforms import RecordContext, RecordSynth
+from benchctl.drivers.oscilloscope import Oscilloscope
+from benchctl.simulated_instruments.bench import SimulatedBench
+from benchctl.simulated_instruments.converter import ConverterModel, ManualClock
+from benchctl.simulated_instruments.waveforms import RecordContext, RecordSynth
 
 
 def _run(name, bench, station, store, values):

@@ -13,8 +13,8 @@ from benchctl.analysis.conduction_mode import classify_conduction_mode
 from benchctl.analysis.ringing import fit_ringing, parasitics_from_two_frequencies
 from benchctl.analysis.ripple import output_ripple
 from benchctl.analysis.ringing import ring_start_index
-from simulated_instruments.converter import DESIGNS, ConverterModel, ManualClock
-from simulated_instruments.waveforms import (ImpedanceResponse, LoadStep, RecordContext, RecordSynth,
+from benchctl.simulated_instruments.converter import DESIGNS, ConverterModel, ManualClock
+from benchctl.simulated_instruments.waveforms import (ImpedanceResponse, LoadStep, RecordContext, RecordSynth,
                                              closed_loop_zout)
 
 

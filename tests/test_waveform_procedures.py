@@ -11,7 +11,7 @@ from scipy.optimize import brentq
 
 from benchctl.procedure import load_procedure
 from benchctl.runner import execute
-from simulated_instruments.converter import ConverterModel, ManualClock
+from benchctl.simulated_instruments.converter import ConverterModel, ManualClock
 
 
 def _run(name, bench, station, store, values):

@@ -241,7 +241,7 @@ def cmd_demo(args: argparse.Namespace) -> int:
     from benchctl.procedure import load_procedure
     from benchctl.runner import DutInfo
     from benchctl.station import parse_station
-    from simulated_instruments.bench import SimulatedBench
+    from benchctl.simulated_instruments.bench import SimulatedBench
 
     out = console()
     out.print("[bold]benchctl demo[/]: the efficiency map on a simulated bench (no hardware involved)")

@@ -20,8 +20,8 @@ def default_station_path(model: str) -> Path:
 
 
 def cmd_sim(args: argparse.Namespace) -> int:
-    from simulated_instruments.bench import SimulatedBench
-    from simulated_instruments.converter import DESIGNS
+    from benchctl.simulated_instruments.bench import SimulatedBench
+    from benchctl.simulated_instruments.converter import DESIGNS
 
     out = console()
     if args.list_models:
@@ -44,7 +44,7 @@ def cmd_sim(args: argparse.Namespace) -> int:
         error_console().print(f"[bold red]error:[/] --reading-time {reading_time!r} s is outside 1e-05 … 10 s; "
                               "give the aperture of a reading in seconds, e.g. 0.02")
         return EXIT_BAD_INPUT
-    from simulated_instruments.faults import FaultSpecError, apply_fault_specs, parse_fault_spec
+    from benchctl.simulated_instruments.faults import FaultSpecError, apply_fault_specs, parse_fault_spec
 
     try:
         specs = [parse_fault_spec(text) for text in args.fault]

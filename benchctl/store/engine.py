@@ -123,7 +123,12 @@ def make_engine(url: URL, busy_timeout_s: float, *, read_only: bool = False) -> 
         if memory:
             kwargs["poolclass"] = StaticPool  # one shared connection, else each sees its own empty DB
         engine = create_engine(url, **kwargs)
-    except (SQLAlchemyError, ImportError) as exc:
+    except ImportError as exc:
+        hint = ("install the PostgreSQL extra: pip install \"benchctl[postgresql]\"" if is_postgresql(url)
+                else "install the database driver that the URL names")
+        raise StoreError(f"cannot use store URL {where}: its database driver is not installed ({exc}); {hint}") \
+            from exc
+    except SQLAlchemyError as exc:
         raise StoreError(
             f"cannot use store URL {where}: {exc}; check the dialect name and that its driver is installed"
         ) from exc
