@@ -30,7 +30,7 @@ import numpy as np
 import pandas as pd
 
 from benchctl.analysis.capability import capability
-from benchctl.limits import LimitsFile, RunContext, RunData, load_limits
+from benchctl.limits import LimitsFile, RunData, load_limits
 from benchctl.limits.evaluate import covered_values
 from benchctl.revision_runs import RevisionRuns, revision_runs
 
@@ -47,15 +47,10 @@ PER_SERIAL_COLUMNS = ("limit", "quantity", "unit", "point", "serial", "run_id", 
 
 
 def limit_run_data(store: Any, run_id: int) -> RunData:
-    """What a limit evaluation sees of a stored run (provenance, points, results, units)."""
-    info = store.run(run_id)
-    context = RunContext(
-        run_id=run_id, procedure=info.procedure, status=info.status, parameters=dict(info.parameters or {}),
-        station=info.station_name, dut_part=info.dut_part, dut_revision=info.dut_revision,
-        dut_serial=info.dut_serial, host=info.host, started_utc=info.started_utc, ended_utc=info.ended_utc,
-    )
-    return RunData(context=context, points=store.points(run_id), results=store.results(run_id),
-                   units=store.quantity_units(run_id))
+    """What a limit evaluation sees of a stored run (see :func:`benchctl.limits.outcomes.run_data_from_store`)."""
+    from benchctl.limits.outcomes import run_data_from_store
+
+    return run_data_from_store(store, run_id)
 
 
 def point_text(scope: Mapping[str, Any]) -> str:

@@ -218,18 +218,11 @@ class ImpedanceResponse:
 
     @classmethod
     def from_tf(cls, tf: RationalTF) -> "ImpedanceResponse":
-        num = np.trim_zeros(np.asarray(tf.num, float), "f")
-        den = np.trim_zeros(np.asarray(tf.den, float), "f")
-        if num.size == 0:
-            return cls(0.0, np.zeros(0, complex), np.zeros(0, complex), 0.0)
-        k = num[0] / den[0]
-        zeros = np.roots(num)
-        poles = np.roots(den)
-        res = np.empty(poles.size, complex)
-        for i, p in enumerate(poles):
-            others = np.delete(poles, i)
-            res[i] = k * np.prod(p - zeros) / (p * np.prod(p - others))
-        dc = float(num[-1] / den[-1])
+        from .converter.load_response import step_partial_fractions
+
+        dc, poles, res = step_partial_fractions(tf)
+        if not np.any(np.asarray(tf.num, float)):
+            return cls(0.0, poles, res, 0.0)
         slowest = float(np.min(np.abs(poles.real))) if poles.size else 1.0
         return cls(dc, poles, res, 12.0 / max(slowest, 1e-6))
 

@@ -36,7 +36,6 @@ from benchctl.limits import (
     SUSPECT,
     CheckReport,
     LimitOutcome,
-    RunContext,
     RunData,
     check_limits,
     load_limits,
@@ -64,14 +63,9 @@ def add_check_arguments(parser: argparse.ArgumentParser) -> None:
 
 def load_run_data(store: Store, run_id: int) -> RunData:
     """A run's provenance, points, results and units read from the store."""
-    info = store.run(run_id)
-    context = RunContext(
-        run_id=run_id, procedure=info.procedure, status=info.status, parameters=dict(info.parameters or {}),
-        station=info.station_name, dut_part=info.dut_part, dut_revision=info.dut_revision,
-        dut_serial=info.dut_serial, host=info.host, started_utc=info.started_utc, ended_utc=info.ended_utc,
-    )
-    return RunData(context=context, points=store.points(run_id), results=store.results(run_id),
-                   units=store.quantity_units(run_id))
+    from benchctl.limits.outcomes import run_data_from_store
+
+    return run_data_from_store(store, run_id)
 
 
 def _json_ready(value: Any) -> Any:

@@ -157,6 +157,15 @@ def _slack(bound: float) -> float:
     return max(abs(bound) * FILTER_REL_TOL, FILTER_ABS_TOL)
 
 
+def _extremes(f: Filter, rows: list[Any], rated_a: float | None) -> tuple[float, float] | None:
+    """(lowest, highest) of a filter's key over ``rows`` for ``at = "min" | "max" | "extremes"``; else None."""
+    if f.at is None:
+        return None
+    known = [_as_float(_key_value(r, f.key, rated_a)) for r in rows]
+    known = [k for k in known if not math.isnan(k)]
+    return (min(known), max(known)) if known else None
+
+
 def _matches(f: Filter, value: Any, extremes: tuple[float, float] | None) -> bool:
     if value is None:
         return False
@@ -259,11 +268,7 @@ def evaluate_limit(spec: LimitSpec, data: RunData) -> LimitOutcome:
 
     all_rows = rows
     for f in spec.where:
-        extremes = None
-        if f.at is not None:
-            known = [_as_float(_key_value(r, f.key, rated_a)) for r in all_rows]
-            known = [k for k in known if not math.isnan(k)]
-            extremes = (min(known), max(known)) if known else None
+        extremes = _extremes(f, all_rows, rated_a)
         kept = [r for r in rows if _matches(f, _key_value(r, f.key, rated_a), extremes)]
         if not kept:
             return _not_checked(
@@ -497,11 +502,7 @@ def covered_values(spec: LimitSpec, data: RunData) -> tuple[list[CoveredValue], 
         return [], unit or unit_from_name(spec.quantity), ""
     all_rows = rows
     for f in spec.where:
-        extremes = None
-        if f.at is not None:
-            known = [_as_float(_key_value(r, f.key, rated_a)) for r in all_rows]
-            known = [k for k in known if not math.isnan(k)]
-            extremes = (min(known), max(known)) if known else None
+        extremes = _extremes(f, all_rows, rated_a)
         rows = [r for r in rows if _matches(f, _key_value(r, f.key, rated_a), extremes)]
     out = [CoveredValue(r.value, dict(r.scope), r.expanded_u if math.isfinite(r.expanded_u) else None, r.flags,
                         r.not_exist) for r in rows]

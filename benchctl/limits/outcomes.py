@@ -55,6 +55,18 @@ class RunData:
     units: Mapping[str, str] = field(default_factory=dict)
 
 
+def run_data_from_store(store: Any, run_id: int) -> RunData:
+    """What a limit evaluation sees of a stored run (provenance, points, results, units)."""
+    info = store.run(run_id)
+    context = RunContext(
+        run_id=run_id, procedure=info.procedure, status=info.status, parameters=dict(info.parameters or {}),
+        station=info.station_name, dut_part=info.dut_part, dut_revision=info.dut_revision,
+        dut_serial=info.dut_serial, host=info.host, started_utc=info.started_utc, ended_utc=info.ended_utc,
+    )
+    return RunData(context=context, points=store.points(run_id), results=store.results(run_id),
+                   units=store.quantity_units(run_id))
+
+
 # ---------------------------------------------------------------- outcomes
 @dataclass(frozen=True)
 class CheckedValue:

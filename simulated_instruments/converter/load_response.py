@@ -26,6 +26,23 @@ from numpy.typing import ArrayLike, NDArray
 from .small_signal import RationalTF
 
 
+def step_partial_fractions(tf: RationalTF) -> tuple[float, NDArray[np.complex128], NDArray[np.complex128]]:
+    """(Z(0) in Ω, poles in rad/s, residues of Z(s)/s at the poles in Ω) of an impedance ``tf``,
+    distinct poles assumed: the step response is Z(0) + Σ r_i·e^(p_i·t). Empty for Z = 0."""
+    num = np.trim_zeros(np.asarray(tf.num, float), "f")
+    den = np.trim_zeros(np.asarray(tf.den, float), "f")
+    if num.size == 0:
+        return 0.0, np.zeros(0, complex), np.zeros(0, complex)
+    k = num[0] / den[0]
+    zeros = np.roots(num)
+    poles = np.roots(den)
+    res = np.empty(poles.size, complex)
+    for i, p in enumerate(poles):
+        others = np.delete(poles, i)
+        res[i] = k * np.prod(p - zeros) / (p * np.prod(p - others))
+    return float(num[-1] / den[-1]), poles, res
+
+
 @dataclass(frozen=True, eq=False)
 class ImpedanceExcess:
     """The decaying part of an impedance's step and ramp responses (see module docstring).
@@ -42,24 +59,14 @@ class ImpedanceExcess:
     @classmethod
     def from_tf(cls, tf: RationalTF) -> "ImpedanceExcess":
         """Partial fractions of ``tf`` (an impedance in Ω with all poles in the left half-plane)."""
-        num = np.trim_zeros(np.asarray(tf.num, float), "f")
-        den = np.trim_zeros(np.asarray(tf.den, float), "f")
-        if num.size == 0:
-            return cls(0.0, np.zeros(0, complex), np.zeros(0, complex), 0.0)
-        k = num[0] / den[0]
-        zeros = np.roots(num)
-        poles = np.roots(den)
+        dc, poles, res = step_partial_fractions(tf)
         if np.any(poles.real >= 0.0):
             raise ValueError(f"ImpedanceExcess: poles {poles[poles.real >= 0.0]} rad/s are not in the left "
                              "half-plane; the loop is unstable or marginal and has no decaying response")
-        res = np.empty(poles.size, complex)
-        for i, p in enumerate(poles):
-            others = np.delete(poles, i)
-            res[i] = k * np.prod(p - zeros) / (p * np.prod(p - others))
         amp = np.abs(res)
         floor = 1e-9 * float(amp.max()) if amp.size else 0.0
         memory = max((math.log(a / floor) / -p.real for a, p in zip(amp, poles) if a > floor), default=0.0)
-        return cls(float(num[-1] / den[-1]), poles, res, float(memory))
+        return cls(dc, poles, res, float(memory))
 
     def step_excess_ohm(self, t_s: ArrayLike) -> NDArray[np.float64]:
         """g(t) − Z(0) at times ``t_s`` after a unit current step (Ω); 0 for t ≤ 0."""
