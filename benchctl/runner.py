@@ -29,6 +29,7 @@ from benchctl.bench import Bench
 from benchctl.errors import BenchctlError, InstrumentError, InterlockTrip, SetpointRefused
 from benchctl.guarded import guard
 from benchctl.interlock import Interlock, WatchSource
+from benchctl.run_status import RunStatus
 from benchctl.procedure import Parameters, Procedure
 from benchctl.station import LOAD_KIND, SOURCE_KIND, Station
 from benchctl.station_lock import one_run_per_station
@@ -58,7 +59,7 @@ class RunOutcome:
 
     @property
     def ok(self) -> bool:
-        return self.status == "completed"
+        return self.status == RunStatus.COMPLETED
 
 
 def _outputs_of(drivers: Mapping[str, Any], station: Station, kind: str) -> dict[str, Any]:
@@ -141,7 +142,7 @@ def execute(
         signals.on_first = interlock.stop
         writes = _WritesFinish(store, signals)
         try:
-            status, message, bench = "failed", "", None
+            status, message, bench = RunStatus.FAILED, "", None
             try:
                 with signals.interruptible():
                     _record_calibration(writes, run_id, station, roles, overdue)
@@ -157,9 +158,9 @@ def execute(
                 # No signal interrupts what follows (the handler only acknowledges it).
                 steps = _shut_down(interlock, drivers, store, run_id)
             trip = interlock.trip_record
-            if status == "failed" and trip is not None:  # e.g. a procedure's retry chain ended by the trip
-                status, message = "tripped", f"interlock tripped: {trip.message}; the outputs were switched off"
-            if status == "completed" and procedure.analyse is not None:
+            if status == RunStatus.FAILED and trip is not None:  # e.g. a procedure's retry chain ended by the trip
+                status, message = RunStatus.TRIPPED, f"interlock tripped: {trip.message}; the outputs were switched off"
+            if status == RunStatus.COMPLETED and procedure.analyse is not None:
                 try:
                     store_results(store, run_id, procedure, params)
                 except Exception as exc:
@@ -270,7 +271,7 @@ def _interrupted(store: Any, run_id: int, exc: BaseException) -> tuple[str, str]
     else:
         message, details = "stopped by the operator (Ctrl-C)", {}
     store.record_event(run_id, "interrupted", message, details)
-    return "interrupted", message
+    return RunStatus.INTERRUPTED, message
 
 
 def _close_all(drivers: Mapping[str, Any]) -> None:
@@ -368,8 +369,8 @@ def _finish_complete_resume(store: Any, procedure: Procedure, params: Parameters
         except Exception as exc:
             logger.exception("analysis of run %s failed", run_id)
             store.record_event(run_id, "error", f"analysis failed: {type(exc).__name__}: {exc}", {})
-    store.end_run(run_id, "completed", "")
-    return RunOutcome(run_id, "completed", message, store.run(run_id).n_points, time.monotonic() - started)
+    store.end_run(run_id, RunStatus.COMPLETED, "")
+    return RunOutcome(run_id, RunStatus.COMPLETED, message, store.run(run_id).n_points, time.monotonic() - started)
 
 
 def _bench_for(store: Any, run_id: int, drivers: Mapping[str, Any], interlock: Interlock, settle_enabled: bool,
@@ -471,26 +472,26 @@ def _run_body(procedure: Procedure, params: Parameters, bench: Bench, drivers: M
             if callable(getattr(d, "check_power_on", None)):
                 d.check_power_on()
     except InterlockTrip as exc:
-        return "tripped", str(exc)
+        return RunStatus.TRIPPED, str(exc)
     except SetpointRefused as exc:
         store.record_event(run_id, "interlock_refusal", str(exc),
                            {"limit": exc.limit, "value": exc.value, "instrument": exc.instrument})
-        return "failed", str(exc)
+        return RunStatus.FAILED, str(exc)
     except KeyboardInterrupt as exc:  # Ctrl-C, or a termination signal (StopSignal)
         return _interrupted(store, run_id, exc)
     except InstrumentError as exc:
         store.record_event(run_id, "error", str(exc), {"instrument": exc.instrument, "command": exc.command,
                                                        "type": type(exc).__name__})
-        return "failed", str(exc)
+        return RunStatus.FAILED, str(exc)
     except BenchctlError as exc:
         store.record_event(run_id, "error", str(exc), {"type": type(exc).__name__})
-        return "failed", str(exc)
+        return RunStatus.FAILED, str(exc)
     except Exception as exc:
         message = f"procedure raised {type(exc).__name__}: {exc}"
         logger.exception("procedure %s raised", procedure.name)
         store.record_event(run_id, "error", message, {"type": type(exc).__name__})
-        return "failed", message
-    return "completed", ""
+        return RunStatus.FAILED, message
+    return RunStatus.COMPLETED, ""
 
 
 def _shut_down(interlock: Interlock, drivers: Mapping[str, Any], store: Any, run_id: int) -> list[str]:

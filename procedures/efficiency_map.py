@@ -69,6 +69,10 @@ PARAMETERS = [
               help="hold at full load and the first line voltage before the first point (then the drift check)"),
     Parameter("load_regulation_convention", "", "textbook", kind="str", choices=("textbook", "rated"),
               help="denominator of load regulation: V at full load (textbook) or the rated voltage"),
+    Parameter("external_supply_limits", "", True, kind="bool",
+              help="compare the four-point average and the no-load power with the Level VI limits for external "
+                   "power supplies (indicative only: written for AC-DC supplies; turn off for a point-of-load "
+                   "converter, where they mean nothing)"),
 ]
 
 
@@ -204,6 +208,7 @@ def analyse(points, p: Parameters, accuracy=None) -> list[Result]:
     """
     import numpy as np
 
+    from benchctl.references import cite
     from benchctl.analysis.average_efficiency import LOAD_FRACTIONS, four_point_average, no_load_power_limit_w
     from benchctl.analysis.efficiency import efficiency, loss_w, peak_efficiency
     from benchctl.analysis.quality import merge_flags, point_flags
@@ -296,10 +301,12 @@ def analyse(points, p: Parameters, accuracy=None) -> list[Result]:
         sel = vin_set == vin
         avg = four_point_average(vin, iout_set[sel], eff[sel], iout_rated_a=p.iout_rated_a, vout_nom_v=p.vout_nom_v,
                                  rel_tol=rel_tol)
-        details = {"found": avg.found, "reason": avg.reason, "limit_efficiency": avg.limit_efficiency,
-                   "supply_class": avg.supply_class, "meets_indicative_limit": avg.meets_indicative_limit,
-                   "point_efficiencies": list(avg.point_efficiencies), "note": avg.note,
-                   "source": "10 CFR 430 App. Z average; limit 10 CFR 430.32(w) Level VI (from memory)"}
+        details = {"found": avg.found, "reason": avg.reason, "point_efficiencies": list(avg.point_efficiencies),
+                   "source": cite("CFR-430-APP-Z")}
+        if p.external_supply_limits:
+            details.update({"limit_efficiency": avg.limit_efficiency, "supply_class": avg.supply_class,
+                            "meets_indicative_limit": avg.meets_indicative_limit, "note": avg.note,
+                            "limit_source": cite("CFR-430.32W", "Level VI")})
         fields: dict = {}
         if avg.found:
             groups, used = [], []
@@ -320,8 +327,9 @@ def analyse(points, p: Parameters, accuracy=None) -> list[Result]:
             results.append(Result(
                 "no_load_input_power_w", pin0, "W",
                 details=_with_u({"indicative_limit_w": no_load_power_limit_w(p.vout_nom_v * p.iout_rated_a),
-                                 "note": "indicative only: Level VI no-load limit for external supplies (from memory)"},
-                                u, flags_of(no_load)),
+                                 "note": "indicative only: Level VI no-load limit for external supplies",
+                                 "limit_source": cite("CFR-430.32W", "Level VI")}
+                                if p.external_supply_limits else {}, u, flags_of(no_load)),
                 scope={"vin_set_v": float(vin)}, **_u_fields(u),
             ))
     return results

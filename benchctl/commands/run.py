@@ -258,7 +258,9 @@ def cmd_demo(args: argparse.Namespace) -> int:
         try:
             part = {"flyback-48v-5v": "FB-48S05", "buck-12v-1v2": "POL-12S1V2"}.get(args.model, args.model)
             procedure = load_procedure("efficiency_map")
-            params = procedure.resolve_parameters(values=bench.procedure_parameters())
+            # Level VI limits are written for external supplies: indicative for the brick, meaningless for a POL.
+            params = procedure.resolve_parameters(values={**bench.procedure_parameters(),
+                                                          "external_supply_limits": bench.design.topology != "buck"})
             outcome = run_procedure(procedure, params, station, store, dut=DutInfo(part, "A", "SIM-0001"))
             _report_outcome(outcome, store, False)
             out.print(f"data: [bold]{store.url}[/] (run {outcome.run_id})")

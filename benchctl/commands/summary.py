@@ -170,7 +170,7 @@ def _note(details) -> str:
             notes.append(str(details.get("reason", "")))
         else:
             verdict = "meets" if details.get("meets_indicative_limit") else "below"
-            notes.append(f"{verdict} {details['limit_efficiency']:.4f} (indicative)")
+            notes.append(f"{verdict} {100.0 * details['limit_efficiency']:.2f} % (indicative)")
     elif "indicative_limit_w" in details:
         notes.append(f"limit {details['indicative_limit_w']:g} W (indicative)")
     return "; ".join(notes)
@@ -197,6 +197,10 @@ def results_table(results) -> Table | None:
             continue
         values = group["value"].to_numpy(float)
         unit = str(group["unit"].iloc[0] or "")
+        scale = 1.0
+        if "efficiency" in str(name) and unit == "":  # stored 0..1; people read efficiency in % everywhere
+            scale, unit = 100.0, "%"
+            values = values * scale
         if len(group) == 1 or not (values == values).any():
             k = 0
             rng = ""
@@ -207,6 +211,7 @@ def results_table(results) -> Table | None:
                 k = int(abs(group["value"]).fillna(-1).to_numpy().argmax())
             rng = f"{_fmt(float(min(values)), unit)} … {_fmt(float(max(values)), unit)}"
         u = _finite(group["expanded_uncertainty"].iloc[k]) if has_u else None
+        u = None if u is None else u * scale
         details = group["details"].iloc[k]
         value_text = _fmt(float(values[k]), unit, u)
         n_flagged = sum(1 for d in group["details"] if result_flags(d)[0])
