@@ -23,7 +23,7 @@ import logging
 import math
 import time
 from dataclasses import dataclass, field
-from typing import Any, Callable, Mapping
+from typing import TYPE_CHECKING, Any, Callable, Mapping
 
 from benchctl.bench import Bench
 from benchctl.errors import BenchctlError, InstrumentError, InterlockTrip, SetpointRefused
@@ -34,6 +34,9 @@ from benchctl.procedure import Parameters, Procedure
 from benchctl.station import LOAD_KIND, SOURCE_KIND, Station
 from benchctl.station_lock import one_run_per_station
 from benchctl.termination import StopSignal, StopSignals
+
+if TYPE_CHECKING:
+    from benchctl.store import Store
 
 logger = logging.getLogger(__name__)
 
@@ -88,7 +91,7 @@ def execute(
     procedure: Procedure,
     params: Parameters,
     station: Station,
-    store: Any,
+    store: Store,
     *,
     dut: DutInfo = DutInfo(),
     operator: str | None = None,
@@ -521,7 +524,7 @@ def _shut_down(interlock: Interlock, drivers: Mapping[str, Any], store: Any, run
     return steps
 
 
-def store_results(store: Any, run_id: int, procedure: Procedure, params: Parameters) -> int:
+def store_results(store: Store, run_id: int, procedure: Procedure, params: Parameters) -> int:
     """Compute the procedure's derived results from the stored points and store them."""
     points = store.points(run_id)
     results = _call_analyse(procedure, points, params, store, run_id) if procedure.analyse else []
