@@ -117,7 +117,7 @@ def test_options_that_would_change_a_resumed_run_are_refused(simulated_bench, tm
     params = tmp_path / "p.toml"
     params.write_text("vin_v = [36.0]\n", encoding="utf-8")
     for extra in (["--set", "vin_v=36"], ["--params", str(params)], ["--dut-part", "X"], ["--dut-rev", "C"],
-                  ["--dut-serial", "9"]):
+                  ["--dut-serial", "9"], ["--no-settle"]):
         code = main(["run", "--resume", "1", "--station", str(path), "--db", str(tmp_path / "none.db"), *extra])
         err = " ".join(capsys.readouterr().err.split())
         assert code == EXIT_BAD_INPUT and f"{extra[0]} cannot be given with --resume" in err

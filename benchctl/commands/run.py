@@ -157,11 +157,12 @@ def _check_resume_options(args) -> None:
             raise ConfigurationError("--accept-station-change goes with --resume RUN only")
         return
     given = [name for name, value in (("--set", args.sets), ("--params", args.params), ("--dut-part", args.dut_part),
-                                      ("--dut-rev", args.dut_rev), ("--dut-serial", args.dut_serial)) if value]
+                                      ("--dut-rev", args.dut_rev), ("--dut-serial", args.dut_serial),
+                                      ("--no-settle", getattr(args, "no_settle", False))) if value]
     if given:
         raise ConfigurationError(
-            f"{', '.join(given)} cannot be given with --resume: a resumed run keeps the parameters and DUT it began "
-            f"with (stored with run {args.resume}; `benchctl show {args.resume}` lists them). Start a new run to "
+            f"{', '.join(given)} cannot be given with --resume: a resumed run keeps the parameters, DUT and settling "
+            f"it began with (stored with run {args.resume}; `benchctl show {args.resume}` lists them). Start a new run to "
             "measure with other values")
 
 
