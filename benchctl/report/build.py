@@ -20,8 +20,8 @@ from typing import Any
 from matplotlib.figure import Figure
 
 import benchctl
-from benchctl.errors import StoreError
 
+from .files import write_page
 from . import standard_plots  # noqa: F401  (registers the standard plots)
 from . import waveform_plots  # noqa: F401  (registers the waveform plots)
 from . import loop_plots  # noqa: F401  (registers the Bode plot and the margin map)
@@ -98,19 +98,6 @@ def build_report(store: Any, run_id: int | str, out_dir: str | os.PathLike[str] 
     target = Path(out_dir) if out_dir is not None else default_out_dir(rid)
     page = render_html(run, images, notes=notes, store_url=str(getattr(store, "url", "")),
                        generated_utc=datetime.now(timezone.utc))
-    try:
-        target.mkdir(parents=True, exist_ok=True)
-        png_paths = []
-        for img in images:
-            path = target / img.file_name
-            path.write_bytes(img.png)
-            png_paths.append(path)
-        html_path = target / REPORT_FILE_NAME
-        html_path.write_text(page, encoding="utf-8")
-    except OSError as exc:
-        raise StoreError(
-            f"cannot write the report of run {rid} to {target}: {exc.strerror or exc}; "
-            "choose a directory you may write with --out"
-        ) from exc
+    html_path, png_paths = write_page(target, REPORT_FILE_NAME, page, images, what=f"the report of run {rid}")
     log.info("report of run %s written to %s (%d plots)", rid, html_path, len(png_paths))
     return ReportFiles(run_id=rid, out_dir=target, html_path=html_path, png_paths=tuple(png_paths), notes=tuple(notes))

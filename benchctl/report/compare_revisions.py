@@ -10,8 +10,8 @@ from datetime import datetime, timezone
 from pathlib import Path
 
 from benchctl.compare import Comparison, RevisionComparison
-from benchctl.errors import StoreError
 
+from .files import write_page
 from . import style
 from .build import figure_png
 from .compare_plots import can_draw, difference_figure, scale_of
@@ -105,15 +105,8 @@ def write_revision_comparison(rc: RevisionComparison, out_dir: str | os.PathLike
             f"<p>store {esc(store_url)}</p></header>{section}<footer>generated {esc(now)} by benchctl</footer>"
             "</main></body></html>\n")
     target = Path(out_dir)
-    try:
-        target.mkdir(parents=True, exist_ok=True)
-        for img in images:
-            (target / img.file_name).write_bytes(img.png)
-        path = target / COMPARISON_FILE_NAME
-        path.write_text(page, encoding="utf-8")
-    except OSError as exc:
-        raise StoreError(f"cannot write the comparison to {target}: {exc.strerror or exc}; choose another "
-                         "directory") from exc
+    path, _ = write_page(target, COMPARISON_FILE_NAME, page, images, what="the comparison",
+                         hint="choose another directory")
     return path
 
 

@@ -7,8 +7,8 @@ from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any
 
-from benchctl.errors import StoreError
 
+from .files import write_page
 from . import plots, style
 from .build import REPORT_FILE_NAME, ReportFiles, figure_png, render_figures
 from .html import EmbeddedImage, render_html
@@ -44,14 +44,6 @@ def build_comparison_report(store: Any, run_a: int, run_b: int, out_dir: str | o
     page = render_html(b, images, notes=[f"Side-by-side with run {run_a} ({a.info.dut_part} rev "
                                          f"{a.info.dut_revision or '—'})."] + notes,
                        store_url=str(getattr(store, "url", "")), generated_utc=datetime.now(timezone.utc))
-    try:
-        target.mkdir(parents=True, exist_ok=True)
-        paths = []
-        for img in images:
-            (target / img.file_name).write_bytes(img.png)
-            paths.append(target / img.file_name)
-        html_path = target / REPORT_FILE_NAME
-        html_path.write_text(page, encoding="utf-8")
-    except OSError as exc:
-        raise StoreError(f"cannot write the comparison report to {target}: {exc}; choose another directory") from exc
+    html_path, paths = write_page(target, REPORT_FILE_NAME, page, images, what="the comparison report",
+                                  hint="choose another directory")
     return ReportFiles(run_b, target, html_path, tuple(paths), tuple(notes))

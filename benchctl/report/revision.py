@@ -21,9 +21,9 @@ from pathlib import Path
 from typing import Any
 
 import benchctl
-from benchctl.errors import StoreError
 from benchctl.limits import LimitsFile
 
+from .files import write_page
 from . import style
 from .build import figure_png
 from .html import _CSS, EmbeddedImage, _kv, _table, data_uri, esc
@@ -370,17 +370,7 @@ def build_revision_summary(store: Any, part: str, revision: str, *, limits: Iter
         images_to_write = images
     page = render_revision_page(ev, images, store_url=str(getattr(store, "url", "")), extra_html=extra)
     target = Path(out_dir) if out_dir is not None else default_out_dir(part, revision)
-    try:
-        target.mkdir(parents=True, exist_ok=True)
-        paths = []
-        for img in images_to_write:
-            (target / img.file_name).write_bytes(img.png)
-            paths.append(target / img.file_name)
-        html_path = target / SUMMARY_FILE_NAME
-        html_path.write_text(page, encoding="utf-8")
-    except OSError as exc:
-        raise StoreError(f"cannot write the revision summary to {target}: {exc.strerror or exc}; choose a directory "
-                         "you may write with --out") from exc
+    html_path, paths = write_page(target, SUMMARY_FILE_NAME, page, images_to_write, what="the revision summary")
     return RevisionSummaryFiles(part, revision, target, html_path, tuple(paths), ev.overall)
 
 
