@@ -72,6 +72,7 @@ from benchctl.drivers.status import (
     Identity,
     compound,
     on_off,
+    operation_complete,
     parse_error_entry,
     parse_event_status,
     parse_status_answer,
@@ -622,9 +623,9 @@ class ScpiDriver:
                 answer = self.ask(self.command("operation_complete"))
             finally:
                 session.timeout_s = previous
-        if answer != "1":
-            raise InstrumentResponseError(f"*OPC? answered {answer!r}, expected '1'", instrument=self.name,
-                                          command="*OPC?")
+        if not operation_complete(answer):
+            raise InstrumentResponseError(f"*OPC? answered {answer!r}, expected 1 (or +1, 1.0)",
+                                          instrument=self.name, command=self.command("operation_complete"))
 
     def safe_state(self) -> None:
         """Put the instrument in its safe state: its output off (:meth:`output_off_now`)."""

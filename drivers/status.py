@@ -78,6 +78,16 @@ def parse_event_status(answer: str) -> int | None:
     return int(value) if math.isfinite(value) else None
 
 
+def operation_complete(answer: str) -> bool:
+    """Whether an ``*OPC?`` answer says "complete": the NR1 ``1`` of IEEE 488.2-1992 §10.19
+    (from memory), also in the forms instruments send in practice (``+1``, ``1.0``, ``+1.000E+00``)."""
+    try:
+        value = float(answer.strip())
+    except ValueError:
+        return False
+    return value == 1.0
+
+
 def compound(first: str, second: str) -> str:
     """``first;second`` as one program message, ``second`` started at the root (``;:``) unless it
     is a common command (``*``) or already rooted (SCPI-1999 Vol. 1 §6.2.4, from memory)."""

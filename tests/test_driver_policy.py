@@ -328,3 +328,21 @@ set_voltage = "VOLT {voltage}"
     problems = "\n".join(info.value.problems)
     assert "instruments.source.options.baud_rate: unknown option" in problems
     assert "instruments.source.commands: command override 'set_voltage'" in problems
+
+
+# IEEE 488.2-1992 §10.19 (from memory): *OPC? answers the NR1 "1"; instruments in practice also
+# send "+1" or "1.0", which mean the same and must be accepted; anything else is refused.
+@pytest.mark.parametrize("answer", ["1", "+1", "1.0", "+1.000E+00"])
+def test_opc_answer_forms_are_accepted(answer: str) -> None:
+    inst = ScriptedInstrument(answers={"*OPC?": answer})
+    driver = scripted_driver(DcSource, inst, options=NO_DELAY)
+    driver.wait_complete()
+    assert inst.messages[-1] == "*OPC?"
+
+
+@pytest.mark.parametrize("answer", ["0", "2", "ON", ""])
+def test_opc_answer_that_is_not_one_is_refused(answer: str) -> None:
+    inst = ScriptedInstrument(answers={"*OPC?": answer})
+    driver = scripted_driver(DcSource, inst, options=NO_DELAY)
+    with pytest.raises(InstrumentResponseError, match="expected 1"):
+        driver.wait_complete()
