@@ -614,18 +614,19 @@ class ScpiDriver:
 
     def wait_complete(self, timeout_s: float | None = None) -> None:
         """Block until pending operations are done (*OPC?, IEEE 488.2 §10.19)."""
+        command = self.command("operation_complete")
         with self._lock:
             session = self._require_session()
             previous = session.timeout_s
             if timeout_s is not None:
                 session.timeout_s = timeout_s
             try:
-                answer = self.ask(self.command("operation_complete"))
+                answer = self.ask(command)
             finally:
                 session.timeout_s = previous
         if not operation_complete(answer):
-            raise InstrumentResponseError(f"*OPC? answered {answer!r}, expected 1 (or +1, 1.0)",
-                                          instrument=self.name, command=self.command("operation_complete"))
+            raise InstrumentResponseError(f"{command!r} answered {answer!r}, expected 1 (or +1, 1.0)",
+                                          instrument=self.name, command=command)
 
     def safe_state(self) -> None:
         """Put the instrument in its safe state: its output off (:meth:`output_off_now`)."""
