@@ -21,12 +21,14 @@ def bench(simulated_bench):
     return simulated_bench("flyback-48v-5v", time_scale=50.0)
 
 
-def _source(bench, **options):
-    return DcSource(bench.resources["source"], name="source", timeout_s=0.3, options=options).open()
+def _source(bench, timeout_s=0.3, **options):
+    # 0.3 s makes the injected silences short; a test that counts messages on the happy path passes a
+    # generous timeout so a loaded machine cannot turn one slow answer into a retry.
+    return DcSource(bench.resources["source"], name="source", timeout_s=timeout_s, options=options).open()
 
 
 def test_happy_path_costs_no_extra_round_trip(bench):
-    src = _source(bench)
+    src = _source(bench, timeout_s=10.0)
     plan = apply_fault_specs(bench, ["garble@source:manual"])  # manual: never fires, only counts
     try:
         src.set_voltage(12.0)
