@@ -20,6 +20,7 @@ from benchctl.exit_codes import (  # noqa: F401  (re-exported while commands mov
     EXIT_INTERRUPTED,
     EXIT_NOT_CHECKED,
     EXIT_OK,
+    exit_code_for_error,
 )
 from benchctl.safety import CAUTION
 
@@ -286,9 +287,9 @@ def main(argv: list[str] | None = None) -> int:
 
     try:
         return commands.dispatch(args)
-    except KeyboardInterrupt:
+    except KeyboardInterrupt as exc:
         print("interrupted", file=sys.stderr)
-        return EXIT_INTERRUPTED
+        return exit_code_for_error(exc)
 
 
 if __name__ == "__main__":  # pragma: no cover

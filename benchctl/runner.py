@@ -59,6 +59,8 @@ class RunOutcome:
     duration_s: float
     trip: Any = None
     shutdown_steps: tuple[str, ...] = field(default=())
+    #: The termination signal that stopped the run (``"SIGTERM"`` ...), None for Ctrl-C or no signal.
+    signal_name: str | None = None
 
     @property
     def ok(self) -> bool:
@@ -146,6 +148,7 @@ def execute(
         writes = _WritesFinish(store, signals)
         try:
             status, message, bench = RunStatus.FAILED, "", None
+            signal_name: str | None = None
             try:
                 with signals.interruptible():
                     _record_calibration(writes, run_id, station, roles, overdue)
@@ -157,6 +160,7 @@ def execute(
                     status, message = _run_body(procedure, params, bench, drivers, interlock, station, writes, run_id)
             except KeyboardInterrupt as exc:  # a stop before the body began, or as it returned
                 status, message = _interrupted(store, run_id, exc)
+                signal_name = getattr(exc, "signal_name", None)
             finally:
                 # No signal interrupts what follows (the handler only acknowledges it).
                 steps = _shut_down(interlock, drivers, store, run_id)
@@ -172,7 +176,8 @@ def execute(
             store.end_run(run_id, status, message)
             points = store.run(run_id).n_points if resume_run_id or bench is None else bench.points_recorded
             outcome = RunOutcome(run_id, status, message, points, time.monotonic() - started,
-                                 trip=interlock.trip_record, shutdown_steps=tuple(steps))
+                                 trip=interlock.trip_record, shutdown_steps=tuple(steps),
+                                 signal_name=signal_name or (signals.first.signal_name if signals.first else None))
         finally:
             # Closed only once the run is stored: a watch reading still waiting on a hung
             # instrument holds its driver, and must not delay the record.

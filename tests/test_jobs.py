@@ -208,3 +208,41 @@ def test_compare_tolerates_small_setpoint_differences():
     assert dv[1].delta == pytest.approx(-0.01) and dv[1].flagged  # beyond 2 mV
     assert not dv[0].flagged
     assert compare_points(a, b, rel_tol=0.001).matched_points == 0
+
+
+def test_sigterm_during_a_job_stops_it_safely_with_143(simulated_bench, tmp_path):
+    """A scheduler's SIGTERM in the first step: outputs off, later steps not run, exit 128 + 15."""
+    from benchctl.exit_codes import ExitCode
+
+    bench = simulated_bench("flyback-48v-5v", time_scale=2.0)
+    station = bench.write_station(tmp_path / "st.toml")
+    db = tmp_path / "job.db"
+    proc = subprocess.Popen([sys.executable, "-m", "benchctl.cli", "job", str(_job_file(tmp_path)), "--station",
+                             str(station), "--db", str(db)],
+                            stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, env={**os.environ})
+    try:
+        deadline = time.monotonic() + 60
+        count = 0
+        while time.monotonic() < deadline and count < 2 and proc.poll() is None:
+            if db.exists():
+                try:
+                    with sqlite3.connect(f"file:{db}?mode=ro", uri=True, timeout=1) as con:
+                        count = con.execute("select count(*) from points").fetchone()[0]
+                except sqlite3.Error:
+                    pass
+            time.sleep(0.02)
+        assert count >= 2, "the job did not record two points within 60 s"
+        proc.send_signal(signal.SIGTERM)
+        proc.wait(timeout=30)
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+            proc.wait()
+    # 128 + SIGTERM's number 15 (the shell's convention, from memory).
+    assert proc.returncode == ExitCode.TERMINATED == 128 + signal.SIGTERM
+    _outputs_off(bench)
+    with Store.open(str(db)) as store:
+        runs = store.runs()
+        assert len(runs) == 1, runs  # the second step never began
+        assert runs["status"].tolist() == ["interrupted"]
+        assert "SIGTERM" in " ".join(store.events(int(runs["run_id"].iloc[0]))["message"])

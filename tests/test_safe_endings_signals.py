@@ -25,7 +25,7 @@ from pathlib import Path
 
 import pytest
 
-from benchctl.exit_codes import EXIT_INTERRUPTED
+from benchctl.exit_codes import EXIT_INTERRUPTED, ExitCode
 from benchctl.store import Store
 from benchctl.simulated_instruments.faults import FaultPlan
 
@@ -159,7 +159,8 @@ def test_signal_ends_the_run_safely_and_is_recorded(signal_name, moment, simulat
         if proc.poll() is None:
             proc.kill()
             proc.wait()
-    assert proc.returncode == EXIT_INTERRUPTED, err.read_text()
+    # 128 + the signal's number (130 SIGINT, 143 SIGTERM, 129 SIGHUP: the shell's convention, from memory).
+    assert proc.returncode == ExitCode.for_signal(signal_name) == 128 + getattr(signal, signal_name), err.read_text()
     _check_interrupted(db, signal_name)
     _check_outputs_off_in_order(bench, t_signal)
     assert "shutting down" in err.read_text()

@@ -8,7 +8,7 @@ from pathlib import Path
 from rich.markup import escape
 from rich.table import Table
 
-from benchctl.exit_codes import EXIT_BAD_INPUT, EXIT_FAILED, EXIT_INTERRUPTED, EXIT_NOT_CHECKED, EXIT_OK
+from benchctl.exit_codes import EXIT_BAD_INPUT, EXIT_FAILED, EXIT_INTERRUPTED, EXIT_NOT_CHECKED, EXIT_OK, ExitCode
 from benchctl.commands.console import console
 from benchctl.commands.run import _exit_code, print_plan, run_procedure
 from benchctl.commands.stores import open_store
@@ -49,7 +49,7 @@ def _job_note(store, job_id: int, job_name: str, units, u: int, step: int, steps
 
 
 #: Which step outcome decides the job's exit code when several go wrong (worst first).
-_SEVERITY = [EXIT_INTERRUPTED, EXIT_FAILED, EXIT_NOT_CHECKED, EXIT_BAD_INPUT, EXIT_OK]
+_SEVERITY = [ExitCode.TERMINATED, ExitCode.HUNG_UP, EXIT_INTERRUPTED, EXIT_FAILED, EXIT_NOT_CHECKED, EXIT_BAD_INPUT, EXIT_OK]
 
 
 def cmd_job(args: argparse.Namespace) -> int:

@@ -14,7 +14,7 @@ from rich.table import Table
 from rich.console import Group
 from rich.text import Text
 
-from benchctl.exit_codes import EXIT_FAILED, EXIT_INTERRUPTED, EXIT_OK
+from benchctl.exit_codes import EXIT_FAILED, EXIT_INTERRUPTED, EXIT_OK, ExitCode
 from benchctl.commands.console import console, error_console, print_caution
 from benchctl.commands.stores import open_store
 from benchctl.commands.summary import print_run_summary
@@ -107,7 +107,7 @@ def _exit_code(outcome) -> int:
     if outcome.status == RunStatus.COMPLETED:
         return EXIT_OK
     if outcome.status == RunStatus.INTERRUPTED:
-        return EXIT_INTERRUPTED
+        return ExitCode.for_signal(outcome.signal_name) if outcome.signal_name else EXIT_INTERRUPTED
     return EXIT_FAILED
 
 
