@@ -101,7 +101,9 @@ def _add_bench_commands(sub: Any) -> None:
     p.add_argument("--dut-part", default="", help="DUT part number")
     p.add_argument("--dut-rev", default="", help="DUT revision")
     p.add_argument("--dut-serial", default="", help="DUT serial number")
-    p.add_argument("--operator", default=None, help="operator name (default: the login name)")
+    p.add_argument("--operator", default=None,
+                   help="operator name (default: the login name); with --resume, who resumed it (stored in the "
+                        "run's gap event; the run keeps the operator it began with)")
     p.add_argument("--no-settle", action="store_true", help="skip settling waits (dry runs, benchmarks)")
     p.add_argument("--json", action="store_true", help="print the outcome as JSON")
 

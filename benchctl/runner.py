@@ -343,7 +343,9 @@ def _begin_or_resume(store: Any, start: Any, resume_run_id: int | None,
             "station back as it was, or resume with --accept-station-change (accept_station_change=True) to go on "
             "with the change stored as part of the run", [c.text() for c in changes])
     skip_points = _planned_points_done(store, resume_run_id)
-    store.reopen_run(resume_run_id, f"resumed after {skip_points} committed points; instruments re-identified: "
+    # The run keeps the operator it began with; who resumed it (another shift, say) is kept in the gap event.
+    store.reopen_run(resume_run_id, f"resumed by {start.operator} after {skip_points} committed points; "
+                     "instruments re-identified: "
                      + "; ".join(f"{i.role}={i.identity}" for i in start.instruments))
     if changes:
         store.record_station_change(resume_run_id, start, [c.as_dict() for c in changes])

@@ -148,7 +148,8 @@ def test_resume_after_sigkill_has_every_planned_point_once(simulated_bench, tmp_
         if proc.poll() is None:
             proc.kill()
     assert count >= 6
-    code = main(["run", "--resume", "latest", "--station", str(station), "--db", str(db), "--json"])
+    code = main(["run", "--resume", "latest", "--station", str(station), "--db", str(db), "--json",
+                 "--operator", "night shift"])
     assert code == EXIT_OK, capsys.readouterr()
     with Store.open(str(db)) as store:
         run_id = store.resolve_run("latest")
@@ -161,6 +162,9 @@ def test_resume_after_sigkill_has_every_planned_point_once(simulated_bench, tmp_
         events = store.events(run_id)
         assert {"interrupted", "gap"} <= set(events["kind"])
         assert store.run(run_id).status == "completed"
+        # The run keeps the operator it began with; the one who resumed it is named in the gap event.
+        assert store.run(run_id).operator != "night shift"
+        assert any("resumed by night shift" in m for m in events.loc[events["kind"] == "gap", "message"])
     _outputs_off(bench)
     # A completed run cannot be resumed.
     code = main(["run", "--resume", "latest", "--station", str(station), "--db", str(db)])
