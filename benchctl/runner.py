@@ -514,6 +514,9 @@ def _shut_down(interlock: Interlock, drivers: Mapping[str, Any], store: Any, run
     """
     interlock.stop_watch(wait_s=0.0)
     steps = interlock.shutdown()
+    activities = _stop_activities(drivers)
+    if activities:
+        store.record_event(run_id, "info", "after the outputs: " + "; ".join(activities), {"stopped": activities})
     early = list(interlock.stop_shutdown_steps)
     if early:  # what the shutdown a termination signal started did, before the final one
         store.record_event(run_id, "info", "outputs switched off on the termination signal: " + "; ".join(early),
@@ -528,6 +531,22 @@ def _shut_down(interlock: Interlock, drivers: Mapping[str, Any], store: Any, run
     if failed_off:
         store.record_event(run_id, "error", "could not confirm every output off: " + "; ".join(failed_off),
                            {"shutdown": steps})
+    return steps
+
+
+def _stop_activities(drivers: Mapping[str, Any]) -> list[str]:
+    """After the outputs are off: stop what other instruments drive (an analyzer's injection sweep,
+    a scope's pending capture), each by one unretried message; a failure is a step, not an error."""
+    steps = []
+    for role, driver in drivers.items():
+        stop = getattr(driver, "stop_activity", None)
+        if stop is None or not getattr(driver, "is_open", True):
+            continue
+        try:
+            stop()
+            steps.append(f"{role}: activity stopped")
+        except Exception as exc:  # the run is being stored: report, never raise
+            steps.append(f"{role}: its activity could not be stopped ({type(exc).__name__}: {exc})")
     return steps
 
 

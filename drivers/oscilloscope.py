@@ -252,6 +252,10 @@ class Oscilloscope(ScpiDriver):
     def abort(self) -> None:
         self.write("abort")
 
+    def stop_activity(self) -> None:
+        """At a run's shutdown: abort a pending acquisition (one message, not retried, no error check)."""
+        self.send(self.command("abort"))
+
     def wait_acquired(self, timeout_s: float = 10.0) -> None:
         """Block until the armed acquisition is complete (``*OPC?``)."""
         self.wait_complete(timeout_s)

@@ -60,7 +60,8 @@ def _stderr(proc: subprocess.Popen) -> str:
     return path.read_text()[-2000:] if path is not None and path.exists() else ""
 
 
-def _start_run(bench, tmp_path: Path, sets: list[str]) -> tuple[subprocess.Popen, Path, Path]:
+def _start_run(bench, tmp_path: Path, sets: list[str],
+               procedure: str = "efficiency_map") -> tuple[subprocess.Popen, Path, Path]:
     station = bench.write_station(tmp_path / "station.toml")
     # These tests are about signals, not the watch's timing: on a starved 2-core machine the simulated
     # instruments (in this test process) can miss a few watch periods, which would trip the run first.
@@ -69,7 +70,7 @@ def _start_run(bench, tmp_path: Path, sets: list[str]) -> tuple[subprocess.Popen
     db = tmp_path / "runs.db"
     Store.open(str(db)).close()
     err = tmp_path / "stderr.txt"
-    args = [sys.executable, "-m", "benchctl.cli", "run", "efficiency_map", "--station", str(station), "--db", str(db),
+    args = [sys.executable, "-m", "benchctl.cli", "run", procedure, "--station", str(station), "--db", str(db),
             "--json"]
     for s in sets:
         args += ["--set", s]
@@ -208,3 +209,4 @@ def test_second_and_third_ctrl_c_do_not_cut_the_shutdown_short(simulated_bench, 
     # From the first Ctrl-C to the load's OFF: the source's shutdown deadline (0.5 s by default)
     # plus a little; bounded here with generous slack for a loaded machine.
     assert load_off.t_s - t_signal < 0.5 + 5.0
+
