@@ -52,7 +52,7 @@ from dataclasses import dataclass, field
 from enum import IntEnum
 from typing import get_args
 
-from .instrument import ABORT_DEVICE_CLEAR, ScpiInstrument
+from .instrument import ABORT_CLOSED, ABORT_DEVICE_CLEAR, ABORT_NEW_INPUT, ScpiInstrument
 from .server import GARBLED_RESPONSE, LOOPBACK, FaultKind, _reset_close
 
 logger = logging.getLogger(__name__)
@@ -525,17 +525,17 @@ class HislipServer:
                     out.clear()
             session.sync.sendall(out)
 
-    def _client_moved_on(self, session: _Session) -> bool:
+    def _client_moved_on(self, session: _Session) -> str | None:
         """A running *OPC? ends when this session's client sends again, clears, or goes."""
         if session.dropped or self._stopping.is_set() or session.clearing.is_set():
-            return True
+            return ABORT_CLOSED
         try:
-            session.sync.recv(1, socket.MSG_PEEK | socket.MSG_DONTWAIT)
+            data = session.sync.recv(1, socket.MSG_PEEK | socket.MSG_DONTWAIT)
         except (BlockingIOError, InterruptedError):
-            return False
+            return None
         except OSError:
-            return True
-        return True  # a further message waits, or the client closed (b"")
+            return ABORT_CLOSED
+        return ABORT_NEW_INPUT if data else ABORT_CLOSED
 
     @staticmethod
     def _has_input(sock: socket.socket) -> bool:

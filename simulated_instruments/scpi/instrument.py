@@ -95,7 +95,7 @@ class _MessageContext:
     path: tuple[str, ...] = ()
     indefinite_sent: bool = False
     clears_at_start: int = 0
-    interrupted: Callable[[], bool] | None = None
+    interrupted: Callable[[], str | None] | None = None
 
 
 class _WaitAborted(Exception):
@@ -109,6 +109,7 @@ class _WaitAborted(Exception):
 #: Why a wait ended early (the audit records it as the state "opc_wait_aborted").
 ABORT_DEVICE_CLEAR = "device clear"
 ABORT_NEW_INPUT = "query interrupted"
+ABORT_CLOSED = "connection closed"
 
 
 class ScpiInstrument:
@@ -207,12 +208,14 @@ class ScpiInstrument:
         return None if response is None else response.decode("latin-1")
 
     @contextmanager
-    def interrupt_check(self, interrupted: Callable[[], bool]) -> Iterator[None]:
+    def interrupt_check(self, interrupted: Callable[[], str | None]) -> Iterator[None]:
         """While in this block, messages run by this thread ask ``interrupted`` during a wait.
 
-        ``interrupted`` is the server's "has this client sent more, or gone?"; when it says
-        yes, a ``*OPC?``/``*WAI`` wait ends, -410 is queued and the rest of the message is
-        discarded. (A thread-local, so :meth:`process_message` keeps its signature.)
+        ``interrupted`` is the server's "has this client sent more, or gone?": it returns
+        :data:`ABORT_NEW_INPUT`, :data:`ABORT_CLOSED` or None. On either reason a
+        ``*OPC?``/``*WAI`` wait ends and the rest of the message is discarded; new input
+        also queues -410 (the answer would have been discarded for it anyway). (A
+        thread-local, so :meth:`process_message` keeps its signature.)
         """
         previous = getattr(self._local, "interrupted", None)
         self._local.interrupted = interrupted
@@ -445,8 +448,9 @@ class ScpiInstrument:
                 return
             if self._clears != ctx.clears_at_start:
                 raise _WaitAborted(ABORT_DEVICE_CLEAR)
-            if ctx.interrupted is not None and ctx.interrupted():
-                raise _WaitAborted(ABORT_NEW_INPUT)
+            reason = ctx.interrupted() if ctx.interrupted is not None else None
+            if reason is not None:
+                raise _WaitAborted(reason)
             self._sleep(OPC_POLL_S)
         if not self.pending_done():
             raise ScpiError(-200, f"{where}: operations still pending after {self._opc_timeout_s:g} s")

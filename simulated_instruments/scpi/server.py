@@ -36,7 +36,7 @@ from collections import deque
 from typing import Literal, get_args
 
 from .framing import MessageFramer, Overrun
-from .instrument import ABORT_DEVICE_CLEAR, ScpiInstrument
+from .instrument import ABORT_CLOSED, ABORT_DEVICE_CLEAR, ABORT_NEW_INPUT, ScpiInstrument
 
 logger = logging.getLogger(__name__)
 
@@ -292,17 +292,17 @@ class ScpiServer:
         logger.debug("port %s: -> %s %r", self._port, conn.peer, response[:200])
         conn.sock.sendall(response + quirks.response_terminator)
 
-    def _client_moved_on(self, conn: _Connection) -> bool:
+    def _client_moved_on(self, conn: _Connection) -> str | None:
         """Whether the client sent more or closed while its message runs (peeked, nothing consumed)."""
         if conn.dropped or self._stopping.is_set():
-            return True
+            return ABORT_CLOSED
         try:
-            conn.sock.recv(1, socket.MSG_PEEK | socket.MSG_DONTWAIT)
+            data = conn.sock.recv(1, socket.MSG_PEEK | socket.MSG_DONTWAIT)
         except (BlockingIOError, InterruptedError):
-            return False
+            return None
         except OSError:
-            return True
-        return True  # data waiting, or b"" (the client closed)
+            return ABORT_CLOSED
+        return ABORT_NEW_INPUT if data else ABORT_CLOSED
 
     @staticmethod
     def _more_input(conn: _Connection, framer: MessageFramer, pending: deque[bytes | Overrun]) -> bool:
