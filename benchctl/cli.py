@@ -75,6 +75,26 @@ def _add_bench_commands(sub: Any) -> None:
                         "drop, garble, scpi_error, reset, feedback_open, output_short, overheat, input_sag; "
                         "after=N counts the instrument's messages, at=T the model clock in model seconds from "
                         "the moment `benchctl sim` started (not from a run's start; --time-scale speeds it up)")
+    p.add_argument("--quirk", action="append", default=[], metavar="ROLE:QUIRK[,QUIRK]",
+                   help="make an instrument depart from textbook SCPI (repeatable), e.g. source:crlf,opc_plus_one "
+                        "or scope:slow:0.5; quirks: crlf, opc_plus_one, no_syst_err, no_compound, slow[:S]")
+    p.add_argument("--hislip", nargs="?", const="all", default=None, metavar="ROLE[,ROLE]",
+                   help="serve the instruments over HiSLIP (TCPIP::127.0.0.1::hislip0,PORT::INSTR) instead of raw "
+                        "sockets: all of them, or only these roles")
+
+    p = sub.add_parser("probe", help="find out how an unknown instrument speaks and propose its station-file table")
+    p.add_argument("resource", help="VISA resource string, e.g. TCPIP::192.0.2.7::5025::SOCKET")
+    p.add_argument("--visa-library", default=None, metavar="LIB",
+                   help="VISA library: @py (pyvisa-py, the default), a vendor library's name or path")
+    p.add_argument("--timeout-s", type=float, default=2.0, metavar="S",
+                   help="how long to wait for each answer while probing (default 2 s)")
+    p.add_argument("--role", default="instrument", metavar="NAME", help="role name of the proposed table")
+    p.add_argument("--driver", default=None, metavar="NAME",
+                   help="driver name to put in the proposed table (e.g. dc_source); left for you to fill otherwise")
+    p.add_argument("--allow-reset", action="store_true",
+                   help="also try *RST (it returns the instrument to its reset state: outputs may switch)")
+    p.add_argument("--json", action="store_true", help="print the findings and the proposal as JSON")
+    p.add_argument("--out", metavar="FILE", default=None, help="also write the station-file fragment here")
 
     p = sub.add_parser("instruments", help="connect to every instrument of a station and identify it")
     p.add_argument("--station", required=True, metavar="FILE", help="station file (TOML)")

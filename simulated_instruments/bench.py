@@ -14,6 +14,11 @@ parallel on the same converter output, roles ``load2``, ``load3`` ...; the model
 the sum of their currents and each reads its own share, see :mod:`.shared_output`).
 The station file carries each instrument's documented accuracy
 (``[instruments.<role>.accuracy]``).
+
+``protocol`` serves the instruments over raw sockets (``"socket"``, the default) or
+HiSLIP (``"hislip"``, :mod:`.scpi.hislip`, resource ``TCPIP::127.0.0.1::hislip0,<port>::INSTR``),
+for every role or per role (``{"scope": "hislip"}``); ``quirks`` makes chosen instruments
+depart from textbook SCPI (``{"source": ["crlf", "opc_plus_one"]}``, see :mod:`.scpi.quirks`).
 """
 
 from __future__ import annotations
@@ -21,6 +26,7 @@ from __future__ import annotations
 import logging
 from dataclasses import dataclass
 from pathlib import Path
+from collections.abc import Iterable, Mapping
 from typing import Any
 
 from .converter import DESIGNS, ConverterModel, ScaledClock
@@ -30,6 +36,11 @@ from .instruments.accuracy import accuracy_toml
 from .instruments.aperture import DEFAULT_APERTURE_S
 from .instruments.oscilloscope import SimulatedOscilloscope
 from .scpi import ScpiServer
+from .scpi.hislip import HislipServer
+from .scpi.quirks import Quirks, parse_quirks
+
+#: The protocols ``SimulatedBench(protocol=...)`` serves.
+PROTOCOLS = ("socket", "hislip")
 from .shared_output import SharedOutput
 
 logger = logging.getLogger(__name__)
@@ -81,7 +92,8 @@ class SimulatedBench:
 
     def __init__(self, model_name: str = "flyback-48v-5v", *, time_scale: float = 1.0, seed: int = 1,
                  base_port: int = 0, thermal_drift: bool = False, reading_time_s: float | None = None,
-                 extra_loads: int = 0) -> None:
+                 extra_loads: int = 0, protocol: str | Mapping[str, str] = "socket",
+                 quirks: Mapping[str, Iterable[str] | Quirks] | None = None) -> None:
         if model_name not in DESIGNS:
             raise ValueError(f"unknown converter model {model_name!r}; models: {', '.join(sorted(DESIGNS))}")
         aperture_s = DEFAULT_APERTURE_S if reading_time_s is None else float(reading_time_s)
@@ -111,11 +123,33 @@ class SimulatedBench:
             assert shared is not None
             self.instruments[f"load{k}"] = SimulatedElectronicLoad(
                 shared.port(f"load{k}"), serial=f"L{seed:04d}-{k}", seed=seed * 10 + k, aperture_s=aperture_s)
+        self.protocols = self._protocols(protocol)
+        for role, wanted in (quirks or {}).items():
+            if role not in self.instruments:
+                raise ValueError(f"quirks for role {role!r}: the simulated bench has the roles "
+                                 f"{', '.join(self.instruments)}")
+            self.instruments[role].quirks = wanted if isinstance(wanted, Quirks) else parse_quirks(wanted)
+        server_class = {"socket": ScpiServer, "hislip": HislipServer}
         self.servers = {
-            role: ScpiServer(inst, port=(base_port + k if base_port else 0))
+            role: server_class[self.protocols[role]](inst, port=(base_port + k if base_port else 0))
             for k, (role, inst) in enumerate(self.instruments.items())
         }
         self.limits = limits_for(self.design)
+
+    def _protocols(self, protocol: str | Mapping[str, str]) -> dict[str, str]:
+        """The protocol of every role: one for all, or per role (the others on raw sockets)."""
+        if isinstance(protocol, str):
+            chosen = {role: protocol for role in self.instruments}
+        else:
+            unknown = sorted(set(protocol) - set(self.instruments))
+            if unknown:
+                raise ValueError(f"protocol for role(s) {', '.join(unknown)}: the simulated bench has the roles "
+                                 f"{', '.join(self.instruments)}")
+            chosen = {role: protocol.get(role, "socket") for role in self.instruments}
+        for role, name in chosen.items():
+            if name not in PROTOCOLS:
+                raise ValueError(f"protocol {name!r} for {role}: choose one of {', '.join(PROTOCOLS)}")
+        return chosen
 
     def start(self) -> "SimulatedBench":
         try:

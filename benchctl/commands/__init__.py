@@ -34,6 +34,7 @@ _MODULES = {
     "stats": "benchctl.commands.stats",
     "revision": "benchctl.commands.revision",
     "serve": "benchctl.commands.serve",
+    "probe": "benchctl.commands.probe",
 }
 
 

@@ -51,8 +51,34 @@ def cmd_sim(args: argparse.Namespace) -> int:
     except FaultSpecError as exc:
         error_console().print(f"[bold red]error:[/] --fault: {escape(str(exc))}", soft_wrap=True)
         return EXIT_BAD_INPUT
+    from benchctl.simulated_instruments.bench import ROLE_DRIVERS
+    from benchctl.simulated_instruments.scpi.quirks import QuirkError, parse_quirk_spec
+
+    quirks: dict = {}
+    try:
+        for text in getattr(args, "quirk", []):
+            role, found = parse_quirk_spec(text)
+            if role not in ROLE_DRIVERS:
+                raise QuirkError(f"--quirk {text!r}: no role {role!r}; roles: {', '.join(ROLE_DRIVERS)}")
+            quirks[role] = found
+    except QuirkError as exc:
+        error_console().print(f"[bold red]error:[/] {escape(str(exc))}", soft_wrap=True)
+        return EXIT_BAD_INPUT
+    hislip = getattr(args, "hislip", None)
+    protocol: str | dict[str, str] = "socket"
+    if hislip == "all":
+        protocol = "hislip"
+    elif hislip:
+        roles = [r.strip() for r in hislip.split(",") if r.strip()]
+        unknown = [r for r in roles if r not in ROLE_DRIVERS]
+        if unknown or not roles:
+            error_console().print(f"[bold red]error:[/] --hislip {hislip!r}: no role {', '.join(unknown) or '(none)'}; "
+                                  f"roles: {', '.join(ROLE_DRIVERS)}", soft_wrap=True)
+            return EXIT_BAD_INPUT
+        protocol = {r: "hislip" for r in roles}
     bench = SimulatedBench(args.model, time_scale=args.time_scale, seed=args.seed, base_port=args.base_port,
-                           thermal_drift=getattr(args, "thermal_drift", False), reading_time_s=reading_time)
+                           thermal_drift=getattr(args, "thermal_drift", False), reading_time_s=reading_time,
+                           protocol=protocol, quirks=quirks)
     bench.start()
     if specs:
         apply_fault_specs(bench, specs)
@@ -76,6 +102,8 @@ def cmd_sim(args: argparse.Namespace) -> int:
             print_caution("This simulated converter's input range goes above 60 V DC, as the real one would.")
         for spec in args.fault:
             out.print(f"fault armed: {escape(spec)}")
+        for role, found in quirks.items():
+            out.print(f"quirks of {role}: {escape(', '.join(found.names()))} (try: benchctl probe {bench.resources[role]})")
         out.print("serving until Ctrl-C ...")
         threading.Event().wait()
     except KeyboardInterrupt:

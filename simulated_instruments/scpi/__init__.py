@@ -9,8 +9,10 @@ from __future__ import annotations
 
 from .audit import AuditEntry, AuditLog
 from .errors import STANDARD_ERRORS, ErrorEntry, ScpiError, ScpiExecutionError
+from .hislip import HislipServer
 from .instrument import Identity, ScpiInstrument
 from .params import Block, Boolean, Choice, Numeric, Text
+from .quirks import QUIRK_NAMES, QuirkError, Quirks, parse_quirk_spec, parse_quirks
 from .responses import format_response
 from .server import GARBLED_RESPONSE, FaultKind, ScpiServer
 
@@ -23,8 +25,12 @@ __all__ = [
     "ErrorEntry",
     "FaultKind",
     "GARBLED_RESPONSE",
+    "HislipServer",
     "Identity",
     "Numeric",
+    "QUIRK_NAMES",
+    "QuirkError",
+    "Quirks",
     "STANDARD_ERRORS",
     "ScpiError",
     "ScpiExecutionError",
@@ -32,4 +38,6 @@ __all__ = [
     "ScpiServer",
     "Text",
     "format_response",
+    "parse_quirk_spec",
+    "parse_quirks",
 ]

@@ -63,6 +63,12 @@ class MessageFramer:
             break
         return out
 
+    def reset(self) -> None:
+        """Forget every byte buffered (a device clear empties the input buffer)."""
+        self._buf.clear()
+        self._scan = 0
+        self._discarding = False
+
     def has_partial(self) -> bool:
         """Whether part of a further message (not only white space) is buffered."""
         return not self._discarding and bool(self._buf.strip())

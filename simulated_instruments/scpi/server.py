@@ -11,6 +11,14 @@ socket): when a message's response is ready and the same connection has already
 sent (part of) a further program message, the response is discarded and -410 is
 queued. A client that reads each response before it writes again never meets it.
 
+Recovery: a raw socket has no device clear, so a new connection is one (see
+:meth:`ScpiInstrument.device_clear`): a ``*OPC?`` wait left by a client that timed out
+ends at once and the new connection's ``*IDN?`` is answered. The waiting connection's
+unread input is discarded with it. A wait also ends when its own connection sends a
+further message (queued -410) or closes.
+
+Quirks (:mod:`.quirks`): the response terminator and an answer delay are applied here.
+
 Fault hooks (:meth:`ScpiServer.set_fault`): ``"unresponsive"`` processes and
 answers nothing (received bytes wait and are processed once cleared); ``"drop"``
 closes every connection and resets new ones until cleared; ``"garble"`` replaces
@@ -28,7 +36,7 @@ from collections import deque
 from typing import Literal, get_args
 
 from .framing import MessageFramer, Overrun
-from .instrument import ScpiInstrument
+from .instrument import ABORT_CLOSED, ABORT_DEVICE_CLEAR, ABORT_NEW_INPUT, ScpiInstrument
 
 logger = logging.getLogger(__name__)
 
@@ -222,6 +230,7 @@ class ScpiServer:
         framer = MessageFramer(self.max_message_bytes)
         pending: deque[bytes | Overrun] = deque()
         try:
+            self.instrument.device_clear(source=f"new connection {conn.peer}")
             while not (self._stopping.is_set() or conn.dropped):
                 with self._lock:
                     if self._fault == "unresponsive":
@@ -255,7 +264,14 @@ class ScpiServer:
                 -363, detail=f"a message of more than {self.max_message_bytes} bytes was discarded; "
                              f"send at most {self.max_message_bytes} bytes per message")
             return
-        response = self.instrument.process_message(item, source=conn.peer)
+        with self.instrument.interrupt_check(lambda: self._client_moved_on(conn)):
+            response = self.instrument.process_message(item, source=conn.peer)
+            aborted = self.instrument.last_abort()
+        if aborted == ABORT_DEVICE_CLEAR:
+            # a device clear (another connection arrived) ended this wait: drop what this client queued
+            pending.clear()
+            framer.reset()
+            return
         if response is None:
             return
         if self._more_input(conn, framer, pending):
@@ -270,8 +286,23 @@ class ScpiServer:
         if garble:
             logger.info("port %s: garbling response %r", self._port, response[:60])
             response = GARBLED_RESPONSE
+        quirks = self.instrument.quirks
+        if quirks.answer_delay_s:
+            self._stopping.wait(quirks.answer_delay_s)
         logger.debug("port %s: -> %s %r", self._port, conn.peer, response[:200])
-        conn.sock.sendall(response + b"\n")
+        conn.sock.sendall(response + quirks.response_terminator)
+
+    def _client_moved_on(self, conn: _Connection) -> str | None:
+        """Whether the client sent more or closed while its message runs (peeked, nothing consumed)."""
+        if conn.dropped or self._stopping.is_set():
+            return ABORT_CLOSED
+        try:
+            data = conn.sock.recv(1, socket.MSG_PEEK | socket.MSG_DONTWAIT)
+        except (BlockingIOError, InterruptedError):
+            return None
+        except OSError:
+            return ABORT_CLOSED
+        return ABORT_NEW_INPUT if data else ABORT_CLOSED
 
     @staticmethod
     def _more_input(conn: _Connection, framer: MessageFramer, pending: deque[bytes | Overrun]) -> bool:
