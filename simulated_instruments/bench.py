@@ -107,6 +107,9 @@ class SimulatedBench:
             "analyzer": SimulatedLoopAnalyzer(self.model, serial=f"A{seed:04d}", seed=seed),
             "scope": SimulatedOscilloscope(self.model, serial=f"O{seed:04d}", seed=seed),
         }
+        # The analyzer's source drives the (first) load's modulation input, its ch1 the load's
+        # current monitor: the output-impedance set-up (RATio function).
+        self.instruments["analyzer"].connect_modulated_load(self.instruments["load"])
         for k in range(2, extra_loads + 2):
             assert shared is not None
             self.instruments[f"load{k}"] = SimulatedElectronicLoad(
