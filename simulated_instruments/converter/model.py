@@ -351,7 +351,8 @@ class ConverterModel:
             t = self.clock.now_s()
             return solve_dut(self._design_at(self._temperature(t)), float(vin_v),
                              LoadSetting(load_mode, float(load_setting), True),
-                             was_running=was_running, faults=self.faults, extra_loss_w=self._extra_loss_w(t))
+                             was_running=was_running, faults=self.faults, extra_loss_w=self._extra_loss_w(t),
+                             aux_stage_a=self._aux_stage_a)
 
     def temperature_c(self) -> float:
         """Temperature of the hot parts now, °C (the ambient while thermal drift is off)."""
