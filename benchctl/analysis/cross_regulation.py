@@ -57,7 +57,9 @@ def _changes(own: np.ndarray, other: np.ndarray, v: np.ndarray, *, vary_other: b
     held_levels = np.unique(own if vary_other else other)
     moved = other if vary_other else own
     lo, hi = float(moved.min()), float(moved.max())
-    out = []
+    out: list[tuple[float, float]] = []
+    if lo == hi:            # the moved load has one level: there is no change to take
+        return out
     for held in held_levels:
         if vary_other:
             v_lo, v_hi = _mean_at(own, other, v, held, lo), _mean_at(own, other, v, held, hi)
