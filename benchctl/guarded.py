@@ -147,6 +147,28 @@ class GuardedLoad(Guarded):
         self._before()
         self._driver.set_trigger_out(on)
 
+    # modulation input and current monitor (small-signal stimulus: the DC setpoint is what
+    # the limits above check; a procedure keeps level ± swing inside them)
+    def set_modulation(self, on: bool) -> None:
+        self._before()
+        self._driver.set_modulation(on)
+
+    def set_modulation_gain(self, gain_a_per_v: float) -> None:
+        self._before()
+        self._driver.set_modulation_gain(gain_a_per_v)
+
+    def modulation_bandwidth_hz(self) -> float:
+        self._before()
+        return self._driver.modulation_bandwidth_hz()
+
+    def monitor_scale_v_per_a(self) -> float:
+        self._before()
+        return self._driver.monitor_scale_v_per_a()
+
+    def monitor_bandwidth_hz(self) -> float:
+        self._before()
+        return self._driver.monitor_bandwidth_hz()
+
     def set_resistance(self, resistance_ohm: float) -> None:
         lim = self._interlock.limits
         if not resistance_ohm > 0:
@@ -288,6 +310,14 @@ class GuardedAnalyzer(Guarded):
     def set_polarity(self, inverted: bool) -> None:
         self._before()
         self._driver.set_polarity(inverted)
+
+    def set_function(self, function: str) -> None:
+        self._before()
+        self._driver.set_function(function)
+
+    def set_channel_scale(self, channel: int, factor: float) -> None:
+        self._before()
+        self._driver.set_channel_scale(channel, factor)
 
     def set_data_format(self, data_format: str = "real64", byte_order: str = "big") -> None:
         self._before()

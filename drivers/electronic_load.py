@@ -8,6 +8,10 @@ Dynamic mode (commands of our own under SCPI-1999 names): two current levels A a
 one slew rate for both edges, either a continuous square wave at a repetition rate or
 single steps, one per trigger (TRIGger[:IMMediate]), with a trigger output pulsed at
 each step for the scope.
+
+Modulation input and current monitor (commands of our own): CURR:MOD ON|OFF, CURR:MOD:GAIN
+<A/V> (the analog input's transconductance), CURR:MOD:BAND? (its bandwidth, Hz),
+CURR:MON:SCAL? (the monitor output, V/A) and CURR:MON:BAND? (its bandwidth, Hz).
 """
 
 from __future__ import annotations
@@ -54,6 +58,13 @@ class ElectronicLoad(ScpiDriver):
         "get_transient_level": "CURR:TRAN:LEV?",
         "trigger_step": "TRIG",
         "set_trigger_out": "OUTP:TRIG {state}",
+        "set_modulation": "CURR:MOD {state}",
+        "get_modulation": "CURR:MOD?",
+        "set_modulation_gain": "CURR:MOD:GAIN {value:.6g}",
+        "get_modulation_gain": "CURR:MOD:GAIN?",
+        "modulation_bandwidth": "CURR:MOD:BAND?",
+        "monitor_scale": "CURR:MON:SCAL?",
+        "monitor_bandwidth": "CURR:MON:BAND?",
     }
 
     def set_mode(self, mode: LoadMode) -> None:
@@ -143,3 +154,33 @@ class ElectronicLoad(ScpiDriver):
 
     def set_trigger_out(self, on: bool) -> None:
         self.write("set_trigger_out", state=self.on_off(on))
+
+    # -- modulation input and current monitor -------------------------------------------
+
+    def set_modulation(self, on: bool) -> None:
+        """Analog current modulation input on (adds g·v to the CC level) or off."""
+        self.write("set_modulation", state=self.on_off(on))
+
+    def modulation_enabled(self) -> bool:
+        return self.query_bool("get_modulation")
+
+    def set_modulation_gain(self, gain_a_per_v: float) -> None:
+        """Transconductance of the modulation input, A/V (> 0)."""
+        if not (math.isfinite(gain_a_per_v) and gain_a_per_v > 0):
+            raise UsageError(f"modulation gain must be a positive number of A/V, got {gain_a_per_v!r}")
+        self.write("set_modulation_gain", value=gain_a_per_v)
+
+    def modulation_gain(self) -> float:
+        return self.query_float("get_modulation_gain")
+
+    def modulation_bandwidth_hz(self) -> float:
+        """The modulator's -3 dB bandwidth, Hz."""
+        return self.query_float("modulation_bandwidth")
+
+    def monitor_scale_v_per_a(self) -> float:
+        """Current monitor output, V per A drawn."""
+        return self.query_float("monitor_scale")
+
+    def monitor_bandwidth_hz(self) -> float:
+        """The current monitor's -3 dB bandwidth, Hz."""
+        return self.query_float("monitor_bandwidth")

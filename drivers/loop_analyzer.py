@@ -8,7 +8,9 @@ every driver's)::
     SENS:BAND, SENS:AVER:COUN, SENS:LOOP:POL NORM|INV,
     SOUR:VOLT <V peak>, SOUR:VOLT:PROF ON|OFF, SOUR:VOLT:PROF:DATA "<f1>,<A1>,...",
     INIT, ABOR, STAT:OPER:COND? (bit 4 measuring), FORM REAL,64|ASC, FORM:BORD NORM|SWAP,
-    TRAC? FREQ|RESP (re, im interleaved), TRAC:POIN?
+    TRAC? FREQ|RESP (re, im interleaved), TRAC:POIN?,
+    SENS:FUNC LOOP|RAT (loop injection, or the ratio ch2/ch1 of an external stimulus),
+    INP<n>:SCAL <unit/V> (channel n's probe or monitor factor)
 
 Waiting: ``*OPC?`` (IEEE 488.2-1992 §10.18) or polling the operation condition register,
 with a timeout of ``sweep_timeout_factor`` × the instrument's own sweep-time estimate
@@ -132,12 +134,17 @@ class LoopAnalyzer(ScpiDriver):
         "trace_points": "TRAC:POIN?",
         "fetch_frequency": "TRAC? FREQ",
         "fetch_response": "TRAC? RESP",
+        "set_function": "SENS:FUNC {function}",
+        "get_function": "SENS:FUNC?",
+        "set_channel_scale": "INP{channel:d}:SCAL {value:.9g}",
+        "get_channel_scale": "INP{channel:d}:SCAL?",
     }
     #: Words the command table sends for the settings (override with the templates).
     SPACING_WORDS: ClassVar[dict[str, str]] = {"log": "LOG", "linear": "LIN"}
     FORMAT_WORDS: ClassVar[dict[str, str]] = {"real64": "REAL,64", "ascii": "ASC"}
     BYTE_ORDER_WORDS: ClassVar[dict[str, str]] = {"big": "NORM", "little": "SWAP"}
     POLARITY_WORDS: ClassVar[dict[bool, str]] = {False: "NORM", True: "INV"}
+    FUNCTION_WORDS: ClassVar[dict[str, str]] = {"loop": "LOOP", "ratio": "RAT"}
 
     #: Injectable time for the polling wait (deterministic tests).
     clock: Callable[[], float] = staticmethod(time.monotonic)
@@ -196,6 +203,26 @@ class LoopAnalyzer(ScpiDriver):
         """Injection amplitude varying with frequency (see :class:`InjectionProfile`)."""
         self.write("set_profile_data", points=profile.scpi_text())
         self.write("set_profile_state", state="ON")
+
+    def set_function(self, function: Literal["loop", "ratio"]) -> None:
+        """``loop``: inject into the feedback loop and report T; ``ratio``: drive an external
+        stimulus (a load's modulation input) and report ch2/ch1 with the channel scales."""
+        if function not in self.FUNCTION_WORDS:
+            raise UsageError(f"analyzer function {function!r} must be 'loop' or 'ratio'")
+        self.write("set_function", function=self.FUNCTION_WORDS[function])
+
+    def set_channel_scale(self, channel: int, factor: float) -> None:
+        """Factor of input ``channel`` (1 or 2), units per volt at the input (e.g. A/V of a monitor)."""
+        if int(channel) not in (1, 2):
+            raise UsageError(f"the analyzer has inputs 1 and 2, not {channel!r}")
+        if not (math.isfinite(factor) and factor != 0):
+            raise UsageError(f"channel scale must be a finite non-zero factor, got {factor!r}")
+        self.write("set_channel_scale", channel=int(channel), value=float(factor))
+
+    def channel_scale(self, channel: int) -> float:
+        if int(channel) not in (1, 2):
+            raise UsageError(f"the analyzer has inputs 1 and 2, not {channel!r}")
+        return self.query_float("get_channel_scale", channel=int(channel))
 
     def set_data_format(self, data_format: DataFormat = "real64", byte_order: Literal["big", "little"] = "big") -> None:
         """How traces travel: ``real64`` (binary block) or ``ascii``; byte order of the block."""

@@ -12,6 +12,9 @@ default), ``reading_time_s`` (the aperture of every meter, source and load readi
 s; default one 50 Hz line cycle, 20 ms), ``extra_loads`` (further electronic loads in
 parallel on the same converter output, roles ``load2``, ``load3`` ...; the model draws
 the sum of their currents and each reads its own share, see :mod:`.shared_output`).
+A design with a second output (``SECOND_OUTPUTS``, e.g. ``flyback-48v-5v-3v3``) gets an
+electronic load ``load2`` and a power meter ``output2_meter`` on that output
+(:mod:`.converter.second_output`).
 The station file carries each instrument's documented accuracy
 (``[instruments.<role>.accuracy]``).
 
@@ -30,6 +33,8 @@ from collections.abc import Iterable, Mapping
 from typing import Any
 
 from .converter import DESIGNS, ConverterModel, ScaledClock
+from .converter.designs import SECOND_OUTPUTS
+from .converter.second_output import SecondOutput
 from .instruments import SimulatedDcSource, SimulatedElectronicLoad, SimulatedPowerMeter
 from .instruments.loop_analyzer import SimulatedLoopAnalyzer
 from .instruments.accuracy import accuracy_toml
@@ -51,6 +56,7 @@ ROLE_DRIVERS = {
     "load": "electronic_load",
     "input_meter": "power_meter",
     "output_meter": "power_meter",
+    "output2_meter": "power_meter",
     "analyzer": "loop_analyzer",
     "scope": "oscilloscope",
 }
@@ -119,6 +125,19 @@ class SimulatedBench:
             "analyzer": SimulatedLoopAnalyzer(self.model, serial=f"A{seed:04d}", seed=seed),
             "scope": SimulatedOscilloscope(self.model, serial=f"O{seed:04d}", seed=seed),
         }
+        # The analyzer's source drives the (first) load's modulation input, its ch1 the load's
+        # current monitor: the output-impedance set-up (RATio function).
+        self.instruments["analyzer"].connect_modulated_load(self.instruments["load"])
+        winding = SECOND_OUTPUTS.get(model_name)
+        self.second_output = SecondOutput(self.model, winding) if winding is not None else None
+        if self.second_output is not None:
+            if extra_loads:
+                raise ValueError(f"{model_name} has a second output with its own load2; give extra_loads=0")
+            port = self.second_output.port()
+            self.instruments["load2"] = SimulatedElectronicLoad(port, serial=f"L{seed:04d}-2", seed=seed * 10 + 2,
+                                                                aperture_s=aperture_s)
+            self.instruments["output2_meter"] = SimulatedPowerMeter(port, "output", serial=f"MO{seed:04d}-2",
+                                                                    seed=seed * 10 + 3, aperture_s=aperture_s)
         for k in range(2, extra_loads + 2):
             assert shared is not None
             self.instruments[f"load{k}"] = SimulatedElectronicLoad(

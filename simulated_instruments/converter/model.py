@@ -171,6 +171,7 @@ class ConverterModel:
         self._faults: dict[str, float] = {}
         self._running = False
         self._extra_output_c_f = 0.0
+        self._aux_stage_a = 0.0
         t = self.clock.now_s()
         self._thermal = ThermalState(design.thermal, t, enabled=thermal_drift)
         self._cache: tuple[float, float, BenchPoint] | None = None
@@ -350,7 +351,8 @@ class ConverterModel:
             t = self.clock.now_s()
             return solve_dut(self._design_at(self._temperature(t)), float(vin_v),
                              LoadSetting(load_mode, float(load_setting), True),
-                             was_running=was_running, faults=self.faults, extra_loss_w=self._extra_loss_w(t))
+                             was_running=was_running, faults=self.faults, extra_loss_w=self._extra_loss_w(t),
+                             aux_stage_a=self._aux_stage_a)
 
     def temperature_c(self) -> float:
         """Temperature of the hot parts now, °C (the ambient while thermal drift is off)."""
@@ -465,6 +467,33 @@ class ConverterModel:
         """Complex closed-loop output impedance at ``freq_hz`` (Hz), Ω."""
         return self.output_impedance_transfer().response(freq_hz)
 
+    def terminal_output_impedance(self, freq_hz: ArrayLike) -> NDArray[np.complex128]:
+        """Closed-loop output impedance seen at the output terminals, Ω: :meth:`output_impedance`
+        (at the regulation sense point) plus the copper from there to the terminals."""
+        return self.output_impedance(freq_hz) + self.design.bench.sense_to_terminal_r_ohm
+
+    # ---- a second (auxiliary) output ----------------------------------------------------
+    def set_auxiliary_stage_current(self, current_a: float) -> None:
+        """Current a further winding draws, referred to the main winding by its turns (A, >= 0).
+
+        The power stage delivers it beside the main output's (duty, losses, input power and
+        the small-signal load all see it); it is not part of the main terminals' current.
+        Set by :class:`~.second_output.SecondOutput`; 0 (the default) for a one-output DUT.
+        """
+        if not (math.isfinite(current_a) and current_a >= 0.0):
+            raise SettingError(f"set_auxiliary_stage_current: current_a={current_a!r} must be a finite value >= 0 A")
+        with self._lock:
+            if float(current_a) == self._aux_stage_a:
+                return
+            self._aux_stage_a = float(current_a)
+            self._event("load", f"auxiliary winding {current_a:g} A (main-referred)")
+
+    @property
+    def auxiliary_stage_current_a(self) -> float:
+        """The auxiliary winding's main-referred current now in force, A."""
+        with self._lock:
+            return self._aux_stage_a
+
     # ---- internals: steady states -------------------------------------------------------
     def _loop_transfer(self, op: OperatingPoint) -> RationalTF:
         if op.state != "regulating":
@@ -546,7 +575,7 @@ class ConverterModel:
                     temp_c: float, was_running: bool) -> BenchPoint:
         extra = self._extra_loss_w(t_s) if "overheat" in faults else 0.0
         return solve_bench(self._design_at(temp_c), source, load, was_running=was_running, faults=faults,
-                           extra_loss_w=extra)
+                           extra_loss_w=extra, aux_stage_a=self._aux_stage_a)
 
     def _solve(self, t_s: float, was_running: bool) -> BenchPoint:
         return self._solve_with(self._source, self._load, tuple(sorted(self._faults)), t_s,

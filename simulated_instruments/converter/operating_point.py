@@ -119,8 +119,13 @@ def _unpowered(design: ConverterDesign, vin_v: float, state: State, reason: str,
 
 
 def solve_dut(design: ConverterDesign, vin_v: float, load: LoadSetting, *, was_running: bool = False,
-              faults: tuple[str, ...] = (), extra_loss_w: float = 0.0) -> OperatingPoint:
-    """Steady state of the DUT fed with ``vin_v`` at its input terminals (no cable, no source limit)."""
+              faults: tuple[str, ...] = (), extra_loss_w: float = 0.0, aux_stage_a: float = 0.0) -> OperatingPoint:
+    """Steady state of the DUT fed with ``vin_v`` at its input terminals (no cable, no source limit).
+
+    ``aux_stage_a``: current of a further output winding referred to the main one (A); the
+    stage delivers it at the sense voltage beside the main output, and the input power
+    includes it (its rectifier drop stands in as the main rectifier's, a first-order split).
+    """
     unknown = [f for f in faults if f not in FAULT_NAMES]
     if unknown:
         raise SettingError(f"unknown fault(s) {unknown}; known faults: {', '.join(FAULT_NAMES)}")
@@ -137,6 +142,8 @@ def solve_dut(design: ConverterDesign, vin_v: float, load: LoadSetting, *, was_r
     h_eff = 0.0 if "feedback_open" in faults else c.divider_h
     short = "output_short" in faults
     line = load_line(design, load, short)
+    if aux_stage_a:
+        line = LoadLine(line.i0_a + aux_stage_a, line.g_s)
     dmax = design.stage.max_duty
 
     def loop_error(d: float) -> float:
@@ -150,7 +157,7 @@ def solve_dut(design: ConverterDesign, vin_v: float, load: LoadSetting, *, was_r
         state = "regulating"
     r_st = design.bench.sense_to_terminal_r_ohm
     g_div = 1.0 / design.losses.sense_divider_ohm
-    iout = sp.i_a - sp.v_v * g_div
+    iout = sp.i_a - sp.v_v * g_div - aux_stage_a
     reason = ""
     ilim = pr.current_limit_a
     if iout > ilim:
@@ -173,7 +180,7 @@ def solve_dut(design: ConverterDesign, vin_v: float, load: LoadSetting, *, was_r
     fault_w = extra_loss_w if "overheat" in faults else 0.0
     lb = switching_losses(design, sp, iout, fault_w)
     pout = v_term * load_a
-    pin = pout + lb.total_w
+    pin = pout + lb.total_w + (sp.v_v * aux_stage_a if aux_stage_a else 0.0)
     r_eff = sp.v_v / sp.i_a if sp.i_a > 0.0 else math.inf
     k = design.k_value(r_eff) if sp.v_v > 0.0 else 0.0
     t0: float | None = None
@@ -198,7 +205,7 @@ class BenchPoint:
 
 
 def solve_bench(design: ConverterDesign, source: SourceSetting, load: LoadSetting, *, was_running: bool,
-                faults: tuple[str, ...] = (), extra_loss_w: float = 0.0) -> BenchPoint:
+                faults: tuple[str, ...] = (), extra_loss_w: float = 0.0, aux_stage_a: float = 0.0) -> BenchPoint:
     """Steady state with the source behind the cable resistance; handles source current limit."""
     rc = design.bench.cable_r_ohm
     if not source.enabled or source.voltage_v <= 0.0:
@@ -224,7 +231,8 @@ def solve_bench(design: ConverterDesign, source: SourceSetting, load: LoadSettin
         return idle_point(was_running)
     vin = vs
     collapse_reason = ""
-    op = solve_dut(design, vin, load, was_running=True, faults=faults, extra_loss_w=extra_loss_w)
+    op = solve_dut(design, vin, load, was_running=True, faults=faults, extra_loss_w=extra_loss_w,
+                   aux_stage_a=aux_stage_a)
     for _ in range(60):
         if op.state in ("off", "uvlo"):
             collapse_reason = f"input fell to {vin:.3f} V across the {rc:g} ohm cable"
@@ -239,7 +247,8 @@ def solve_bench(design: ConverterDesign, source: SourceSetting, load: LoadSettin
         new_vin = 0.5 * (vs + math.sqrt(disc))
         converged = abs(new_vin - vin) <= 1e-13 * vs
         vin = new_vin
-        op = solve_dut(design, vin, load, was_running=True, faults=faults, extra_loss_w=extra_loss_w)
+        op = solve_dut(design, vin, load, was_running=True, faults=faults, extra_loss_w=extra_loss_w,
+                       aux_stage_a=aux_stage_a)
         if converged:
             break
     if not collapse_reason and op.iin_a > source.current_limit_a:

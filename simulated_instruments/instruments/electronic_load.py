@@ -30,6 +30,22 @@ Dynamic (transient) mode of the CC function, commands of our own under SCPI-1999
     TRIGger[:IMMediate]                            SINGle: step to the other level once
     OUTPut:TRIGger[:STATe] ON|OFF                  pulse the trigger output at each step
 
+Current modulation input and current monitor (commands of our own under SCPI-1999 names)::
+
+    [SOURce:]CURRent:MODulation[:STATe] ON|OFF     the analog modulation input adds to the CC level
+    [SOURce:]CURRent:MODulation:GAIN <A/V>         its transconductance, 0.01 ... 10 A/V (default 1)
+    [SOURce:]CURRent:MODulation:BANDwidth?         the modulator's own -3 dB bandwidth, Hz (read only)
+    CURRent:MONitor:SCALe?                         the current monitor output, V/A (read only)
+    CURRent:MONitor:BANDwidth?                     its -3 dB bandwidth, Hz (read only)
+
+A voltage v at the modulation input (the loop analyzer's source, wired to it) makes the
+load draw an extra current g·v/(1 + jf/f_mod) around its CC level (a single-pole
+transconductance stage, ``MODULATION_BANDWIDTH_HZ``); the current monitor gives
+r_mon·i/(1 + jf/f_mon) of the current actually drawn (``MONITOR_SCALE_V_PER_A``,
+``MONITOR_BANDWIDTH_HZ``).  With the input off, in CR mode or with the modulation off
+the input draws nothing from the modulation.  The small-signal current is zero-mean: the
+DC operating point (and every DC reading) is unchanged by it.
+
 Each step is published, with the model's steady states before and after it, to the
 load activity the simulated scope reads (``simulated_instruments.waveforms.activity_for``),
 so the scope sees the very step the load makes; the trigger output is the scope's
@@ -40,6 +56,9 @@ from __future__ import annotations
 
 import time
 from collections.abc import Callable
+
+import numpy as np
+from numpy.typing import ArrayLike, NDArray
 
 from ..scpi import Boolean, Choice, Identity, Numeric, ScpiInstrument
 from ..scpi.errors import ScpiExecutionError
@@ -57,6 +76,10 @@ class SimulatedElectronicLoad(ScpiInstrument):
     SLEW_RANGE_A_PER_S = (1e2, 2.5e9)
     TRANSIENT_FREQ_RANGE_HZ = (0.1, 50e3)
     STATIC_SLEW_A_PER_S = 1e3
+    MODULATION_GAIN_RANGE_A_PER_V = (0.01, 10.0)
+    MODULATION_BANDWIDTH_HZ = 30e3
+    MONITOR_SCALE_V_PER_A = 0.1
+    MONITOR_BANDWIDTH_HZ = 1e6
     ACCURACY: dict[str, QuantityAccuracy] = {
         "voltage": ranged("V", (15.0, 0.02, 1.5e-3), (150.0, 0.02, 15e-3)),
         "current": ranged("A", (3.0, 0.04, 0.3e-3), (30.0, 0.04, 3e-3)),
@@ -115,6 +138,15 @@ class SimulatedElectronicLoad(ScpiInstrument):
         self.add_command("TRIGger[:IMMediate]", setter=self._trigger)
         self.add_command("OUTPut:TRIGger[:STATe]", setter=self._set_trigger_out, getter=lambda: self.trigger_out,
                          params=[Boolean()])
+        g_lo, g_hi = self.MODULATION_GAIN_RANGE_A_PER_V
+        self.add_command("[SOURce:]CURRent:MODulation[:STATe]", setter=self._set_modulation,
+                         getter=lambda: self.modulation_on, params=[Boolean()])
+        self.add_command("[SOURce:]CURRent:MODulation:GAIN", setter=self._set_modulation_gain,
+                         getter=lambda: self.modulation_gain_a_per_v,
+                         params=[Numeric(minimum=g_lo, maximum=g_hi, default=1.0)])
+        self.add_command("[SOURce:]CURRent:MODulation:BANDwidth", getter=lambda: self.MODULATION_BANDWIDTH_HZ)
+        self.add_command("CURRent:MONitor:SCALe", getter=lambda: self.MONITOR_SCALE_V_PER_A)
+        self.add_command("CURRent:MONitor:BANDwidth", getter=lambda: self.MONITOR_BANDWIDTH_HZ)
 
     def _reset_state(self) -> None:
         self.mode = "CURR"
@@ -132,6 +164,8 @@ class SimulatedElectronicLoad(ScpiInstrument):
         self.transient_mode = "SING"
         self.transient_freq_hz = 100.0
         self.trigger_out = True
+        self.modulation_on = False
+        self.modulation_gain_a_per_v = 1.0
         self._at_b = False
         self.activity.set_train(None)
         self._apply()
@@ -222,6 +256,29 @@ class SimulatedElectronicLoad(ScpiInstrument):
         self.activity.add_step(LoadStep(self.model.clock.now_s(), before_a, self._present_level(),
                                         self.slew_a_per_s, op_before, op_after, self.trigger_out))
         self._check_protection()
+
+    # ---- modulation input and current monitor
+    def _set_modulation(self, on: bool) -> None:
+        changed = bool(on) != self.modulation_on
+        self.modulation_on = bool(on)
+        if changed:
+            self.audit_state("modulation", self.modulation_on)
+
+    def _set_modulation_gain(self, value: float) -> None:
+        self.modulation_gain_a_per_v = float(value)
+
+    def modulation_current(self, freq_hz: ArrayLike) -> NDArray[np.complex128]:
+        """Current drawn per volt at the modulation input at ``freq_hz`` (A/V, complex): the
+        transconductance with the modulator's single pole; 0 when it draws nothing from it."""
+        f = np.asarray(freq_hz, dtype=float)
+        if not (self.modulation_on and self.input_on and self.mode == "CURR" and not self.protection_tripped):
+            return np.zeros(f.shape, dtype=np.complex128)
+        return self.modulation_gain_a_per_v / (1.0 + 1j * f / self.MODULATION_BANDWIDTH_HZ)
+
+    def monitor_response(self, freq_hz: ArrayLike) -> NDArray[np.complex128]:
+        """Current monitor output per ampere drawn at ``freq_hz`` (V/A, complex, its single pole)."""
+        f = np.asarray(freq_hz, dtype=float)
+        return self.MONITOR_SCALE_V_PER_A / (1.0 + 1j * f / self.MONITOR_BANDWIDTH_HZ)
 
     def _set_trigger_out(self, on: bool) -> None:
         self.trigger_out = bool(on)

@@ -40,6 +40,21 @@ Measurement noise
     and where it is very low (v_y small). Halving A doubles the scatter. The noise is
     seeded (``seed``), so a bench is repeatable.
 
+Ratio function: output impedance through the load's modulation input
+    ``[SENSe:]FUNCtion RATio`` (``LOOP`` is the default above) measures H = (s2·ch2)/(s1·ch1)
+    with the source driving an external stimulus instead of the loop: here the modulation
+    input of the electronic load wired to it (``connect_modulated_load``), ch1 on the load's
+    current monitor and ch2 on the output voltage at the DUT's output terminals; s1, s2
+    are the channel scales ``INPut<n>:SCALe`` (units per volt at the input, default 1;
+    1/r_mon makes ch1 read amperes).  A source amplitude A makes the load draw
+    i = A·g/(1 + jf/f_mod) (its modulator), the output answers v = −Z_t·i, Z_t the
+    closed-loop output impedance at the terminals (``model.terminal_output_impedance``),
+    and ch1 sees r_mon·i/(1 + jf/f_mon) (the monitor's own pole).  So H = −Z_t·(1 + jf/f_mon)
+    ·s2/(s1·r_mon): the modulator's bandwidth divides out (it only lowers the signal, so
+    the noise grows above f_mod), the monitor's pole does not (the procedure removes it).
+    Each channel carries the same noise as in the loop function; with no current drawn
+    (modulation off, load off) ch1 holds noise only and the ratio is meaningless.
+
 Sweep timing
     Each point integrates for t_point = averaging·max(MIN_PERIODS_PER_POINT/f, 1/RBW)
     model seconds (RBW = the measurement bandwidth). ``INITiate`` takes the response of
@@ -53,6 +68,7 @@ Command set (SCPI-1999 subsystem names; the instrument's own dialect)::
     [SENSe:]SWEep:SPACing LOGarithmic|LINear         [SENSe:]SWEep:TIME?   (model s)
     [SENSe:]BANDwidth[:RESolution] <Hz>              [SENSe:]AVERage:COUNt <n>
     [SENSe:]LOOP:POLarity NORMal|INVerted
+    [SENSe:]FUNCtion LOOP|RATio                      INPut<n>:SCALe <unit/V>   (n = 1, 2)
     SOURce:VOLTage[:LEVel][:IMMediate][:AMPLitude] <V peak>
     SOURce:VOLTage:PROFile[:STATe] ON|OFF            SOURce:VOLTage:PROFile:DATA "<f1>,<A1>,<f2>,<A2>..."
     INITiate[:IMMediate]    ABORt    STATus:OPERation:CONDition?
@@ -133,6 +149,7 @@ class SimulatedLoopAnalyzer(ScpiInstrument):
                          opc_timeout_s=opc_timeout_s)
         self.model = model
         self._rng = np.random.default_rng([seed, 5])
+        self.modulated_load = None
         self._reset_state()
         f_lo, f_hi = self.FREQ_RANGE_HZ
         a_lo, a_hi = self.INJECTION_RANGE_V
@@ -160,6 +177,10 @@ class SimulatedLoopAnalyzer(ScpiInstrument):
                          getter=lambda: self.profile_on, params=[Boolean()])
         self.add_command("SOURce:VOLTage:PROFile:DATA", setter=self._set_profile, getter=self._get_profile,
                          params=[Text()])
+        self.add_command("[SENSe:]FUNCtion", setter=self._setter("function"), getter=lambda: self.function,
+                         params=[Choice("LOOP", "RATio")])
+        self.add_command("INPut<n>:SCALe", setter=self._set_scale, getter=self._get_scale,
+                         params=[Numeric(minimum=-1e6, maximum=1e6, default=1.0)])
         self.add_command("INITiate[:IMMediate]", setter=self._initiate)
         self.add_command("ABORt", setter=self._abort)
         self.add_command("STATus:OPERation:CONDition",
@@ -188,6 +209,24 @@ class SimulatedLoopAnalyzer(ScpiInstrument):
         self.byte_order = "NORM"
         self._data: tuple[NDArray[np.float64], NDArray[np.complex128]] | None = None
         self._sweep_end_s: float | None = None
+        self.function = "LOOP"
+        self.channel_scale = {1: 1.0, 2: 1.0}
+
+    def connect_modulated_load(self, load) -> None:
+        """Wire the source to ``load``'s modulation input and ch1 to its current monitor (RATio)."""
+        self.modulated_load = load
+
+    def _set_scale(self, value: float, n: int = 1) -> None:
+        if n not in (1, 2):
+            raise ScpiExecutionError(-114, None, f"INPut{n}: the analyzer has inputs 1 and 2")
+        if value == 0.0:
+            raise ScpiExecutionError(-222, None, "a channel scale of 0 makes no measurement; give a factor != 0")
+        self.channel_scale[n] = float(value)
+
+    def _get_scale(self, n: int = 1) -> float:
+        if n not in (1, 2):
+            raise ScpiExecutionError(-114, None, f"INPut{n}: the analyzer has inputs 1 and 2")
+        return self.channel_scale[n]
 
     def on_reset(self) -> None:
         self._reset_state()
@@ -251,11 +290,30 @@ class SimulatedLoopAnalyzer(ScpiInstrument):
             n = 0.5 * n + 0.5 * saturation_describing_function(swing, headroom)
         return n * t, n
 
+    def _ratio_channels(self, f: NDArray[np.float64], amp: NDArray[np.float64]
+                        ) -> tuple[NDArray[np.complex128], NDArray[np.complex128]]:
+        """(ch1, ch2) phasors of the RATio function without noise, V at the inputs."""
+        load = self.modulated_load
+        if load is None:
+            current = np.zeros(f.shape, dtype=np.complex128)
+            monitor = np.zeros(f.shape, dtype=np.complex128)
+        else:
+            current = amp * load.modulation_current(f)
+            monitor = load.monitor_response(f)
+        try:
+            z = self.model.terminal_output_impedance(f) if np.any(current != 0) else np.zeros(f.shape)
+        except ConverterModelError as exc:
+            raise ScpiExecutionError(-200, None, f"no output impedance to measure: {exc}") from None
+        return current * monitor, -z * current
+
     def _initiate(self) -> None:
         if self.start_hz >= self.stop_hz:
             raise ScpiExecutionError(-221, None, f"start {self.start_hz:g} Hz is not below stop {self.stop_hz:g} Hz")
         f = self.frequencies_hz()
         amp = self.injection_at(f)
+        if self.function == "RAT":
+            self._initiate_ratio(f, amp)
+            return
         try:
             t_eff, _ = self.compressed_loop(f, amp)
         except ConverterModelError as exc:
@@ -277,6 +335,21 @@ class SimulatedLoopAnalyzer(ScpiInstrument):
 
     def _abort(self) -> None:
         self._data, self._sweep_end_s = None, None
+
+    def _initiate_ratio(self, f: NDArray[np.float64], amp: NDArray[np.float64]) -> None:
+        try:
+            ch1, ch2 = self._ratio_channels(f, amp)
+        except ScpiExecutionError:
+            self._data, self._sweep_end_s = None, None
+            raise
+        t_pt = self.point_times_s(f)
+        sigma = self.NOISE_DENSITY_V_PER_RTHZ / np.sqrt(t_pt)
+        noise = self._rng.standard_normal((4, f.size)) * (sigma / math.sqrt(2.0))
+        ch1 = ch1 + noise[0] + 1j * noise[1]
+        ch2 = ch2 + noise[2] + 1j * noise[3]
+        measured = (self.channel_scale[2] * ch2) / (self.channel_scale[1] * ch1)
+        self._data = (f, measured.astype(np.complex128))
+        self._sweep_end_s = self.model.clock.now_s() + float(np.sum(t_pt))
 
     def _trace(self, which: str) -> object:
         if self._data is None:
