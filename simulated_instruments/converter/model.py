@@ -541,7 +541,7 @@ class ConverterModel:
         op = self._target(self.clock.now_s()).op
         if op.state != "regulating" or not self._source.enabled:
             return 0j
-        return complex(self._gvg_transfer(op).response(frequency_hz)[0])
+        return complex(np.atleast_1d(self._gvg_transfer(op).response(frequency_hz))[0])
 
     def _line_step(self, t: float, dv_v: float, op: OperatingPoint) -> LineStep | None:
         key = (op.conduction_mode, round(op.vin_v, 3), round(op.load_a, 4))
