@@ -44,6 +44,9 @@ PARAMETERS = [
     Parameter("vout_scale_v_per_div", "V", 0.02, minimum=1e-5, maximum=100.0, help="output channel V/div (AC)"),
     *power_parameters(startup_delay_s=0.1),
     Parameter("settle_s", "s", 0.05, minimum=0.0, maximum=60.0, help="wait before each step"),
+    Parameter("start_settle_s", "s", 1.0, minimum=0.0, maximum=600.0,
+              help="wait after power-up before the first step (the start and the load's switch-on settle; "
+                   "a step during a start measures the start, not the line response)"),
     Parameter("acquire_timeout_s", "s", 10.0, minimum=0.1, maximum=600.0, help="longest wait for one capture"),
     Parameter("max_reacquisitions", "", 3, minimum=0, maximum=10, kind="int",
               help="re-captures of a step with a 2.5 times taller screen while the output clips"),
@@ -91,6 +94,7 @@ def run(bench, p: Parameters) -> None:
     scope.set_coupling(p.vin_channel, "DC")
     bench.power_up(points[0]["vin_from_v"], p.iout_a, source_current_limit_a=p.source_current_limit_a,
                    startup_delay_s=p.startup_delay_s)
+    bench.wait(p.start_settle_s)
     for point in bench.sweep(points):
         lo, hi = sorted((point["vin_from_v"], point["vin_set_v"]))
         source.set_voltage(point["vin_from_v"])
