@@ -9,6 +9,7 @@ reachable from a procedure, so nothing can bypass the limits by accident.
 
 from __future__ import annotations
 
+import weakref
 from typing import Any
 
 from benchctl.interlock import Interlock, WatchSource
@@ -71,7 +72,10 @@ class GuardedSource(Guarded):
 
     def set_voltage(self, voltage_v: float) -> None:
         self._interlock.refuse_above("source_voltage_max_v", voltage_v, self.role, "voltage setpoint (V)")
+        line = _line(self._interlock)  # with a generator on the line: source ± its excursion stays in limits
+        _refuse_line(self._interlock, float(voltage_v), line["excursion_v"], self.role, f"voltage setpoint {voltage_v:g} V")
         self._driver.set_voltage(voltage_v)
+        line["source_v"] = float(voltage_v)
 
     def set_current_limit(self, current_a: float) -> None:
         self._interlock.refuse_above("source_current_max_a", current_a, self.role, "current limit (A)")
@@ -81,9 +85,11 @@ class GuardedSource(Guarded):
         self._before()
         if on:
             self._interlock.output_switched(self.role, True)
+            _line(self._interlock)["source_on"] = 1.0
             self._driver.set_output(True)
         else:
             self._driver.set_output(False)
+            _line(self._interlock)["source_on"] = 0.0
             self._interlock.output_switched(self.role, False)
 
     def output_enabled(self) -> bool:
@@ -367,12 +373,137 @@ class GuardedScope(Guarded):
         return call
 
 
+# ---- line injection and DUT switching (function generator, switch matrix) ----------------
+#: What each interlock knows of the DUT input line: the source's voltage setpoint and the
+#: generator's largest excursion at the DUT input (V). Keyed on the interlock (one per run).
+_LINE: "weakref.WeakKeyDictionary[Interlock, dict[str, float]]" = weakref.WeakKeyDictionary()
+
+
+def _line(interlock: Interlock) -> dict[str, float]:
+    return _LINE.setdefault(interlock, {"source_v": 0.0, "excursion_v": 0.0})
+
+
+def _refuse_line(interlock: Interlock, source_v: float, excursion_v: float, role: str, what: str) -> None:
+    """Refuse a setting that would take the DUT input (source ± generator excursion) above
+    ``source_voltage_max_v`` or below 0 V; nothing is sent."""
+    from benchctl.errors import SetpointRefused
+
+    interlock.raise_if_tripped()
+    maximum = float(interlock.limits.source_voltage_max_v)
+    peak, valley = source_v + excursion_v, source_v - excursion_v
+    if not (peak == peak) or peak > maximum or (excursion_v > 0.0 and valley < 0.0):
+        raise SetpointRefused(
+            f"{role}: {what} would put the DUT input at {valley:g} ... {peak:g} V (source {source_v:g} V, "
+            f"generator excursion ±{excursion_v:g} V at the DUT), outside 0 ... {maximum:g} V "
+            "(limits.source_voltage_max_v); nothing was sent. Lower the amplitude or the line voltage",
+            limit="source_voltage_max_v", value=float(peak), instrument=role)
+
+
+class GuardedGenerator(Guarded):
+    """Function generator behind the interlock: its excursion at the DUT input is checked.
+
+    The DUT input sees the source's voltage plus the generator's output times the station's
+    coupling (``options.coupling_v_per_v``; the offset too where ``options.passes_dc`` = 1).
+    Amplitude, offset and output are refused when source ± excursion would leave 0 V ...
+    ``limits.source_voltage_max_v``, and a source setpoint is refused on the same rule while
+    the generator is on (:class:`GuardedSource` asks :func:`_refuse_line`).
+    """
+
+    def __init__(self, driver: Any, interlock: Interlock) -> None:
+        super().__init__(driver, interlock)
+        self._amplitude_vpp = 0.0
+        self._offset_v = 0.0
+        self._on = False
+
+    def _excursion_v(self, amplitude_vpp: float, offset_v: float) -> float:
+        k = float(self._driver.coupling_v_per_v)
+        dc = abs(offset_v) if self._driver.passes_dc else 0.0
+        return k * (amplitude_vpp / 2.0 + dc)
+
+    def _check(self, amplitude_vpp: float, offset_v: float, on: bool, what: str) -> None:
+        excursion = self._excursion_v(amplitude_vpp, offset_v) if on else 0.0
+        _refuse_line(self._interlock, _line(self._interlock)["source_v"], excursion, self.role, what)
+
+    def _commit(self) -> None:
+        _line(self._interlock)["excursion_v"] = (self._excursion_v(self._amplitude_vpp, self._offset_v)
+                                                if self._on else 0.0)
+
+    @property
+    def coupling_v_per_v(self) -> float:
+        """V at the DUT input per V at the generator (the station's declaration)."""
+        return float(self._driver.coupling_v_per_v)
+
+    def set_function(self, function: str) -> None:
+        self._before()
+        self._driver.set_function(function)
+
+    def set_frequency(self, frequency_hz: float) -> None:
+        self._before()
+        self._driver.set_frequency(frequency_hz)
+
+    def set_amplitude(self, amplitude_vpp: float) -> None:
+        self._check(amplitude_vpp, self._offset_v, self._on, f"amplitude {amplitude_vpp:g} Vpp")
+        self._driver.set_amplitude(amplitude_vpp)
+        self._amplitude_vpp = float(amplitude_vpp)
+        self._commit()
+
+    def set_offset(self, offset_v: float) -> None:
+        self._check(self._amplitude_vpp, offset_v, self._on, f"offset {offset_v:g} V")
+        self._driver.set_offset(offset_v)
+        self._offset_v = float(offset_v)
+        self._commit()
+
+    def set_output(self, on: bool) -> None:
+        if on:
+            self._check(self._amplitude_vpp, self._offset_v, True, "output on")
+        else:
+            self._before()
+        self._driver.set_output(on)
+        self._on = bool(on)
+        self._commit()
+
+    def output_enabled(self) -> bool:
+        self._before()
+        return bool(self._driver.output_enabled())
+
+    def off_now(self) -> None:
+        """Output off without the trip check (a procedure's finally: never leave a sine on the line)."""
+        self._driver.output_off_now()
+        self._on = False
+        self._commit()
+
+
+class GuardedSwitchMatrix(Guarded):
+    """Switch matrix behind the interlock: it never switches while the source's output is on
+    (a hot switch welds relays and applies a step to the DUT), as far as this run knows."""
+
+    def select(self, channel: int) -> None:
+        from benchctl.errors import SetpointRefused
+
+        self._before()
+        if _line(self._interlock).get("source_on", 0.0):
+            raise SetpointRefused(f"{self.role}: channel {channel} not selected: the source's output is on. Switch "
+                                  "it off (bench.power_down) before changing DUTs", limit="hot_switch",
+                                  value=float(channel), instrument=self.role)
+        self._driver.select(channel)
+
+    def closed_channel(self) -> int:
+        self._before()
+        return int(self._driver.closed_channel())
+
+    def open_all(self) -> None:
+        self._before()
+        self._driver.open_all()
+
+
 GUARDS: dict[str, type[Guarded]] = {
     "dc_source": GuardedSource,
     "electronic_load": GuardedLoad,
     "power_meter": GuardedMeter,
     "loop_analyzer": GuardedAnalyzer,
     "oscilloscope": GuardedScope,
+    "function_generator": GuardedGenerator,
+    "switch_matrix": GuardedSwitchMatrix,
 }
 
 

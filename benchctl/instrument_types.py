@@ -113,11 +113,44 @@ class OscilloscopeLike(Instrument, Protocol):
     def fetch_waveform(self, channel: int) -> Any: ...
 
 
+@runtime_checkable
+class FunctionGeneratorLike(Instrument, Protocol):
+    """A function generator coupled into the DUT's input line (``coupling_v_per_v`` V/V)."""
+
+    @property
+    def coupling_v_per_v(self) -> float: ...
+
+    def set_function(self, function: str) -> None: ...
+
+    def set_frequency(self, frequency_hz: float) -> None: ...
+
+    def set_amplitude(self, amplitude_vpp: float) -> None: ...
+
+    def set_offset(self, offset_v: float) -> None: ...
+
+    def set_output(self, on: bool) -> None: ...
+
+    def output_enabled(self) -> bool: ...
+
+
+@runtime_checkable
+class SwitchMatrixLike(Instrument, Protocol):
+    """A switch matrix / multiplexer connecting the bench to one of several DUTs."""
+
+    def select(self, channel: int) -> None: ...
+
+    def closed_channel(self) -> int: ...
+
+    def open_all(self) -> None: ...
+
+
 KIND_PROTOCOLS: dict[str, type] = {
     "dc_source": DcSourceLike,
     "electronic_load": ElectronicLoadLike,
     "power_meter": PowerMeterLike,
     "loop_analyzer": LoopAnalyzerLike,
     "oscilloscope": OscilloscopeLike,
+    "function_generator": FunctionGeneratorLike,
+    "switch_matrix": SwitchMatrixLike,
 }
 """The protocol of each instrument kind (the ``kind`` a driver class declares)."""

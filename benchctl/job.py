@@ -8,6 +8,7 @@ A job file is TOML (data only; nothing in it is evaluated)::
     dut_revision = "B"
     dut_serials = ["0007", "0008", "0011"]   # or dut_serial = "0007" for one unit
     unit_change = "operator"         # how the next unit gets connected (see benchctl.job_units)
+    switch_channels = [1, 2, 5]      # with a switch matrix: the channel of each serial (default 1, 2, 3 ...)
 
     [[step]]
     procedure = "efficiency_map"     # bundled name or a path (relative to the job file)
@@ -33,8 +34,9 @@ from benchctl.errors import ConfigurationError
 from benchctl.config_file import read_config_text
 from benchctl.run_status import RunStatus
 
-_JOB_KEYS = {"name", "description", "dut_part", "dut_revision", "dut_serial", "dut_serials", "unit_change"}
-_TEXT_KEYS = _JOB_KEYS - {"dut_serials"}
+_JOB_KEYS = {"name", "description", "dut_part", "dut_revision", "dut_serial", "dut_serials", "unit_change",
+             "switch_channels"}
+_TEXT_KEYS = _JOB_KEYS - {"dut_serials", "switch_channels"}
 _STEP_KEYS = {"procedure", "params", "limits", "parameters", "name"}
 
 
@@ -62,6 +64,7 @@ class Job:
     path: Path | None = None
     dut_serials: tuple[str, ...] = ()
     unit_change: str = ""
+    switch_channels: tuple[int, ...] = ()
 
     @property
     def units(self) -> tuple[str, ...]:
@@ -121,6 +124,19 @@ def parse_job(text: str, *, path: Path | None = None) -> Job:
                 serials = _check_serials(tuple(s.strip() for s in raw), "job.dut_serials")
             except JobFileError as exc:
                 problems.append(str(exc))
+    channels: tuple[int, ...] = ()
+    if "switch_channels" in job:
+        raw_ch = job["switch_channels"]
+        if (not isinstance(raw_ch, list) or not raw_ch
+                or not all(isinstance(c, int) and not isinstance(c, bool) and c >= 1 for c in raw_ch)):
+            problems.append("job.switch_channels: must be a list of channel numbers (whole numbers from 1)")
+        elif len(set(raw_ch)) != len(raw_ch):
+            problems.append("job.switch_channels: a channel is given twice; each unit has its own channel")
+        elif len(raw_ch) != len(serials or (job.get("dut_serial", ""),)):
+            problems.append(f"job.switch_channels: {len(raw_ch)} channel(s) for {len(serials) or 1} serial(s); give "
+                            "one channel per serial, in the order of dut_serials")
+        else:
+            channels = tuple(raw_ch)
     from benchctl.job_units import UNIT_CHANGES
 
     change = job.get("unit_change", "")
@@ -168,7 +184,7 @@ def parse_job(text: str, *, path: Path | None = None) -> Job:
         name=str(job.get("name", path.stem if path else "job")), steps=tuple(steps),
         description=str(job.get("description", "")), dut_part=str(job.get("dut_part", "")),
         dut_revision=str(job.get("dut_revision", "")), dut_serial=str(job.get("dut_serial", "")), path=path,
-        dut_serials=serials, unit_change=str(job.get("unit_change", "")),
+        dut_serials=serials, unit_change=str(job.get("unit_change", "")), switch_channels=channels,
     )
 
 

@@ -22,6 +22,12 @@ The station file carries each instrument's documented accuracy
 HiSLIP (``"hislip"``, :mod:`.scpi.hislip`, resource ``TCPIP::127.0.0.1::hislip0,<port>::INSTR``),
 for every role or per role (``{"scope": "hislip"}``); ``quirks`` makes chosen instruments
 depart from textbook SCPI (``{"source": ["crlf", "opc_plus_one"]}``, see :mod:`.scpi.quirks`).
+``generator=True`` adds role ``generator``: a function generator coupled into the DUT's
+input line through an injection transformer of ``coupling_v_per_v`` (V/V, default 1; the
+station file declares it as the generator's ``options.coupling_v_per_v``). ``duts=N`` (N > 1)
+puts N DUTs of the same design on the station behind a DUT selector and adds role ``mux``:
+a switch matrix whose channel n connects DUT n (channel 1 at the start; see
+:mod:`.dut_selector`). ``dut_models`` lists the DUTs' models for tests.
 """
 
 from __future__ import annotations
@@ -47,6 +53,9 @@ from .scpi.quirks import Quirks, parse_quirks
 #: The protocols ``SimulatedBench(protocol=...)`` serves.
 PROTOCOLS = ("socket", "hislip")
 from .shared_output import SharedOutput
+from .dut_selector import DutSelector
+from .instruments.function_generator import SimulatedFunctionGenerator
+from .instruments.switch_matrix import SimulatedSwitchMatrix
 
 logger = logging.getLogger(__name__)
 
@@ -59,6 +68,8 @@ ROLE_DRIVERS = {
     "output2_meter": "power_meter",
     "analyzer": "loop_analyzer",
     "scope": "oscilloscope",
+    "generator": "function_generator",
+    "mux": "switch_matrix",
 }
 
 
@@ -99,7 +110,8 @@ class SimulatedBench:
     def __init__(self, model_name: str = "flyback-48v-5v", *, time_scale: float = 1.0, seed: int = 1,
                  base_port: int = 0, thermal_drift: bool = False, reading_time_s: float | None = None,
                  extra_loads: int = 0, protocol: str | Mapping[str, str] = "socket",
-                 quirks: Mapping[str, Iterable[str] | Quirks] | None = None) -> None:
+                 quirks: Mapping[str, Iterable[str] | Quirks] | None = None, generator: bool = False,
+                 coupling_v_per_v: float = 1.0, duts: int = 1) -> None:
         if model_name not in DESIGNS:
             raise ValueError(f"unknown converter model {model_name!r}; models: {', '.join(sorted(DESIGNS))}")
         aperture_s = DEFAULT_APERTURE_S if reading_time_s is None else float(reading_time_s)
@@ -108,7 +120,16 @@ class SimulatedBench:
         self.model_name = model_name
         self.design = DESIGNS[model_name]
         self.clock = ScaledClock(time_scale)
-        self.model = ConverterModel(self.design, clock=self.clock, seed=seed, thermal_drift=thermal_drift)
+        if not (isinstance(duts, int) and 1 <= duts <= 16):
+            raise ValueError(f"duts={duts!r} must be a whole number from 1 to 16")
+        self.duts = duts
+        if duts > 1:   # several DUTs behind a switch matrix (dut_selector)
+            self.dut_models = [ConverterModel(self.design, clock=self.clock, seed=seed + 100 * k,
+                                              thermal_drift=thermal_drift) for k in range(duts)]
+            self.model = DutSelector(self.dut_models, ConverterModel(self.design, clock=self.clock, seed=seed))
+        else:
+            self.model = ConverterModel(self.design, clock=self.clock, seed=seed, thermal_drift=thermal_drift)
+            self.dut_models = [self.model]
         self.reading_time_s = aperture_s
         if not (isinstance(extra_loads, int) and 0 <= extra_loads <= 8):
             raise ValueError(f"extra_loads={extra_loads!r} must be a whole number from 0 to 8")
@@ -142,6 +163,12 @@ class SimulatedBench:
             assert shared is not None
             self.instruments[f"load{k}"] = SimulatedElectronicLoad(
                 shared.port(f"load{k}"), serial=f"L{seed:04d}-{k}", seed=seed * 10 + k, aperture_s=aperture_s)
+        self.coupling_v_per_v = float(coupling_v_per_v)
+        if generator:
+            self.instruments["generator"] = SimulatedFunctionGenerator(self.model, serial=f"G{seed:04d}",
+                                                                       coupling_v_per_v=self.coupling_v_per_v)
+        if duts > 1:
+            self.instruments["mux"] = SimulatedSwitchMatrix(self.model, serial=f"X{seed:04d}", initial_channel=1)
         self.protocols = self._protocols(protocol)
         for role, wanted in (quirks or {}).items():
             if role not in self.instruments:
@@ -219,6 +246,10 @@ class SimulatedBench:
         for role, resource in self.resources.items():
             lines += ["", f"[instruments.{role}]", f'driver = "{driver_for(role)}"', f'resource = "{resource}"',
                       "timeout_s = 2.0"]
+            if role == "generator":
+                lines.append(f"options = {{ coupling_v_per_v = {self.coupling_v_per_v!r} }}")
+            if role == "mux":
+                lines.append(f"options = {{ channels = {self.duts} }}")
             table = getattr(self.instruments[role], "ACCURACY", None)
             if accuracy and table:
                 lines += ["", *accuracy_toml(role, table)]

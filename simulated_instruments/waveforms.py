@@ -85,6 +85,9 @@ def probed_signal(model: Any, synth: "RecordSynth", name: str, t: NDArray[np.flo
     if name in SERIES_ONLY:
         return np.asarray(model.terminal_series(t)[SERIES_INDEX[name]], dtype=float)
     v = synth.signal(name, t)
+    line = getattr(model, "line_output_excess_v", None)
+    if name == "vout" and line is not None:     # line steps and line injection (converter.line_disturbance)
+        v = np.asarray(v, dtype=float) + line(t)
     if name in SERIES_INDEX:
         mask = model.free_running_mask(t)
         if mask.any():

@@ -144,8 +144,19 @@ def test_line_step_recovers_with_the_crossover_time_constant(design) -> None:
     tau_loop = 1.0 / wgc
     assert model.loop_time_constant_s() == pytest.approx(tau_loop, rel=1e-3)
     assert v_after != v_before
-    t = _at(model, clock, t0 + tau_loop)
-    assert (t.output_v - v_after) / (v_before - v_after) == pytest.approx(math.exp(-1.0), rel=1e-3)
+    # The output follows the closed-loop line-to-output step response Gvg/(1+T) (Erickson & Maksimović,
+    # 2nd ed., ch. 9; converter.line_disturbance), from scipy.signal.step of that rational function;
+    # the small residual of the static shift (large-signal minus G(0)·ΔV) decays with τ_loop.
+    gvg = model.line_to_output_transfer()
+    dv = design.vin_max_v - design.vin_nom_v
+    times = np.array([0.0, 0.3, 1.0, 3.0]) * tau_loop
+    _, g = scipy.signal.step((list(gvg.num), list(gvg.den)), T=np.linspace(0.0, times[-1], 3001))
+    g_at = np.interp(times, np.linspace(0.0, times[-1], 3001), g)
+    for x, gx in zip(times[1:], g_at[1:]):
+        t = _at(model, clock, t0 + x)
+        expected = v_after + dv * (gx - gvg.dc_gain())
+        residual = abs(v_after - v_before - dv * gvg.dc_gain())
+        assert t.output_v == pytest.approx(expected, abs=residual + 2e-6 * design.vout_nom_v), x
 
 
 @pytest.mark.parametrize("design", DESIGNS)

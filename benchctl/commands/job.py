@@ -32,8 +32,9 @@ def _unit_change(job, units, args, station):
         console().print(escape(text))
 
     kind = getattr(args, "unit_change", None) or job.unit_change
+    channels = job.switch_channels if tuple(units) == tuple(job.units) else ()  # --dut-serial: 1, 2, 3 ...
     return unit_change_for(kind, units=len(units), interactive=sys.stdin.isatty(), ask=ask, tell=tell,
-                           hazardous=station.limits.hazardous)
+                           hazardous=station.limits.hazardous, station=station, channels=channels)
 
 
 def _job_note(store, job_id: int, job_name: str, units, u: int, step: int, steps: int, procedure: str):

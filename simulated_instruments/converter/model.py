@@ -48,6 +48,7 @@ from .operating_point import (FAULT_NAMES, BenchPoint, LoadMode, LoadSetting, Op
                               solve_bench, solve_dut)
 from .start_up import StartUp, StartUpInputs
 from .small_signal import RationalTF, closed_loop_output_impedance, control_chain, plant_gvd, plant_zout_open
+from .line_disturbance import LineInjection, LineStep, closed_loop_line_to_output, line_to_output_open
 from .thermal import ThermalState
 
 log = logging.getLogger(__name__)
@@ -176,6 +177,10 @@ class ConverterModel:
         self._thermal = ThermalState(design.thermal, t, enabled=thermal_drift)
         self._cache: tuple[float, float, BenchPoint] | None = None
         self._small_signal: dict[tuple, tuple[ImpedanceExcess | None, float]] = {}
+        # line disturbances (line_disturbance): the sine injected on the line, recent line steps
+        self._injection: LineInjection | None = None
+        self._line_steps: deque[LineStep] = deque(maxlen=_HISTORY)
+        self._line_step_cache: dict[tuple, ImpedanceExcess | None] = {}
         bench = self._solve(t, was_running=False)
         v = _vector(bench)
         self._segments: deque[_Segment] = deque(maxlen=_HISTORY)
@@ -282,6 +287,10 @@ class ConverterModel:
         with self._lock:
             seg = self._segment_at(t_s)
             v = seg.transient.values_at(t_s, self._target_vector(seg, t_s))[:, 0]
+            if self._injection is not None:
+                v = v.copy()
+                v[INPUT_V] += float(self._injection.input_v(t_s)[0])
+                v[OUTPUT_V] += float(self._injection.output_v(t_s)[0])
             return Terminals(float(t_s), float(v[0]), float(v[1]), seg.bench.source_limited, float(v[2]),
                              float(v[3]), float(v[4]), float(v[5]), float(v[6]))
 
@@ -303,6 +312,14 @@ class ConverterModel:
                 t, w = self._quadrature(t0_s, t1_s)
                 v = self._values_at(t)
                 sums = np.concatenate([v @ w, self._powers(v) @ w]) / (t1_s - t0_s)
+                if self._injection is not None:   # its means are analytic (a sine over many nodes' spans)
+                    d_in = self._injection.mean_input_v(t0_s, t1_s)
+                    d_out = self._injection.mean_output_v(t0_s, t1_s)
+                    sums[INPUT_V] += d_in
+                    sums[OUTPUT_V] += d_out
+                    sums[7 + 1] += d_in * sums[INPUT_A]      # input_w, first order in the sine
+                    sums[7 + 2] += d_out * sums[OUTPUT_A]    # output_w
+                    sums[7 + 3] += d_out * sums[LOAD_A]      # load_w
             return TerminalMeans(float(t0_s), float(t1_s), *(float(x) for x in sums))
 
     def terminal_series(self, t_s: ArrayLike) -> NDArray[np.float64]:
@@ -313,7 +330,11 @@ class ConverterModel:
         """
         t = np.atleast_1d(np.asarray(t_s, dtype=float))
         with self._lock:
-            return self._values_at(t)
+            v = self._values_at(t)
+            if self._injection is not None:
+                v[INPUT_V] += self._injection.input_v(t)
+                v[OUTPUT_V] += self._injection.output_v(t)
+            return v
 
     def free_running_mask(self, t_s: ArrayLike) -> NDArray[np.bool_]:
         """True at the model times ``t_s`` (increasing) that lie in a start, stop, lock-out or fault
@@ -493,6 +514,75 @@ class ConverterModel:
         """The auxiliary winding's main-referred current now in force, A."""
         with self._lock:
             return self._aux_stage_a
+    # ---- line disturbances (line_disturbance) ---------------------------------------------
+    def line_to_output_transfer(self) -> RationalTF:
+        """Closed-loop line-to-output Gvg_cl(s) = Gvg(s)/(1 + T(s)) at the present operating point, V/V."""
+        return self._gvg_transfer(self.operating_point())
+
+    def line_to_output(self, freq_hz: ArrayLike) -> NDArray[np.complex128]:
+        """Complex closed-loop line-to-output transfer at ``freq_hz`` (Hz), V/V."""
+        return self.line_to_output_transfer().response(freq_hz)
+
+    def set_line_injection(self, amplitude_v: float, frequency_hz: float, enabled: bool) -> None:
+        """A sine of ``amplitude_v`` (V peak, at the DUT input) and ``frequency_hz`` on the input line
+        from now on (``enabled``), or none. What a generator through an injection transformer does."""
+        if not (math.isfinite(amplitude_v) and amplitude_v >= 0.0 and math.isfinite(frequency_hz)
+                and frequency_hz > 0.0):
+            raise SettingError(f"set_line_injection: amplitude_v={amplitude_v!r} must be >= 0 V and "
+                               f"frequency_hz={frequency_hz!r} > 0 Hz")
+        with self._lock:
+            if not enabled or amplitude_v == 0.0:
+                self._injection = None
+                return
+            self._injection = LineInjection(self.clock.now_s(), float(amplitude_v), float(frequency_hz),
+                                            self._injection_response(float(frequency_hz)))
+
+    @property
+    def line_injection(self) -> LineInjection | None:
+        """The sine on the line now (with its Gvg_cl at the operating point), or None."""
+        with self._lock:
+            return self._injection
+
+    def line_step_truth(self) -> LineStep | None:
+        """The last line step (its size and Gvg_cl step response), or None; for tests."""
+        with self._lock:
+            return self._line_steps[-1] if self._line_steps else None
+
+    def line_output_excess_v(self, t_s: ArrayLike) -> NDArray[np.float64]:
+        """What the line disturbances add to the output beyond its static value at model times ``t_s``
+        (line-step responses and the injected sine's answer), V; for the scope's output probe."""
+        t = np.atleast_1d(np.asarray(t_s, dtype=float))
+        with self._lock:
+            out = np.zeros(t.shape)
+            for step in self._line_steps:
+                out += step.output_excess_v(t)
+            if self._injection is not None:
+                out += self._injection.output_v(t)
+            return out
+
+    def _gvg_transfer(self, op: OperatingPoint) -> RationalTF:
+        loop = self._loop_transfer(op)
+        gvg = line_to_output_open(self.design, op.conduction_mode, op.vin_v, op.vsense_v, op.duty, op.r_load_eff_ohm)
+        return closed_loop_line_to_output(gvg, loop)
+
+    def _injection_response(self, frequency_hz: float) -> complex:
+        op = self._target(self.clock.now_s()).op
+        if op.state != "regulating" or not self._source.enabled:
+            return 0j
+        return complex(np.atleast_1d(self._gvg_transfer(op).response(frequency_hz))[0])
+
+    def _line_step(self, t: float, dv_v: float, op: OperatingPoint) -> LineStep | None:
+        key = (op.conduction_mode, round(op.vin_v, 3), round(op.load_a, 4))
+        if key not in self._line_step_cache:
+            try:
+                self._line_step_cache[key] = ImpedanceExcess.from_tf(self._gvg_transfer(op))
+            except (NotRegulatingError, ValueError) as exc:
+                log.debug("no line-step response at %s: %s", key, exc)
+                self._line_step_cache[key] = None
+            if len(self._line_step_cache) > 256:
+                self._line_step_cache.clear()
+        response = self._line_step_cache[key]
+        return None if response is None else LineStep(t, dv_v, response)
 
     # ---- internals: steady states -------------------------------------------------------
     def _loop_transfer(self, op: OperatingPoint) -> RationalTF:
@@ -670,7 +760,7 @@ class ConverterModel:
         transient: Transient | StartUp | None = None
         if (what in ("source", "load") and was_running and prev.bench.op.state == "regulating"
                 and bench.op.state == "regulating" and self._recovered(prev.transient, t)):
-            transient = self._regulated(t, present, prev, bench)
+            transient = self._regulated(t, present, prev, bench, line=what == "source")
         if transient is None:
             if self._running and not was_running and not self._faults:
                 transient = self._start_up(t, present, bench)
@@ -684,6 +774,12 @@ class ConverterModel:
                     tau = self.design.bench.settle_tau_s
                 transient = Relaxation(t, tau, present, _vector(bench))
         self._segments.append(_Segment(t, transient, bench, self._source, self._load, tuple(sorted(self._faults))))
+        if not isinstance(transient, RegulatedTransient):
+            self._line_steps.clear()       # a start, stop or fault: the scope reads the series then
+        if self._injection is not None:   # the sine's answer at the new operating point
+            inj = self._injection
+            self._injection = LineInjection(inj.t_on_s, inj.amplitude_v, inj.frequency_hz,
+                                            self._injection_response(inj.frequency_hz))
         log.debug("%s at t=%.6f s: %s -> state %s (%s)", what, t, detail, bench.op.state, type(transient).__name__)
 
     def _start_up(self, t: float, present: tuple[float, ...], bench: BenchPoint) -> StartUp:
@@ -709,7 +805,7 @@ class ConverterModel:
         return t_s - transient.t0_s >= 10.0 * transient.tau_s
 
     def _regulated(self, t: float, present: tuple[float, ...], prev: _Segment,
-                   bench: BenchPoint) -> RegulatedTransient | None:
+                   bench: BenchPoint, *, line: bool = False) -> RegulatedTransient | None:
         i_from, i_to = present[LOAD_A], bench.op.load_a
         slew = self._load_slew_a_per_s
         duration = abs(i_to - i_from) / slew
@@ -744,5 +840,11 @@ class ConverterModel:
         _, loop_tau = self._small_signal_at(bench.op)
         if duration > 1e-12 and zout is not None:
             ramps.append(LoadRamp(t, t + duration, (i_to - i_from) / duration, zout))
+        dv_line = bench.source_v - present[SOURCE_V]
+        if line and abs(dv_line) > 1e-9:    # a line step: Gvg_cl's step response (line_disturbance)
+            step = self._line_step(t, dv_line, bench.op)
+            if step is not None:
+                ramps.append(step)  # type: ignore[arg-type]  # a LineStep has a LoadRamp's interface
+                self._line_steps.append(step)
         return RegulatedTransient(t, times, samples, present, self.design.bench.input_filter_tau_s, loop_tau,
                                   self.design.bench.cable_r_ohm, tuple(ramps))
