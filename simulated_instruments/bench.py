@@ -14,6 +14,11 @@ parallel on the same converter output, roles ``load2``, ``load3`` ...; the model
 the sum of their currents and each reads its own share, see :mod:`.shared_output`).
 The station file carries each instrument's documented accuracy
 (``[instruments.<role>.accuracy]``).
+
+``thermal=True`` puts the DUT in a simulated thermal chamber (role ``chamber``, its air is
+the model's ambient) with a thermocouple meter on the ambient and the hot spots (role
+``temp_meter``), turns ``thermal_drift`` on (the losses follow the parts' temperature) and
+adds the chamber and hot-spot limits to the station file.
 """
 
 from __future__ import annotations
@@ -29,6 +34,8 @@ from .instruments.loop_analyzer import SimulatedLoopAnalyzer
 from .instruments.accuracy import accuracy_toml
 from .instruments.aperture import DEFAULT_APERTURE_S
 from .instruments.oscilloscope import SimulatedOscilloscope
+from .instruments.temperature_meter import SimulatedTemperatureMeter
+from .instruments.thermal_chamber import SimulatedThermalChamber
 from .scpi import ScpiServer
 from .shared_output import SharedOutput
 
@@ -42,7 +49,15 @@ ROLE_DRIVERS = {
     "output_meter": "power_meter",
     "analyzer": "loop_analyzer",
     "scope": "oscilloscope",
+    "temp_meter": "temperature_meter",
+    "chamber": "thermal_chamber",
 }
+
+#: Station limits of a thermal bench (``thermal=True``): the chamber setpoints the station
+#: allows (°C; the DUT's storage range of a typical telecom module, common practice) and the
+#: hot-spot temperature that trips the run (°C).
+THERMAL_LIMITS = {"chamber_temperature_min_c": -40.0, "chamber_temperature_max_c": 125.0,
+                  "chamber_ramp_max_k_per_min": 10.0, "hot_spot_temperature_max_c": 150.0}
 
 
 def driver_for(role: str) -> str:
@@ -81,7 +96,7 @@ class SimulatedBench:
 
     def __init__(self, model_name: str = "flyback-48v-5v", *, time_scale: float = 1.0, seed: int = 1,
                  base_port: int = 0, thermal_drift: bool = False, reading_time_s: float | None = None,
-                 extra_loads: int = 0) -> None:
+                 extra_loads: int = 0, thermal: bool = False) -> None:
         if model_name not in DESIGNS:
             raise ValueError(f"unknown converter model {model_name!r}; models: {', '.join(sorted(DESIGNS))}")
         aperture_s = DEFAULT_APERTURE_S if reading_time_s is None else float(reading_time_s)
@@ -90,7 +105,9 @@ class SimulatedBench:
         self.model_name = model_name
         self.design = DESIGNS[model_name]
         self.clock = ScaledClock(time_scale)
-        self.model = ConverterModel(self.design, clock=self.clock, seed=seed, thermal_drift=thermal_drift)
+        self.thermal = bool(thermal)
+        self.model = ConverterModel(self.design, clock=self.clock, seed=seed,
+                                    thermal_drift=thermal_drift or self.thermal)
         self.reading_time_s = aperture_s
         if not (isinstance(extra_loads, int) and 0 <= extra_loads <= 8):
             raise ValueError(f"extra_loads={extra_loads!r} must be a whole number from 0 to 8")
@@ -107,6 +124,10 @@ class SimulatedBench:
             "analyzer": SimulatedLoopAnalyzer(self.model, serial=f"A{seed:04d}", seed=seed),
             "scope": SimulatedOscilloscope(self.model, serial=f"O{seed:04d}", seed=seed),
         }
+        if self.thermal:
+            self.instruments["temp_meter"] = SimulatedTemperatureMeter(self.model, serial=f"T{seed:04d}", seed=seed,
+                                                                       aperture_s=aperture_s)
+            self.instruments["chamber"] = SimulatedThermalChamber(self.model, serial=f"C{seed:04d}", seed=seed)
         for k in range(2, extra_loads + 2):
             assert shared is not None
             self.instruments[f"load{k}"] = SimulatedElectronicLoad(
@@ -163,6 +184,8 @@ class SimulatedBench:
         ]
         for key, value in lim.__dict__.items():
             lines.append(f"{key} = {value!r}")
+        if self.thermal:
+            lines += [f"{key} = {value!r}" for key, value in THERMAL_LIMITS.items()]
         for role, resource in self.resources.items():
             lines += ["", f"[instruments.{role}]", f'driver = "{driver_for(role)}"', f'resource = "{resource}"',
                       "timeout_s = 2.0"]
