@@ -17,7 +17,8 @@ The station file carries each instrument's documented accuracy
 
 ``thermal=True`` puts the DUT in a simulated thermal chamber (role ``chamber``, its air is
 the model's ambient) with a thermocouple meter on the ambient and the hot spots (role
-``temp_meter``), turns ``thermal_drift`` on (the losses follow the parts' temperature) and
+``temp_meter``), turns ``thermal_drift`` on unless it is given as False (the losses follow
+the parts' temperature; off, the parts' nodes still warm with the design's losses) and
 adds the chamber and hot-spot limits to the station file.
 """
 
@@ -95,7 +96,7 @@ class SimulatedBench:
     """A converter model with a source, a load and two power meters served on loopback."""
 
     def __init__(self, model_name: str = "flyback-48v-5v", *, time_scale: float = 1.0, seed: int = 1,
-                 base_port: int = 0, thermal_drift: bool = False, reading_time_s: float | None = None,
+                 base_port: int = 0, thermal_drift: bool | None = None, reading_time_s: float | None = None,
                  extra_loads: int = 0, thermal: bool = False) -> None:
         if model_name not in DESIGNS:
             raise ValueError(f"unknown converter model {model_name!r}; models: {', '.join(sorted(DESIGNS))}")
@@ -106,8 +107,8 @@ class SimulatedBench:
         self.design = DESIGNS[model_name]
         self.clock = ScaledClock(time_scale)
         self.thermal = bool(thermal)
-        self.model = ConverterModel(self.design, clock=self.clock, seed=seed,
-                                    thermal_drift=thermal_drift or self.thermal)
+        drift = self.thermal if thermal_drift is None else bool(thermal_drift)
+        self.model = ConverterModel(self.design, clock=self.clock, seed=seed, thermal_drift=drift)
         self.reading_time_s = aperture_s
         if not (isinstance(extra_loads, int) and 0 <= extra_loads <= 8):
             raise ValueError(f"extra_loads={extra_loads!r} must be a whole number from 0 to 8")
