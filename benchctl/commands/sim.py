@@ -52,7 +52,8 @@ def cmd_sim(args: argparse.Namespace) -> int:
         error_console().print(f"[bold red]error:[/] --fault: {escape(str(exc))}", soft_wrap=True)
         return EXIT_BAD_INPUT
     bench = SimulatedBench(args.model, time_scale=args.time_scale, seed=args.seed, base_port=args.base_port,
-                           thermal_drift=getattr(args, "thermal_drift", False), reading_time_s=reading_time)
+                           thermal_drift=True if getattr(args, "thermal_drift", False) else None,
+                           reading_time_s=reading_time, thermal=getattr(args, "thermal", False))
     bench.start()
     if specs:
         apply_fault_specs(bench, specs)
