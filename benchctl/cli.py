@@ -66,6 +66,9 @@ def _add_bench_commands(sub: Any) -> None:
     p.add_argument("--base-port", type=int, default=0, help="first TCP port (default: free ports)")
     p.add_argument("--thermal-drift", action="store_true",
                    help="let the parts warm with their loss (minutes of model time), so losses creep up")
+    p.add_argument("--thermal", action="store_true",
+                   help="put the DUT in a thermal chamber (role chamber) with a temperature meter (role temp_meter); "
+                        "turns thermal drift on")
     p.add_argument("--reading-time", type=float, default=None, metavar="S",
                    help="aperture of every meter, source and load reading in seconds (default 0.02, "
                         "one 50 Hz line cycle)")

@@ -494,6 +494,89 @@ class GuardedSwitchMatrix(Guarded):
     def open_all(self) -> None:
         self._before()
         self._driver.open_all()
+class GuardedTemperatureMeter(Guarded):
+    """Temperature meter behind the interlock: every hot-spot reading is checked against
+    ``limits.hot_spot_temperature_max_c`` when the station declares it (a reading above it
+    trips the run: the source off first, then the load); the ambient channel is not a hot spot."""
+
+    AMBIENT = "ambient"
+
+    def channels(self) -> tuple[str, ...]:
+        self._before()
+        return tuple(self._driver.channels())
+
+    def measure_temperature(self, channel: str | int) -> float:
+        self._before()
+        value = float(self._driver.measure_temperature(channel))
+        number = self._driver.channel_number(channel)
+        label = self._driver.channels()[number - 1]
+        if label != self.AMBIENT and self._interlock.limits.hot_spot_temperature_max_c is not None:
+            return self._interlock.check_reading("hot_spot_temperature_max_c", value, self.role,
+                                                 f"{label} temperature (°C)")
+        return value
+
+
+class GuardedChamber(Guarded):
+    """Thermal chamber behind the interlock: a setpoint outside the station's
+    ``limits.chamber_temperature_min_c`` … ``chamber_temperature_max_c`` is refused before
+    anything is sent, and so is every setpoint when the station declares no such limits; a ramp
+    rate above ``limits.chamber_ramp_max_k_per_min`` (when given) is refused too."""
+
+    def _refuse(self, limit: str, value: float, what: str, why: str) -> None:
+        from benchctl.errors import SetpointRefused
+
+        raise SetpointRefused(f"{self.role}: {what} {value:g} {why}; nothing was sent", limit=limit,
+                              value=float(value), instrument=self.role)
+
+    def set_setpoint(self, temperature_c: float) -> None:
+        self._before()
+        lim = self._interlock.limits
+        lo, hi = lim.chamber_temperature_min_c, lim.chamber_temperature_max_c
+        if lo is None or hi is None:
+            self._refuse("chamber_temperature_max_c", temperature_c, "°C setpoint",
+                         "cannot be checked: declare limits.chamber_temperature_min_c and "
+                         "limits.chamber_temperature_max_c (°C) in the station file, within what the DUT and "
+                         "the fixture are rated for")
+        assert lo is not None and hi is not None
+        if not (temperature_c == temperature_c) or temperature_c > hi:
+            self._refuse("chamber_temperature_max_c", temperature_c, "°C setpoint",
+                         f"is above the station limit limits.chamber_temperature_max_c = {hi:g} °C")
+        if temperature_c < lo:
+            self._refuse("chamber_temperature_min_c", temperature_c, "°C setpoint",
+                         f"is below the station limit limits.chamber_temperature_min_c = {lo:g} °C")
+        self._driver.set_setpoint(temperature_c)
+
+    def set_ramp_rate(self, k_per_min: float) -> None:
+        self._before()
+        top = self._interlock.limits.chamber_ramp_max_k_per_min
+        if top is not None and not (k_per_min <= top):
+            self._refuse("chamber_ramp_max_k_per_min", k_per_min, "K/min ramp rate",
+                         f"is above the station limit limits.chamber_ramp_max_k_per_min = {top:g} K/min")
+        self._driver.set_ramp_rate(k_per_min)
+
+    def set_running(self, on: bool) -> None:
+        self._before()
+        self._driver.set_running(on)
+
+    def running(self) -> bool:
+        self._before()
+        return bool(self._driver.running())
+
+    def setpoint(self) -> float:
+        self._before()
+        return float(self._driver.setpoint())
+
+    def set_soak(self, band_k: float, time_s: float) -> None:
+        self._before()
+        self._driver.set_soak(band_k, time_s)
+
+    def is_stable(self) -> bool:
+        self._before()
+        return bool(self._driver.is_stable())
+
+    def measure_temperature(self) -> float:
+        self._before()
+        return float(self._driver.measure_temperature())
 
 
 GUARDS: dict[str, type[Guarded]] = {
@@ -504,6 +587,8 @@ GUARDS: dict[str, type[Guarded]] = {
     "oscilloscope": GuardedScope,
     "function_generator": GuardedGenerator,
     "switch_matrix": GuardedSwitchMatrix,
+    "temperature_meter": GuardedTemperatureMeter,
+    "thermal_chamber": GuardedChamber,
 }
 
 

@@ -142,6 +142,31 @@ class SwitchMatrixLike(Instrument, Protocol):
     def closed_channel(self) -> int: ...
 
     def open_all(self) -> None: ...
+class TemperatureMeterLike(Instrument, Protocol):
+    """A multi-channel temperature meter; channels by label ("ambient", "switch" ...) or number, °C."""
+
+    def channels(self) -> tuple[str, ...]: ...
+
+    def measure_temperature(self, channel: str | int) -> float: ...
+
+
+@runtime_checkable
+class ThermalChamberLike(Instrument, Protocol):
+    """A thermal chamber whose air is the DUT's ambient: setpoint °C, ramp K/min, soak, stable flag."""
+
+    def set_running(self, on: bool) -> None: ...
+
+    def set_setpoint(self, temperature_c: float) -> None: ...
+
+    def setpoint(self) -> float: ...
+
+    def set_ramp_rate(self, k_per_min: float) -> None: ...
+
+    def set_soak(self, band_k: float, time_s: float) -> None: ...
+
+    def is_stable(self) -> bool: ...
+
+    def measure_temperature(self) -> float: ...
 
 
 KIND_PROTOCOLS: dict[str, type] = {
@@ -152,5 +177,7 @@ KIND_PROTOCOLS: dict[str, type] = {
     "oscilloscope": OscilloscopeLike,
     "function_generator": FunctionGeneratorLike,
     "switch_matrix": SwitchMatrixLike,
+    "temperature_meter": TemperatureMeterLike,
+    "thermal_chamber": ThermalChamberLike,
 }
 """The protocol of each instrument kind (the ``kind`` a driver class declares)."""

@@ -137,6 +137,13 @@ class StationLimits:
     dut_output_voltage_max_v: float
     load_current_max_a: float
     load_power_max_w: float
+    # Optional limits of a thermal bench (°C, K/min): the chamber setpoints allowed, its ramp
+    # rate, and the hot-spot temperature that trips the run. None: not declared (a chamber's
+    # setpoint is then refused; a temperature reading is not checked).
+    chamber_temperature_min_c: float | None = None
+    chamber_temperature_max_c: float | None = None
+    chamber_ramp_max_k_per_min: float | None = None
+    hot_spot_temperature_max_c: float | None = None
 
     @property
     def hazardous(self) -> bool:
@@ -257,7 +264,10 @@ class Station:
         return out
 
 
-_LIMIT_KEYS = [f.name for f in fields(StationLimits)]
+#: The optional ``[limits]`` keys of a thermal bench (see :class:`StationLimits`).
+OPTIONAL_LIMIT_KEYS = ("chamber_temperature_min_c", "chamber_temperature_max_c", "chamber_ramp_max_k_per_min",
+                       "hot_spot_temperature_max_c")
+_LIMIT_KEYS = [f.name for f in fields(StationLimits) if f.name not in OPTIONAL_LIMIT_KEYS]
 _STATION_KEYS = {"name", "description", "watch_period_s", "hazardous_voltage_acknowledged", "database",
                  "dut_time_constant_s", "calibration_overdue"}
 _STATION_KEYS |= {"watch_deadline_s", "watch_missed_periods", "shutdown_deadline_s"}
@@ -513,8 +523,8 @@ def _limits_table(limits_table: Any, acknowledged: bool, problems: list[str]) ->
     if not given:
         problems.append(f"[limits]: missing table; required keys: {', '.join(_LIMIT_KEYS)}")
         limits_table = {}
-    for key in sorted(set(limits_table) - set(_LIMIT_KEYS)):
-        problems.append(f"limits.{key}: unknown key; known keys: {', '.join(_LIMIT_KEYS)}")
+    for key in sorted(set(limits_table) - set(_LIMIT_KEYS) - set(OPTIONAL_LIMIT_KEYS)):
+        problems.append(f"limits.{key}: unknown key; known keys: {', '.join(_LIMIT_KEYS + list(OPTIONAL_LIMIT_KEYS))}")
     for key in _LIMIT_KEYS:
         if key not in limits_table:
             if given:
@@ -525,7 +535,8 @@ def _limits_table(limits_table: Any, acknowledged: bool, problems: list[str]) ->
             problems.append(f"limits.{key}: {value!r} must be a positive number")
         else:
             limit_values[key] = float(value)
-    limits = StationLimits(**limit_values) if len(limit_values) == len(_LIMIT_KEYS) else None
+    optional = _optional_limits(limits_table, problems)
+    limits = StationLimits(**limit_values, **optional) if len(limit_values) == len(_LIMIT_KEYS) else None
     if limits is not None and limits.hazardous and not acknowledged:
         problems.append(
             f"station.hazardous_voltage_acknowledged: the limits allow "
@@ -534,6 +545,26 @@ def _limits_table(limits_table: Any, acknowledged: bool, problems: list[str]) ->
             "safety section, then set hazardous_voltage_acknowledged = true"
         )
     return limits
+
+
+def _optional_limits(limits_table: Mapping[str, Any], problems: list[str]) -> dict[str, float]:
+    """The thermal limits given (°C may be below zero; a ramp rate and the minimum below the maximum)."""
+    out: dict[str, float] = {}
+    for key in OPTIONAL_LIMIT_KEYS:
+        if key not in limits_table:
+            continue
+        value = limits_table[key]
+        number = isinstance(value, (int, float)) and not isinstance(value, bool) and math.isfinite(value)
+        if not number or (key == "chamber_ramp_max_k_per_min" and not value > 0):
+            problems.append(f"limits.{key}: {value!r} must be a {'positive ' if 'ramp' in key else ''}number "
+                            f"({'K/min' if 'ramp' in key else '°C'})")
+        else:
+            out[key] = float(value)
+    lo, hi = out.get("chamber_temperature_min_c"), out.get("chamber_temperature_max_c")
+    if lo is not None and hi is not None and not lo < hi:
+        problems.append(f"limits.chamber_temperature_min_c: {lo:g} °C must be below "
+                        f"limits.chamber_temperature_max_c = {hi:g} °C")
+    return out
 
 
 def _instruments_table(table: Any, problems: list[str]) -> dict[str, InstrumentConfig]:
@@ -722,6 +753,9 @@ def render_station(
     ]
     for key in _LIMIT_KEYS:
         lines.append(f"{key} = {float(getattr(limits, key))!r}")
+    for key in OPTIONAL_LIMIT_KEYS:
+        if getattr(limits, key) is not None:
+            lines.append(f"{key} = {float(getattr(limits, key))!r}")
     for role, (driver, resource) in instruments.items():
         lines += ["", f"[instruments.{role}]", f"driver = {_toml_str(driver)}",
                   f"resource = {_toml_str(resource)}", f"timeout_s = {timeout_s!r}"]

@@ -28,6 +28,11 @@ station file declares it as the generator's ``options.coupling_v_per_v``). ``dut
 puts N DUTs of the same design on the station behind a DUT selector and adds role ``mux``:
 a switch matrix whose channel n connects DUT n (channel 1 at the start; see
 :mod:`.dut_selector`). ``dut_models`` lists the DUTs' models for tests.
+``thermal=True`` puts the DUT in a simulated thermal chamber (role ``chamber``, its air is
+the model's ambient) with a thermocouple meter on the ambient and the hot spots (role
+``temp_meter``), turns ``thermal_drift`` on unless it is given as False (the losses follow
+the parts' temperature; off, the parts' nodes still warm with the design's losses) and
+adds the chamber and hot-spot limits to the station file.
 """
 
 from __future__ import annotations
@@ -46,6 +51,8 @@ from .instruments.loop_analyzer import SimulatedLoopAnalyzer
 from .instruments.accuracy import accuracy_toml
 from .instruments.aperture import DEFAULT_APERTURE_S
 from .instruments.oscilloscope import SimulatedOscilloscope
+from .instruments.temperature_meter import SimulatedTemperatureMeter
+from .instruments.thermal_chamber import SimulatedThermalChamber
 from .scpi import ScpiServer
 from .scpi.hislip import HislipServer
 from .scpi.quirks import Quirks, parse_quirks
@@ -70,7 +77,15 @@ ROLE_DRIVERS = {
     "scope": "oscilloscope",
     "generator": "function_generator",
     "mux": "switch_matrix",
+    "temp_meter": "temperature_meter",
+    "chamber": "thermal_chamber",
 }
+
+#: Station limits of a thermal bench (``thermal=True``): the chamber setpoints the station
+#: allows (°C; the DUT's storage range of a typical telecom module, common practice) and the
+#: hot-spot temperature that trips the run (°C).
+THERMAL_LIMITS = {"chamber_temperature_min_c": -40.0, "chamber_temperature_max_c": 125.0,
+                  "chamber_ramp_max_k_per_min": 10.0, "hot_spot_temperature_max_c": 150.0}
 
 
 def driver_for(role: str) -> str:
@@ -108,10 +123,10 @@ class SimulatedBench:
     """A converter model with a source, a load and two power meters served on loopback."""
 
     def __init__(self, model_name: str = "flyback-48v-5v", *, time_scale: float = 1.0, seed: int = 1,
-                 base_port: int = 0, thermal_drift: bool = False, reading_time_s: float | None = None,
+                 base_port: int = 0, thermal_drift: bool | None = None, reading_time_s: float | None = None,
                  extra_loads: int = 0, protocol: str | Mapping[str, str] = "socket",
                  quirks: Mapping[str, Iterable[str] | Quirks] | None = None, generator: bool = False,
-                 coupling_v_per_v: float = 1.0, duts: int = 1) -> None:
+                 coupling_v_per_v: float = 1.0, duts: int = 1, thermal: bool = False) -> None:
         if model_name not in DESIGNS:
             raise ValueError(f"unknown converter model {model_name!r}; models: {', '.join(sorted(DESIGNS))}")
         aperture_s = DEFAULT_APERTURE_S if reading_time_s is None else float(reading_time_s)
@@ -120,15 +135,17 @@ class SimulatedBench:
         self.model_name = model_name
         self.design = DESIGNS[model_name]
         self.clock = ScaledClock(time_scale)
+        self.thermal = bool(thermal)
+        drift = self.thermal if thermal_drift is None else bool(thermal_drift)
         if not (isinstance(duts, int) and 1 <= duts <= 16):
             raise ValueError(f"duts={duts!r} must be a whole number from 1 to 16")
         self.duts = duts
         if duts > 1:   # several DUTs behind a switch matrix (dut_selector)
             self.dut_models = [ConverterModel(self.design, clock=self.clock, seed=seed + 100 * k,
-                                              thermal_drift=thermal_drift) for k in range(duts)]
+                                              thermal_drift=drift) for k in range(duts)]
             self.model = DutSelector(self.dut_models, ConverterModel(self.design, clock=self.clock, seed=seed))
         else:
-            self.model = ConverterModel(self.design, clock=self.clock, seed=seed, thermal_drift=thermal_drift)
+            self.model = ConverterModel(self.design, clock=self.clock, seed=seed, thermal_drift=drift)
             self.dut_models = [self.model]
         self.reading_time_s = aperture_s
         if not (isinstance(extra_loads, int) and 0 <= extra_loads <= 8):
@@ -159,6 +176,10 @@ class SimulatedBench:
                                                                 aperture_s=aperture_s)
             self.instruments["output2_meter"] = SimulatedPowerMeter(port, "output", serial=f"MO{seed:04d}-2",
                                                                     seed=seed * 10 + 3, aperture_s=aperture_s)
+        if self.thermal:
+            self.instruments["temp_meter"] = SimulatedTemperatureMeter(self.model, serial=f"T{seed:04d}", seed=seed,
+                                                                       aperture_s=aperture_s)
+            self.instruments["chamber"] = SimulatedThermalChamber(self.model, serial=f"C{seed:04d}", seed=seed)
         for k in range(2, extra_loads + 2):
             assert shared is not None
             self.instruments[f"load{k}"] = SimulatedElectronicLoad(
@@ -243,6 +264,8 @@ class SimulatedBench:
         ]
         for key, value in lim.__dict__.items():
             lines.append(f"{key} = {value!r}")
+        if self.thermal:
+            lines += [f"{key} = {value!r}" for key, value in THERMAL_LIMITS.items()]
         for role, resource in self.resources.items():
             lines += ["", f"[instruments.{role}]", f'driver = "{driver_for(role)}"', f'resource = "{resource}"',
                       "timeout_s = 2.0"]

@@ -77,8 +77,9 @@ def cmd_sim(args: argparse.Namespace) -> int:
             return EXIT_BAD_INPUT
         protocol = {r: "hislip" for r in roles}
     bench = SimulatedBench(args.model, time_scale=args.time_scale, seed=args.seed, base_port=args.base_port,
-                           thermal_drift=getattr(args, "thermal_drift", False), reading_time_s=reading_time,
-                           protocol=protocol, quirks=quirks)
+                           thermal_drift=True if getattr(args, "thermal_drift", False) else None,
+                           reading_time_s=reading_time, protocol=protocol, quirks=quirks,
+                           thermal=getattr(args, "thermal", False))
     bench.start()
     if specs:
         apply_fault_specs(bench, specs)

@@ -23,6 +23,13 @@ exponential for everything (soft-start or settle time constant).  Values are tru
 (noise-free); instruments add their own errors.  The truth functions for tests are
 ``steady_state`` (at the present temperature), ``terminals_at``/``mean_terminals``,
 ``temperature_c`` and ``true_settling_time_s``.  Thread-safe.
+
+Ambient and hot spots: the ambient is the design's until a thermal chamber's air is
+attached (``attach_chamber``, :class:`.thermal.ChamberAir`); from then on the lumped parts
+and each part's own node (:mod:`.component_thermal`: switch, rectifier, transformer of the
+flyback; switch, synchronous rectifier, inductor of the buck) follow that air.  The parts'
+nodes follow their share of the loss with their own time constants whether or not
+``thermal_drift`` is on (truth: ``component_temperatures_c``, ``component_losses_w``).
 """
 
 from __future__ import annotations
@@ -50,6 +57,8 @@ from .start_up import StartUp, StartUpInputs
 from .small_signal import RationalTF, closed_loop_output_impedance, control_chain, plant_gvd, plant_zout_open
 from .line_disturbance import LineInjection, LineStep, closed_loop_line_to_output, line_to_output_open
 from .thermal import ThermalState
+from .thermal import ChamberAir, ThermalState
+from .component_thermal import ComponentTemperatures, component_losses, network_for
 
 log = logging.getLogger(__name__)
 
@@ -64,6 +73,9 @@ RAMP_SAMPLES_MAX = 64
 #: Quantities ``true_settling_time_s`` knows, beyond the terminal vector.
 DERIVED_QUANTITIES = ("source_w", "input_w", "output_w", "load_w", "efficiency")
 _HISTORY = 64
+#: Spacing of the lumped temperatures at which the parts' loss shares are solved (K); linear in
+#: between, an error second order in the spacing (the shares are smooth in temperature).
+COMPONENT_GRID_K = 0.5
 #: Spacing of the temperatures at which a warming steady state is solved; between them the
 #: terminal targets and the loss are interpolated linearly (K).  The interpolation error is
 #: second order in this spacing: below 1e-7 of any quantity.
@@ -174,7 +186,10 @@ class ConverterModel:
         self._extra_output_c_f = 0.0
         self._aux_stage_a = 0.0
         t = self.clock.now_s()
-        self._thermal = ThermalState(design.thermal, t, enabled=thermal_drift)
+        self._chamber: ChamberAir | None = None
+        self._thermal = ThermalState(design.thermal, t, enabled=thermal_drift, ambient=self._ambient_at)
+        self._components = ComponentTemperatures(network_for(design), t, self._ambient_at)
+        self._component_cache: dict[tuple[float, int, int], dict[str, float]] = {}
         self._cache: tuple[float, float, BenchPoint] | None = None
         self._small_signal: dict[tuple, tuple[ImpedanceExcess | None, float]] = {}
         # line disturbances (line_disturbance): the sine injected on the line, recent line steps
@@ -271,6 +286,77 @@ class ConverterModel:
     def thermal_drift(self) -> bool:
         """Whether the parts warm with their loss (see module docstring)."""
         return self._thermal.enabled
+
+    # ---- ambient and hot spots ------------------------------------------------------
+    def attach_chamber(self, chamber: ChamberAir | None) -> None:
+        """Put the DUT in ``chamber``: from now on its air is the ambient (None: the design's again)."""
+        with self._lock:
+            now = self.clock.now_s()
+            self._temperature(now)
+            self._advance_components(now)
+            self._chamber = chamber
+            self._cache = None
+
+    @property
+    def chamber(self) -> ChamberAir | None:
+        return self._chamber
+
+    def _ambient_at(self, t_s: float) -> float:
+        chamber = getattr(self, "_chamber", None)
+        return self.design.thermal.ambient_c if chamber is None else chamber.air_c(t_s)
+
+    @property
+    def component_names(self) -> tuple[str, ...]:
+        """The parts with a hot-spot node (``component_temperatures_c`` keys)."""
+        return self._components.names
+
+    def component_temperatures_c(self, t_s: float | None = None) -> dict[str, float]:
+        """Each part's temperature (°C) at model time ``t_s`` (default now); truth for tests."""
+        with self._lock:
+            now = self.clock.now_s()
+            t = now if t_s is None else float(t_s)
+            self._temperature(min(t, now))
+            self._advance_components(min(t, now))
+            return self._components.temperatures_at(t)
+
+    def component_losses_w(self) -> dict[str, float]:
+        """Each part's loss now (W), at the present lumped temperature; truth for tests."""
+        with self._lock:
+            now = self.clock.now_s()
+            self._temperature(now)
+            return self._component_losses_at(now)
+
+    def _advance_components(self, t_s: float) -> None:
+        if t_s > self._components.latest_s:
+            self._components.advance(t_s, self._component_losses_at)
+
+    def _component_losses_at(self, t_s: float) -> dict[str, float]:
+        seg = self._segment_at(t_s)
+        if not seg.bench.op.running:
+            return component_losses(self.design, seg.bench.op)
+        if "overheat" in seg.faults:
+            temp = self._temperature(t_s)
+            op = self._solve_with(seg.source, seg.load, seg.faults, t_s, temp, was_running=True).op
+            return component_losses(self._design_at(temp), op)
+        if not self._thermal.enabled:        # the design's losses: the target of the settings
+            return component_losses(self.design, seg.bench.op)
+        x = self._thermal.temperature_at(t_s) / COMPONENT_GRID_K
+        k = math.floor(x)
+        w = x - k
+        p0, p1 = self._component_point(seg, k), self._component_point(seg, k + 1)
+        return {name: (1.0 - w) * p0[name] + w * p1[name] for name in p0}
+
+    def _component_point(self, seg: _Segment, k: int) -> dict[str, float]:
+        key = (seg.t0_s, id(seg), k)
+        hit = self._component_cache.get(key)
+        if hit is None:
+            temp = k * COMPONENT_GRID_K
+            op = self._solve_with(seg.source, seg.load, seg.faults, seg.t0_s, temp, was_running=True).op
+            hit = component_losses(self._design_at(temp), op)
+            if len(self._component_cache) > 4096:
+                self._component_cache.clear()
+            self._component_cache[key] = hit
+        return hit
 
     # ---- observation ----------------------------------------------------------------
     def terminals(self) -> Terminals:
@@ -382,8 +468,8 @@ class ConverterModel:
 
     @property
     def ambient_c(self) -> float:
-        """Ambient temperature, °C (the loss coefficients hold there)."""
-        return self.design.thermal.ambient_c
+        """Ambient temperature now, °C: the design's (where its loss coefficients hold) or the chamber air."""
+        return self._ambient_at(self.clock.now_s())
 
     @property
     def thermal_time_constant_s(self) -> float:
@@ -751,6 +837,7 @@ class ConverterModel:
     def _event(self, what: str, detail: str) -> None:
         t = self.clock.now_s()
         self._temperature(t)
+        self._advance_components(t)
         prev = self._segments[-1]
         present = tuple(float(x) for x in prev.transient.values_at(t, self._target_vector(prev, t))[:, 0])
         was_running = self._running
