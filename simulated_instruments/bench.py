@@ -24,6 +24,7 @@ from pathlib import Path
 from typing import Any
 
 from .converter import DESIGNS, ConverterModel, ScaledClock
+from .converter.protection import ProtectionFeatures
 from .instruments import SimulatedDcSource, SimulatedElectronicLoad, SimulatedPowerMeter
 from .instruments.loop_analyzer import SimulatedLoopAnalyzer
 from .instruments.accuracy import accuracy_toml
@@ -76,12 +77,25 @@ def limits_for(design: Any) -> BenchLimits:
     )
 
 
+def absolute_limits_for(design: Any) -> BenchLimits:
+    """The simulated bench's absolute limits: its wiring and instruments, well above the DUT's ratings
+    (twice the rated output current and voltage; the source as in operation, 1.5 × its current)."""
+    op = limits_for(design)
+    return BenchLimits(
+        source_voltage_max_v=op.source_voltage_max_v,
+        source_current_max_a=round(1.5 * op.source_current_max_a, 3),
+        dut_output_voltage_max_v=round(2.0 * design.vout_nom_v, 3),
+        load_current_max_a=round(2.0 * design.iout_rated_a, 3),
+        load_power_max_w=round(4.0 * design.vout_nom_v * design.iout_rated_a, 3),
+    )
+
+
 class SimulatedBench:
     """A converter model with a source, a load and two power meters served on loopback."""
 
     def __init__(self, model_name: str = "flyback-48v-5v", *, time_scale: float = 1.0, seed: int = 1,
                  base_port: int = 0, thermal_drift: bool = False, reading_time_s: float | None = None,
-                 extra_loads: int = 0) -> None:
+                 extra_loads: int = 0, dut_protection: bool = False) -> None:
         if model_name not in DESIGNS:
             raise ValueError(f"unknown converter model {model_name!r}; models: {', '.join(sorted(DESIGNS))}")
         aperture_s = DEFAULT_APERTURE_S if reading_time_s is None else float(reading_time_s)
@@ -90,7 +104,10 @@ class SimulatedBench:
         self.model_name = model_name
         self.design = DESIGNS[model_name]
         self.clock = ScaledClock(time_scale)
-        self.model = ConverterModel(self.design, clock=self.clock, seed=seed, thermal_drift=thermal_drift)
+        # dut_protection: the DUT's hiccup OCP and latching OVP (converter/protection.py); off, the
+        # model keeps its plain current limit and an open loop runs to its open-loop voltage
+        self.model = ConverterModel(self.design, clock=self.clock, seed=seed, thermal_drift=thermal_drift,
+                                    protection=ProtectionFeatures.for_design(self.design) if dut_protection else None)
         self.reading_time_s = aperture_s
         if not (isinstance(extra_loads, int) and 0 <= extra_loads <= 8):
             raise ValueError(f"extra_loads={extra_loads!r} must be a whole number from 0 to 8")
@@ -162,6 +179,10 @@ class SimulatedBench:
             "[limits]",
         ]
         for key, value in lim.__dict__.items():
+            lines.append(f"{key} = {value!r}")
+        # what the bench's wiring and instruments take: the most a procedure's test envelope may reach
+        lines += ["", "[limits.absolute]"]
+        for key, value in absolute_limits_for(self.design).__dict__.items():
             lines.append(f"{key} = {value!r}")
         for role, resource in self.resources.items():
             lines += ["", f"[instruments.{role}]", f'driver = "{driver_for(role)}"', f'resource = "{resource}"',
