@@ -360,6 +360,7 @@ class GuardedScope(Guarded):
             "bandwidth_limit_hz", "set_timebase", "set_record", "sample_interval_s", "set_trigger", "arm",
             "abort", "wait_acquired", "single", "set_data_format", "preamble", "fetch_waveform",
             "set_fixture_capacitance", "wait_triggered", "set_fixture_probe", "set_fixture_load_capacitance",
+            "set_fixture_input_capacitance", "set_fixture_input_connected",     # the hold-up fixture
         }
         if name not in allowed:
             raise AttributeError(f"{type(self).__name__} has no method {name!r}")

@@ -246,6 +246,8 @@ class Procedure:
     path: Path
     source_sha256: str
     module: ModuleType
+    # optional ``test_envelope(p) -> {limit: value}``: limits widened for this run (benchctl.test_envelope)
+    test_envelope: Callable[[Parameters], Mapping[str, float]] | None = None
 
     @property
     def required_roles(self) -> tuple[Role, ...]:
@@ -388,6 +390,7 @@ def load_procedure(name_or_path: str) -> Procedure:
         path=path,
         source_sha256=hashlib.sha256(source).hexdigest(),
         module=module,
+        test_envelope=getattr(module, "test_envelope", None),
     )
 
 

@@ -72,10 +72,10 @@ def _outputs_of(drivers: Mapping[str, Any], station: Station, kind: str) -> dict
     return {role: drivers[role] for role in station.roles_of_kind(kind) if role in drivers}
 
 
-def _program_protection(drivers: Mapping[str, Any], station: Station) -> None:
+def _program_protection(drivers: Mapping[str, Any], station: Station, limits: Any = None) -> None:
     """The instruments' own protection as a hardware second layer, and every output off
-    (every source, then every load)."""
-    lim = station.limits
+    (every source, then every load). ``limits``: the run's (a test envelope's), default the station's."""
+    lim = station.limits if limits is None else limits
     for driver in drivers.values():
         driver.reset()
     for source in _outputs_of(drivers, station, SOURCE_KIND).values():
@@ -126,13 +126,14 @@ def execute(
     station.require_roles(procedure.roles, needed_by=f"procedure {procedure.name}")
     roles = _roles_to_open(procedure, station)
     overdue = _calibration_check(station, roles, today=today or _dt.date.today(), notify=notify)
+    envelope = _test_envelope(procedure, params, station, notify)
     started = time.monotonic()
     if resume_run_id is not None and _resume_is_complete(store, procedure, params, resume_run_id):
         return _finish_complete_resume(store, procedure, params, resume_run_id, started)
     with StopSignals(notify=notify) as signals:
         with signals.interruptible():
             drivers = _open_instruments(station, roles)
-        interlock = _interlock_for(station)
+        interlock = _interlock_for(station, None if envelope is None else envelope.limits)
         interlock.attach_outputs(_outputs_of(drivers, station, SOURCE_KIND), _outputs_of(drivers, station, LOAD_KIND))
         signals.budget_s = interlock.shutdown_budget_s
         try:
@@ -152,6 +153,10 @@ def execute(
             try:
                 with signals.interruptible():
                     _record_calibration(writes, run_id, station, roles, overdue)
+                    if envelope is not None:
+                        writes.record_event(run_id, "test_envelope", envelope.caution(procedure.name), {
+                            "widened": {k: {"operating": a, "envelope": b} for k, (a, b) in envelope.widened.items()},
+                            "absolute": dict(vars(station.absolute_limits)) if station.absolute_limits else {}})
                     if on_begin is not None:
                         on_begin(run_id)
                     bench = _bench_for(writes, run_id, drivers, interlock, settle_enabled, progress, skip_points,
@@ -245,9 +250,23 @@ def _record_calibration(store: Any, run_id: int, station: Station, roles: tuple[
             {"instruments": overdue})
 
 
-def _interlock_for(station: Station) -> Interlock:
-    """The run's interlock with the station's limits, watch and shutdown options."""
-    return Interlock(station.limits, watch_period_s=station.watch_period_s,
+def _test_envelope(procedure: Procedure, params: Parameters, station: Station,
+                   notify: Callable[[str], None] | None) -> Any:
+    """The procedure's test envelope (benchctl.test_envelope), checked and told before anything opens."""
+    from benchctl.test_envelope import resolve_envelope
+
+    envelope = resolve_envelope(procedure, params, station)
+    if envelope is not None:
+        text = envelope.caution(procedure.name)
+        logger.warning("%s", text)
+        if notify is not None:
+            notify(text)
+    return envelope
+
+
+def _interlock_for(station: Station, limits: Any = None) -> Interlock:
+    """The run's interlock with the station's limits (or a test envelope's), watch and shutdown options."""
+    return Interlock(station.limits if limits is None else limits, watch_period_s=station.watch_period_s,
                      watch_deadline_s=station.watch_deadline_s, watch_missed_periods=station.watch_missed_periods,
                      shutdown_deadline_s=station.shutdown_deadline_s)
 
@@ -474,7 +493,7 @@ def _run_body(procedure: Procedure, params: Parameters, bench: Bench, drivers: M
               interlock: Interlock, station: Station, store: Any, run_id: int) -> tuple[str, str]:
     """Protect, watch, run the procedure; (status, message), with the cause stored as an event."""
     try:
-        _program_protection(drivers, station)
+        _program_protection(drivers, station, interlock.limits)
         interlock.start_watch()
         procedure.run(bench, params)
         interlock.raise_if_tripped()

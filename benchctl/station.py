@@ -207,6 +207,9 @@ class Station:
     text: str = ""
     dut_time_constant_s: float | None = None  # the DUT's dominant settling time constant, s (settling)
     calibration_overdue: str = "warn"  # an overdue instrument: "warn" (caution + event) or "refuse" the run
+    # [limits.absolute]: the most the bench takes; a procedure's test envelope may widen the
+    # operating limits up to these and no further (None: no envelope is allowed)
+    absolute_limits: StationLimits | None = None
 
     @property
     def accuracy(self) -> dict[str, InstrumentAccuracy]:
@@ -467,12 +470,54 @@ def parse_station(text: str, *, path: Path | None = None) -> Station:
     for key in sorted(set(data) - {"station", "limits", "instruments"}):
         problems.append(f"[{key}]: unknown table; expected [station], [limits], [instruments.<role>]")
     settings = _station_table(data.get("station"), problems)
-    limits = _limits_table(data.get("limits"), settings["hazardous_voltage_acknowledged"], problems)
+    limits_data = data.get("limits")
+    absolute_data = limits_data.get("absolute") if isinstance(limits_data, dict) else None
+    if isinstance(limits_data, dict) and "absolute" in limits_data:
+        limits_data = {k: v for k, v in limits_data.items() if k != "absolute"}
+    limits = _limits_table(limits_data, settings["hazardous_voltage_acknowledged"], problems)
+    absolute = _absolute_limits_table(absolute_data, limits, settings["hazardous_voltage_acknowledged"], problems)
     instruments = _instruments_table(data.get("instruments", {}), problems)
     if problems:
         raise StationFileError(f"{where}: {len(problems)} problem(s) in the station file", problems)
     assert limits is not None
-    return Station(limits=limits, instruments=instruments, path=path, text=text, **settings)
+    return Station(limits=limits, instruments=instruments, path=path, text=text, absolute_limits=absolute, **settings)
+
+
+def _absolute_limits_table(table: Any, limits: StationLimits | None, acknowledged: bool,
+                           problems: list[str]) -> StationLimits | None:
+    """``[limits.absolute]``: the bench's absolute limits; a key left out stays at its operating limit.
+    Each must be at least its operating limit."""
+    if table is None:
+        return None
+    if not isinstance(table, dict):
+        problems.append("limits.absolute: must be a table ([limits.absolute])")
+        return None
+    for key in sorted(set(table) - set(_LIMIT_KEYS)):
+        problems.append(f"limits.absolute.{key}: unknown key; known keys: {', '.join(_LIMIT_KEYS)}")
+    if limits is None:
+        return None
+    values: dict[str, float] = {}
+    for key in _LIMIT_KEYS:
+        operating = float(getattr(limits, key))
+        value = table.get(key, operating)
+        if not _positive_number(value):
+            problems.append(f"limits.absolute.{key}: {value!r} must be a positive number")
+            continue
+        if float(value) < operating:
+            problems.append(f"limits.absolute.{key}: {value!r} is below the operating limit limits.{key} = "
+                            f"{operating:g}; an absolute limit is the most the bench takes")
+            continue
+        values[key] = float(value)
+    if len(values) != len(_LIMIT_KEYS):
+        return None
+    absolute = StationLimits(**values)
+    if absolute.hazardous and not acknowledged:
+        problems.append(
+            f"station.hazardous_voltage_acknowledged: the absolute limits allow "
+            f"{max(absolute.source_voltage_max_v, absolute.dut_output_voltage_max_v):g} V, above "
+            f"{HAZARDOUS_DC_VOLTAGE_V:g} V DC (SELV/ES1 boundary, IEC 62368-1): read the README's "
+            "safety section, then set hazardous_voltage_acknowledged = true")
+    return absolute
 
 
 def _station_table(station: Any, problems: list[str]) -> dict[str, Any]:

@@ -132,6 +132,8 @@ class Oscilloscope(ScpiDriver):
         "get_done": "INIT:DONE?",
         "set_fixture_probe": "FIXT:PROB{channel} {word}",
         "set_fixture_load_capacitance": "FIXT:LOAD:CAP {value:.6g}",
+        "set_fixture_input_capacitance": "FIXT:INP:CAP {value:.6g}",
+        "set_fixture_input_connected": "FIXT:INP {state}",
     }
     #: Probe words of the simulated DUT fixture, by signal name.
     FIXTURE_PROBES: ClassVar[dict[str, str]] = {
@@ -406,6 +408,22 @@ class Oscilloscope(ScpiDriver):
         if not capacitance_f >= 0:
             raise UsageError(f"capacitance must be >= 0 F, got {capacitance_f!r}")
         self.write("set_fixture_load_capacitance", value=capacitance_f)
+
+    def set_fixture_input_capacitance(self, capacitance_f: float) -> None:
+        """Switch a bulk (hold-up) capacitor across the DUT input, F.
+
+        On the simulated bench a command of the simulated fixture; a real station with a
+        relay-switched capacitor overrides ``set_fixture_input_capacitance``.
+        """
+        if not capacitance_f >= 0:
+            raise UsageError(f"capacitance must be >= 0 F, got {capacitance_f!r}")
+        self.write("set_fixture_input_capacitance", value=capacitance_f)
+
+    def set_fixture_input_connected(self, connected: bool) -> None:
+        """Close (True) or open the series switch between the source and the DUT input: opening it
+        while the DUT runs drops the input out with nothing sinking current from the DUT's bulk
+        capacitance (a hold-up test). A real station overrides it with its relay or MOSFET switch."""
+        self.write("set_fixture_input_connected", state="ON" if connected else "OFF")
 
     def safe_state(self) -> None:
         """A scope drives nothing; abort a pending acquisition."""

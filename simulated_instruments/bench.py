@@ -46,6 +46,7 @@ from typing import Any
 from .converter import DESIGNS, ConverterModel, ScaledClock
 from .converter.designs import SECOND_OUTPUTS
 from .converter.second_output import SecondOutput
+from .converter.protection import ProtectionFeatures
 from .instruments import SimulatedDcSource, SimulatedElectronicLoad, SimulatedPowerMeter
 from .instruments.loop_analyzer import SimulatedLoopAnalyzer
 from .instruments.accuracy import accuracy_toml
@@ -119,6 +120,19 @@ def limits_for(design: Any) -> BenchLimits:
     )
 
 
+def absolute_limits_for(design: Any) -> BenchLimits:
+    """The simulated bench's absolute limits: its wiring and instruments, well above the DUT's ratings
+    (twice the rated output current and voltage; the source as in operation, 1.5 × its current)."""
+    op = limits_for(design)
+    return BenchLimits(
+        source_voltage_max_v=op.source_voltage_max_v,
+        source_current_max_a=round(1.5 * op.source_current_max_a, 3),
+        dut_output_voltage_max_v=round(2.0 * design.vout_nom_v, 3),
+        load_current_max_a=round(2.0 * design.iout_rated_a, 3),
+        load_power_max_w=round(4.0 * design.vout_nom_v * design.iout_rated_a, 3),
+    )
+
+
 class SimulatedBench:
     """A converter model with a source, a load and two power meters served on loopback."""
 
@@ -126,7 +140,8 @@ class SimulatedBench:
                  base_port: int = 0, thermal_drift: bool | None = None, reading_time_s: float | None = None,
                  extra_loads: int = 0, protocol: str | Mapping[str, str] = "socket",
                  quirks: Mapping[str, Iterable[str] | Quirks] | None = None, generator: bool = False,
-                 coupling_v_per_v: float = 1.0, duts: int = 1, thermal: bool = False) -> None:
+                 coupling_v_per_v: float = 1.0, duts: int = 1, thermal: bool = False,
+                 dut_protection: bool = False) -> None:
         if model_name not in DESIGNS:
             raise ValueError(f"unknown converter model {model_name!r}; models: {', '.join(sorted(DESIGNS))}")
         aperture_s = DEFAULT_APERTURE_S if reading_time_s is None else float(reading_time_s)
@@ -140,12 +155,17 @@ class SimulatedBench:
         if not (isinstance(duts, int) and 1 <= duts <= 16):
             raise ValueError(f"duts={duts!r} must be a whole number from 1 to 16")
         self.duts = duts
+        # dut_protection: the DUT's hiccup OCP and latching OVP (converter/protection.py); off, the
+        # model keeps its plain current limit and an open loop runs to its open-loop voltage
+        protection = ProtectionFeatures.for_design(self.design) if dut_protection else None
         if duts > 1:   # several DUTs behind a switch matrix (dut_selector)
             self.dut_models = [ConverterModel(self.design, clock=self.clock, seed=seed + 100 * k,
-                                              thermal_drift=drift) for k in range(duts)]
+                                              thermal_drift=drift, protection=protection)
+                               for k in range(duts)]
             self.model = DutSelector(self.dut_models, ConverterModel(self.design, clock=self.clock, seed=seed))
         else:
-            self.model = ConverterModel(self.design, clock=self.clock, seed=seed, thermal_drift=drift)
+            self.model = ConverterModel(self.design, clock=self.clock, seed=seed, thermal_drift=drift,
+                                        protection=protection)
             self.dut_models = [self.model]
         self.reading_time_s = aperture_s
         if not (isinstance(extra_loads, int) and 0 <= extra_loads <= 8):
@@ -266,6 +286,10 @@ class SimulatedBench:
             lines.append(f"{key} = {value!r}")
         if self.thermal:
             lines += [f"{key} = {value!r}" for key, value in THERMAL_LIMITS.items()]
+        # what the bench's wiring and instruments take: the most a procedure's test envelope may reach
+        lines += ["", "[limits.absolute]"]
+        for key, value in absolute_limits_for(self.design).__dict__.items():
+            lines.append(f"{key} = {value!r}")
         for role, resource in self.resources.items():
             lines += ["", f"[instruments.{role}]", f'driver = "{driver_for(role)}"', f'resource = "{resource}"',
                       "timeout_s = 2.0"]

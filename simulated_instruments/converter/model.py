@@ -54,6 +54,7 @@ from .margins import LoopTruth, loop_margins
 from .operating_point import (FAULT_NAMES, BenchPoint, LoadMode, LoadSetting, OperatingPoint, SourceSetting,
                               solve_bench, solve_dut)
 from .start_up import StartUp, StartUpInputs
+from .protection import Hiccup, HoldUp, OvpTrip, ProtectionFeatures, latched_bench, protection_transient
 from .small_signal import RationalTF, closed_loop_output_impedance, control_chain, plant_gvd, plant_zout_open
 from .line_disturbance import LineInjection, LineStep, closed_loop_line_to_output, line_to_output_open
 from .thermal import ThermalState
@@ -173,7 +174,7 @@ class ConverterModel:
     """
 
     def __init__(self, design: ConverterDesign, clock: ModelClock | None = None, seed: int = 0, *,
-                 thermal_drift: bool = False) -> None:
+                 thermal_drift: bool = False, protection: ProtectionFeatures | None = None) -> None:
         self.design = design
         self.clock: ModelClock = ScaledClock() if clock is None else clock
         self.rng = np.random.default_rng(seed)
@@ -185,6 +186,12 @@ class ConverterModel:
         self._running = False
         self._extra_output_c_f = 0.0
         self._aux_stage_a = 0.0
+        # protection and hold-up (protection.py): the DUT's features (None: a plain current
+        # limit, no OVP), the OVP latch, the fixture's dropout switch and bulk capacitor
+        self._protection = protection
+        self._ovp_latched = False
+        self._input_connected = True
+        self._extra_input_c_f = 0.0
         t = self.clock.now_s()
         self._chamber: ChamberAir | None = None
         self._thermal = ThermalState(design.thermal, t, enabled=thermal_drift, ambient=self._ambient_at)
@@ -246,6 +253,55 @@ class ConverterModel:
         """Output capacitance a start charges: the design's bank plus the fixture's, F."""
         with self._lock:
             return self.design.stage.c_out_f + self._extra_output_c_f
+
+    # ---- protection and hold-up (protection.py) ----------------------------------------
+    @property
+    def protection(self) -> ProtectionFeatures | None:
+        """The DUT's protection features (hiccup OCP, latching OVP), or None."""
+        return self._protection
+
+    def set_input_connected(self, connected: bool) -> None:
+        """Close or open the fixture's series switch between the source and the DUT input.
+
+        Opened while the converter runs, the input capacitance holds the converter up
+        (``protection.HoldUp``): a dropout of the input, nothing sinking current from it.
+        """
+        with self._lock:
+            self._input_connected = bool(connected)
+            self._event("fixture", f"input {'connected' if connected else 'disconnected'}")
+
+    @property
+    def input_connected(self) -> bool:
+        """Whether the fixture's dropout switch connects the source to the DUT input."""
+        with self._lock:
+            return self._input_connected
+
+    def set_input_capacitance(self, capacitance_f: float) -> None:
+        """Bulk capacitance the fixture adds at the DUT input (a hold-up capacitor), F (≥ 0)."""
+        if not (math.isfinite(capacitance_f) and capacitance_f >= 0.0):
+            raise SettingError(f"set_input_capacitance: capacitance_f={capacitance_f!r} must be a finite value >= 0 F")
+        with self._lock:
+            self._extra_input_c_f = float(capacitance_f)
+
+    @property
+    def input_capacitance_f(self) -> float:
+        """Capacitance at the DUT input that a dropout discharges: the DUT's plus the fixture's, F."""
+        with self._lock:
+            return self.design.start_up.input_capacitance_f + self._extra_input_c_f
+
+    @property
+    def ovp_latched(self) -> bool:
+        """Whether the over-voltage protection holds the DUT off."""
+        with self._lock:
+            return self._ovp_latched
+
+    def protection_truth(self) -> Hiccup | OvpTrip | HoldUp | None:
+        """The latest hiccup, OVP trip or hold-up transient (its times and levels), or None; for tests."""
+        with self._lock:
+            for seg in reversed(self._segments):
+                if isinstance(seg.transient, (Hiccup, OvpTrip, HoldUp)):
+                    return seg.transient
+            return None
 
     def start_up_truth(self) -> StartUp | None:
         """The start in force (its UVLO crossing, switching start, inputs), or None; for tests."""
@@ -753,8 +809,14 @@ class ConverterModel:
         return solve_bench(self._design_at(temp_c), source, load, was_running=was_running, faults=faults,
                            extra_loss_w=extra, aux_stage_a=self._aux_stage_a)
 
+    def _effective_source(self) -> SourceSetting:
+        """The source as the DUT sees it: off while the fixture's dropout switch is open."""
+        if self._input_connected:
+            return self._source
+        return SourceSetting(0.0, self._source.current_limit_a, False)
+
     def _solve(self, t_s: float, was_running: bool) -> BenchPoint:
-        return self._solve_with(self._source, self._load, tuple(sorted(self._faults)), t_s,
+        return self._solve_with(self._effective_source(), self._load, tuple(sorted(self._faults)), t_s,
                                 self._temperature(t_s), was_running)
 
     def _moving(self, seg: _Segment) -> bool:
@@ -842,7 +904,7 @@ class ConverterModel:
         present = tuple(float(x) for x in prev.transient.values_at(t, self._target_vector(prev, t))[:, 0])
         was_running = self._running
         self._cache = None
-        bench = self._solve(t, was_running)
+        bench = latched_bench(self, self._solve(t, was_running))    # protection.py: the OVP latch
         self._running = bench.op.running
         transient: Transient | StartUp | None = None
         if (what in ("source", "load") and was_running and prev.bench.op.state == "regulating"
@@ -860,7 +922,9 @@ class ConverterModel:
                 else:
                     tau = self.design.bench.settle_tau_s
                 transient = Relaxation(t, tau, present, _vector(bench))
-        self._segments.append(_Segment(t, transient, bench, self._source, self._load, tuple(sorted(self._faults))))
+        transient = protection_transient(self, t, present, prev, bench, was_running, transient)
+        self._segments.append(_Segment(t, transient, bench, self._effective_source(), self._load,
+                                       tuple(sorted(self._faults))))
         if not isinstance(transient, RegulatedTransient):
             self._line_steps.clear()       # a start, stop or fault: the scope reads the series then
         if self._injection is not None:   # the sine's answer at the new operating point

@@ -163,6 +163,12 @@ class SimulatedOscilloscope(ScpiInstrument):
         self.add_command("FIXTure:LOAD:CAPacitance", setter=self._set_load_capacitance,
                          getter=lambda: self.model.output_capacitance_f - self.model.design.stage.c_out_f,
                          params=[Numeric(unit="F", minimum=0.0, maximum=1.0, default=0.0)])
+        # the hold-up fixture: a bulk capacitor at the DUT input and a dropout switch in series with it
+        self.add_command("FIXTure:INPut:CAPacitance", setter=self._set_input_capacitance,
+                         getter=lambda: self.model.input_capacitance_f - self.model.design.start_up.input_capacitance_f,
+                         params=[Numeric(unit="F", minimum=0.0, maximum=1.0, default=0.0)])
+        self.add_command("FIXTure:INPut[:STATe]", setter=self._set_input_connected,
+                         getter=lambda: self.model.input_connected, params=[Boolean()])
         self.add_command("FIXTure:CAPacitance", setter=self._set_attr("fixture_c_f"),
                          getter=lambda: self.fixture_c_f, params=[Numeric(unit="F", minimum=0.0, maximum=10e-9,
                                                                           default=0.0)])
@@ -192,6 +198,8 @@ class SimulatedOscilloscope(ScpiInstrument):
 
     def on_reset(self) -> None:
         self._reset_state()
+        if not self.model.input_connected:      # the hold-up fixture's switch closes at a reset
+            self.model.set_input_connected(True)
 
     def _setter(self, attr: str):
         def set_(value, n: int) -> None:
@@ -243,6 +251,14 @@ class SimulatedOscilloscope(ScpiInstrument):
     def _set_load_capacitance(self, value: float) -> None:
         self.model.set_output_capacitance(value)
         self.audit_state("fixture_load_capacitance_f", value)
+
+    def _set_input_capacitance(self, value: float) -> None:
+        self.model.set_input_capacitance(value)
+        self.audit_state("fixture_input_capacitance_f", value)
+
+    def _set_input_connected(self, on: bool) -> None:
+        self.model.set_input_connected(on)
+        self.audit_state("fixture_input_connected", bool(on))
 
     def _set_probe(self, word: str, n: int) -> None:
         self._ch[n].signal = _PROBE_WORDS[word]
