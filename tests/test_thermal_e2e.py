@@ -30,7 +30,12 @@ def thermal_bench():
 
 
 def _station(bench, tmp_path):
-    return load_station(bench.write_station(tmp_path / "thermal-station.toml"))
+    path = bench.write_station(tmp_path / "thermal-station.toml")
+    # These tests are about the thermal figures, not the watch's timing: a thermal model at 1000x is
+    # compute-bound (a steady state per 0.05 K of warming), and on a starved 2-core machine the simulated
+    # instruments (in this test process) can miss a few watch periods, which would trip the run first.
+    path.write_text(path.read_text().replace("watch_period_s = ", "watch_missed_periods = 20\nwatch_period_s = ", 1))
+    return load_station(path)
 
 
 def test_temperature_meter_reads_the_truth_at_time_scale_1(thermal_bench, tmp_path):
