@@ -263,7 +263,7 @@ class LoopAnalyzer(ScpiDriver):
     def stop_activity(self) -> None:
         """At a run's shutdown: abort any sweep, so the injection stops (one message, not retried,
         no error check: it must not delay the shutdown of a hung instrument)."""
-        self.send(self.command("abort_sweep"))
+        self.send_at_shutdown(self.command("abort_sweep"))
 
     def sweep_running(self) -> bool:
         answer = self.query_float("operation_condition")

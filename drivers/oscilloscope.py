@@ -256,7 +256,7 @@ class Oscilloscope(ScpiDriver):
 
     def stop_activity(self) -> None:
         """At a run's shutdown: abort a pending acquisition (one message, not retried, no error check)."""
-        self.send(self.command("abort"))
+        self.send_at_shutdown(self.command("abort"))
 
     def wait_acquired(self, timeout_s: float = 10.0) -> None:
         """Block until the armed acquisition is complete (``*OPC?``)."""

@@ -289,6 +289,14 @@ class ScpiDriver:
         """Send one program message (no error check)."""
         self._exchange(text, lambda s: s.write(text))
 
+    def send_at_shutdown(self, text: str) -> None:
+        """Send one program message at a run's shutdown: over the session, or over a fresh one
+        when an interrupt dropped it (no identity check, no retry, no error check)."""
+        with self._lock:
+            if self._session is None and self._wanted_open:
+                self._session = self._connect(min(self.timeout_s, DEFAULT_OFF_DEADLINE_S))
+        self.send(text)
+
     def ask(self, text: str) -> str:
         """Send a query and return its answer line (no error check)."""
         answer = self._exchange(text, lambda s: s.query(text))
@@ -623,7 +631,8 @@ class ScpiDriver:
             try:
                 answer = self.ask(command)
             finally:
-                session.timeout_s = previous
+                if self._session is session:  # an interrupt drops (closes) the session: nothing to restore
+                    session.timeout_s = previous
         if not operation_complete(answer):
             raise InstrumentResponseError(f"{command!r} answered {answer!r}, expected 1 (or +1, 1.0)",
                                           instrument=self.name, command=command)

@@ -210,3 +210,28 @@ def test_second_and_third_ctrl_c_do_not_cut_the_shutdown_short(simulated_bench, 
     # plus a little; bounded here with generous slack for a loaded machine.
     assert load_off.t_s - t_signal < 0.5 + 5.0
 
+
+
+def test_sigterm_during_a_loop_sweep_aborts_the_injection(simulated_bench, tmp_path):
+    """A SIGTERM mid-sweep: outputs off, then the analyzer's sweep (its injection) aborted; exit 143."""
+    bench = simulated_bench("flyback-48v-5v", time_scale=1.0)
+    proc, db, err = _start_run(bench, tmp_path, ["vin_v=48", "load_pct=50", "points=201", "bandwidth_hz=5"],
+                               procedure="loop_gain")
+    analyzer = bench.instruments["analyzer"]
+    try:
+        _wait_for(lambda: any(e.kind == "command" and e.text == "INIT" for e in analyzer.audit.entries()), proc,
+                  "the analyzer's sweep to start")
+        t_signal = time.monotonic()
+        proc.send_signal(signal.SIGTERM)
+        proc.wait(timeout=EXIT_TIMEOUT_S)
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+            proc.wait()
+    assert proc.returncode == ExitCode.TERMINATED, err.read_text()
+    _check_interrupted(db, "SIGTERM")
+    _check_outputs_off_in_order(bench, t_signal)
+    abort = _first_command_after(bench, "analyzer", "ABOR", t_signal)
+    assert abort is not None, "the analyzer's sweep was not aborted at the shutdown"
+    source_off = _first_state_after(bench, "source", "output", False, t_signal)
+    assert source_off is not None and source_off.t_s <= abort.t_s  # the outputs first, then the injection
