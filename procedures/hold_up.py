@@ -36,6 +36,9 @@ PARAMETERS = [
     Parameter("vin_channel", "", 2, minimum=1, maximum=8, kind="int", help="scope channel on the DUT input"),
     Parameter("settle_s", "s", 0.3, minimum=0.0, maximum=600.0, help="wait after a start before the dropout"),
     Parameter("acquire_timeout_s", "s", 10.0, minimum=0.1, maximum=600.0, help="longest wait for the trigger"),
+    Parameter("settle_rel_tol", "", 1e-3, minimum=0.0, maximum=0.1, help="settle: relative residual of Pin"),
+    Parameter("settle_abs_tol_w", "W", 5e-3, minimum=0.0, maximum=100.0, help="settle: absolute residual of Pin"),
+    Parameter("settle_timeout_s", "s", 10.0, minimum=0.0, maximum=600.0, help="settle: give up (point unsettled)"),
 ]
 
 
@@ -67,7 +70,11 @@ def run(bench, p: Parameters) -> None:
             scope.set_fixture_input_connected(True)
             scope.set_fixture_input_capacitance(p.holdup_capacitance_f)
             bench.power_up(p.vin_v, point["iout_set_a"], startup_delay_s=p.settle_s)
-            p_in = meter.measure_power()
+            # P_in sets the energy estimate: read it settled (a start's load ramp and the bulk
+            # capacitor's charge are still moving it after the start-up wait), the verdict stored.
+            settled = bench.settle_readings({"pin_w": meter.measure_power}, rel_tol=p.settle_rel_tol,
+                                            abs_tol=p.settle_abs_tol_w, timeout_s=p.settle_timeout_s)
+            p_in = float(settled.final_value)
             _screen(scope, p.vout_channel, 1.2 * p.vout_nominal_v)
             _screen(scope, p.vin_channel, 1.2 * p.vin_v)
             scope.set_record(p.record_s, p.points, pre_trigger_s=p.pre_trigger_s)
@@ -85,7 +92,8 @@ def run(bench, p: Parameters) -> None:
                       "energy_hold_up_s": energy_s,
                       "hold_up_to_energy": hold / energy_s if energy_s and math.isfinite(energy_s) else math.nan,
                       "clipped_samples": float(vo.clipped_samples + vi.clipped_samples)}
-            seq = bench.record(values, units={"hold_up_to_energy": "", "clipped_samples": ""}, tag="hold_up")
+            seq = bench.record(values, units={"hold_up_to_energy": "", "clipped_samples": ""}, settle=settled,
+                               tag="hold_up")
             bench.record_array("waveform", {"t_s": vo.t_s, "vout_v": vo.values, "vin_v": vi.values}, point_seq=seq,
                                meta={"kind": "hold_up", "dropout_s": m.dropout_s, "exit_s": m.exit_s,
                                      "band_v": p.band_v, "reason": m.reason})

@@ -8,11 +8,7 @@ from benchctl.procedure import load_procedure
 from benchctl.runner import execute
 
 
-# Known open bug (not yet found): at time scale 1 the measured hold-up is sometimes a fraction of the
-# energy estimate (one run of the same settings gave 1.016, others 0.08-0.2); left visible, not hidden.
-@pytest.mark.xfail(reason="hold-up e2e intermittently measures a short hold-up; open bug, see the report",
-                   strict=False)
-@pytest.mark.parametrize("time_scale", [1.0])
+@pytest.mark.parametrize("time_scale", [1.0, 20.0])
 def test_hold_up_matches_the_model_and_the_stored_energy(simulated_bench, station_for, benchctl_store, time_scale):
     bench = simulated_bench("flyback-48v-5v", time_scale=time_scale)
     proc = load_procedure("hold_up")
@@ -24,13 +20,12 @@ def test_hold_up_matches_the_model_and_the_stored_energy(simulated_bench, statio
     for _, row in pts.iterrows():
         # within 5 % of the energy balance ½·C·(V1² − V2²) = P·t (common practice; the criterion)
         assert row["hold_up_to_energy"] == pytest.approx(1.0, abs=0.05), row.to_dict()
-    # Truth: the last dropout in the model (5 A): input reaches the UVLO off threshold at stop_s, then the
-    # output relaxes with settle_tau from v_reg and leaves the 0.25 V band after tau·ln(v/(v−0.25)).
-    import math
+    # Truth: the last dropout in the model (5 A CC): the input reaches the UVLO off threshold at stop_s, then
+    # the output capacitance drains into the load at a constant rate and leaves the 0.25 V band after
+    # C_out·0.25 V / 5 A (the capacitor law i = C·dv/dt, handbook).
     hold = bench.model.protection_truth()
     d = bench.design
-    v_reg = hold.vout_grid_v[0]
-    truth = hold.stop_s - hold.t0_s + d.bench.settle_tau_s * math.log(v_reg / (v_reg - 0.25))
+    truth = hold.stop_s - hold.t0_s + d.stage.c_out_f * 0.25 / 5.0
     last = pts.iloc[-1]
     # tolerance 3 %: the dropout from the v² fit (scope noise), the 1 µs sample grid, the band crossing on noise
     assert last["hold_up_s"] == pytest.approx(truth, rel=0.03)

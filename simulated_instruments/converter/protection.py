@@ -26,9 +26,10 @@ runs to the open-loop voltage) protects itself as controllers of this class do
   ``ConverterModel.set_input_connected``) the input capacitance — the DUT's own plus a
   fixture's bulk capacitor — feeds the running converter: C·v·dv/dt = −P_in(v) −
   v²/R_bleed, P_in(v) the DUT's input power at input v (its efficiency at that line).  The
-  output stays regulated until v reaches the UVLO off threshold; then it stops (the output
-  relaxes to zero with the model's stop time constant, as every stop of the model does),
-  and the input runs down through the start-up bleed resistor.
+  output stays regulated until v reaches the UVLO off threshold; then it stops: the output
+  capacitance discharges into the load, C_out·dv/dt = −i_load(v) (a CC load drains it at a
+  constant rate, a CR load exponentially with R·C_out), and the input runs down through the
+  start-up bleed resistor.
 
 Each is integrated on a grid (explicit Euler, the step well inside the fastest time
 constant C·v_min/I of the load) and read back by interpolation, so the scope and the
@@ -341,6 +342,7 @@ class HoldUp:
     start: tuple[float, ...]
     settle_tau_s: float
     source_v: float
+    output: _Output | None = None
     _grid: dict = field(default_factory=dict, init=False, repr=False, compare=False)
 
     def __post_init__(self) -> None:
@@ -354,6 +356,14 @@ class HoldUp:
         integrand = self.c_in_f * v / p
         t = np.concatenate([[0.0], np.cumsum(0.5 * (integrand[1:] + integrand[:-1]) * -np.diff(v))])
         self._grid.update(t=t, v=v, p=p, t_stop=float(t[-1]))
+        if self.output is not None:   # after the stop: C_out·dv/dt = −i_load(v), the converter off
+            v_stop = float(np.interp(self.uvlo_off_v, vg, np.asarray(self.vout_grid_v)))
+            out = self.output
+            i0 = float(load_current(out.mode, out.setting, out.enabled, np.array([v_stop]), out.v_min,
+                                    out.short_ohm)[0][0])
+            drain_s = 5.0 * out.c_f * v_stop / i0 if i0 > 0.0 else 5.0 * self.settle_tau_s
+            phase = _phase(out, v_stop, drain_s, False, _steps_for(out, drain_s))
+            self._grid.update(discharge_t=phase["t"], discharge_v=phase["v"])
 
     @property
     def stop_s(self) -> float:
@@ -402,10 +412,20 @@ class HoldUp:
         out[INPUT_A] = np.where(running, p / np.maximum(v_in, 1e-9), 0.0) + v_in * g_bleed
         v_reg = np.interp(v_in, vg, np.asarray(self.vout_grid_v))
         v_at_stop = float(np.interp(self.uvlo_off_v, vg, np.asarray(self.vout_grid_v)))
-        decay = np.exp(-np.maximum(dt - g["t_stop"], 0.0) / self.settle_tau_s)
-        vout = np.where(running, v_reg, v_at_stop * decay)
+        after_stop = np.maximum(dt - g["t_stop"], 0.0)
+        if "discharge_t" in g:
+            stopped = np.interp(after_stop, g["discharge_t"], g["discharge_v"])
+        else:
+            stopped = v_at_stop * np.exp(-after_stop / self.settle_tau_s)
+        vout = np.where(running, v_reg, stopped)
         scale = np.divide(vout, self.start[OUTPUT_V], out=np.zeros_like(vout), where=self.start[OUTPUT_V] > 0)
         out[OUTPUT_V] = vout
+        if self.output is not None:   # the load's own current at the falling output
+            o = self.output
+            i_out, i_load = load_current(o.mode, o.setting, o.enabled, vout, o.v_min, o.short_ohm)
+            out[OUTPUT_A] = np.where(running, self.start[OUTPUT_A], i_out)
+            out[LOAD_A] = np.where(running, self.start[LOAD_A], i_load)
+            return out
         out[OUTPUT_A] = np.where(running, self.start[OUTPUT_A], self.start[OUTPUT_A] * scale)
         out[LOAD_A] = np.where(running, self.start[LOAD_A], self.start[LOAD_A] * scale)
         return out
@@ -495,4 +515,5 @@ def _hold_up(model: Any, t: float, present: tuple[float, ...]) -> HoldUp:
     p_conv = [o.pin_w - (0.0 if math.isinf(bleed) else float(v) ** 2 / bleed) for o, v in zip(ops, grid)]
     return HoldUp(t, d.start_up.input_capacitance_f + model._extra_input_c_f, v0, d.protection.uvlo_off_v, bleed,
                   tuple(float(v) for v in grid), tuple(float(p) for p in p_conv),
-                  tuple(o.vout_v for o in ops), present, d.bench.settle_tau_s, model._source.voltage_v)
+                  tuple(o.vout_v for o in ops), present, d.bench.settle_tau_s, model._source.voltage_v,
+                  output_side(model, model.output_capacitance_f))
