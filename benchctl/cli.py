@@ -69,6 +69,16 @@ def _add_bench_commands(sub: Any) -> None:
     p.add_argument("--thermal", action="store_true",
                    help="put the DUT in a thermal chamber (role chamber) with a temperature meter (role temp_meter); "
                         "turns thermal drift on")
+    p.add_argument("--generator", action="store_true",
+                   help="add a function generator (role generator) coupled into the DUT's input line through an "
+                        "injection transformer (line rejection, line transients)")
+    p.add_argument("--coupling", type=float, default=1.0, metavar="V_PER_V",
+                   help="the injection transformer's ratio, V at the DUT input per V at the generator (default 1)")
+    p.add_argument("--duts", type=int, default=1, metavar="N",
+                   help="N DUTs of the model behind a switch matrix (role mux; channel n connects DUT n)")
+    p.add_argument("--dut-protection", action="store_true",
+                   help="give the DUT its protection: hiccup over-current and a latching over-voltage trip "
+                        "(for the protection procedures; without it the model has a plain current limit)")
     p.add_argument("--reading-time", type=float, default=None, metavar="S",
                    help="aperture of every meter, source and load reading in seconds (default 0.02, "
                         "one 50 Hz line cycle)")

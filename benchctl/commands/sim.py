@@ -64,6 +64,12 @@ def cmd_sim(args: argparse.Namespace) -> int:
     except QuirkError as exc:
         error_console().print(f"[bold red]error:[/] {escape(str(exc))}", soft_wrap=True)
         return EXIT_BAD_INPUT
+    duts = getattr(args, "duts", 1)
+    coupling = getattr(args, "coupling", 1.0)
+    if not 1 <= duts <= 16 or not 0.0 < coupling <= 100.0:
+        error_console().print(f"[bold red]error:[/] --duts {duts} must be 1 … 16 and --coupling {coupling:g} V/V "
+                              "within 0 … 100")
+        return EXIT_BAD_INPUT
     hislip = getattr(args, "hislip", None)
     protocol: str | dict[str, str] = "socket"
     if hislip == "all":
@@ -79,7 +85,9 @@ def cmd_sim(args: argparse.Namespace) -> int:
     bench = SimulatedBench(args.model, time_scale=args.time_scale, seed=args.seed, base_port=args.base_port,
                            thermal_drift=True if getattr(args, "thermal_drift", False) else None,
                            reading_time_s=reading_time, protocol=protocol, quirks=quirks,
-                           thermal=getattr(args, "thermal", False))
+                           thermal=getattr(args, "thermal", False), generator=getattr(args, "generator", False),
+                           coupling_v_per_v=getattr(args, "coupling", 1.0), duts=getattr(args, "duts", 1),
+                           dut_protection=getattr(args, "dut_protection", False))
     bench.start()
     if specs:
         apply_fault_specs(bench, specs)
