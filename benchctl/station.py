@@ -36,6 +36,12 @@ Roles: any name (a letter, then letters, digits or ``_``). ``source``, ``load``,
 ``kind = "power_meter"`` (checked against the driver). Every role of kind ``dc_source`` or
 ``electronic_load`` is protected, watched and switched off by the interlock.
 
+VISA library: ``visa_library`` in ``[station]`` (default ``"@py"``, pyvisa-py) and per
+instrument (overrides it): ``"@py"``, ``"@ivi"`` (a vendor VISA found by pyvisa), another
+pyvisa backend ``"@name"`` (package ``pyvisa-name``), or the path of a vendor library.
+Interface options (``read_termination``, ``baud_rate`` ...) are driver options, checked
+with the rest; the serial ones only on ``ASRL`` resources.
+
 Calibration: ``calibration_due = 2027-03-31`` (a TOML date) and ``calibration_certificate
 = "..."`` per instrument; ``[station] calibration_overdue = "warn"`` (default: a caution
 and a stored event) or ``"refuse"`` (the run is refused before anything is opened) says
@@ -162,6 +168,7 @@ class InstrumentConfig:
     kind: str = ""  # the driver kind of this role ("" only for configs built in code: see effective_kind)
     calibration_due: _dt.date | None = None  # the date the instrument's calibration expires
     calibration_certificate: str = ""  # the certificate (report) id of its last calibration
+    visa_library: str = "@py"  # the VISA library that reaches it (the instrument's, else [station]'s)
 
     @property
     def effective_kind(self) -> str:
@@ -182,12 +189,14 @@ class InstrumentConfig:
     def create(self) -> Any:
         """A driver object for this instrument (not yet opened)."""
         cls = load_driver_class(self.driver)
+        extra = {} if self.visa_library == DEFAULT_VISA_LIBRARY else {"visa_library": self.visa_library}
         return cls(
             self.resource,
             name=self.role,
             timeout_s=self.timeout_s,
             commands=dict(self.commands),
             options=dict(self.options),
+            **extra,
         )
 
 
@@ -210,6 +219,7 @@ class Station:
     # [limits.absolute]: the most the bench takes; a procedure's test envelope may widen the
     # operating limits up to these and no further (None: no envelope is allowed)
     absolute_limits: StationLimits | None = None
+    visa_library: str = "@py"  # the VISA library of instruments that name none
 
     @property
     def accuracy(self) -> dict[str, InstrumentAccuracy]:
@@ -274,8 +284,45 @@ _LIMIT_KEYS = [f.name for f in fields(StationLimits) if f.name not in OPTIONAL_L
 _STATION_KEYS = {"name", "description", "watch_period_s", "hazardous_voltage_acknowledged", "database",
                  "dut_time_constant_s", "calibration_overdue"}
 _STATION_KEYS |= {"watch_deadline_s", "watch_missed_periods", "shutdown_deadline_s"}
+_STATION_KEYS |= {"visa_library"}
 _INSTRUMENT_KEYS = {"driver", "resource", "timeout_s", "options", "commands", "accuracy", "kind",
                     "calibration_due", "calibration_certificate"}
+_INSTRUMENT_KEYS |= {"visa_library"}
+DEFAULT_VISA_LIBRARY = "@py"
+#: Options of a serial line, refused on resources that are not ASRL.
+SERIAL_OPTIONS = ("baud_rate", "data_bits", "parity", "stop_bits", "flow_control")
+
+
+def _visa_library_problem(key: str, value: Any) -> str | None:
+    """Why ``value`` cannot be a VISA library (checked at load, without loading it), or None."""
+    if not isinstance(value, str) or not value.strip():
+        return (f"{key}: {value!r} must be \"@py\" (pyvisa-py), \"@ivi\" (a vendor VISA), \"@name\" (the pyvisa "
+                "backend package pyvisa-name) or the path of a vendor VISA library")
+    if value in (DEFAULT_VISA_LIBRARY, "@ivi"):
+        return None
+    if value.startswith("@"):
+        from importlib.util import find_spec
+
+        name = value[1:]
+        if not name.isidentifier() or find_spec(f"pyvisa_{name}") is None:
+            return (f"{key}: {value!r} names the pyvisa backend pyvisa-{name}, which is not installed; install it "
+                    "(pip install pyvisa-" + name + "), or use \"@py\", \"@ivi\" or the path of a vendor VISA library")
+        return None
+    if not Path(value).expanduser().is_file():
+        return (f"{key}: {value!r} is not a file; give the path of an installed vendor VISA library (such as "
+                "/usr/lib/x86_64-linux-gnu/libvisa.so), or \"@ivi\" to let pyvisa find it, or \"@py\"")
+    return None
+
+
+def _serial_option_problems(key: str, resource: Any, options: Any) -> list[str]:
+    """Serial-line options given for a resource that is not a serial (ASRL) one."""
+    if not isinstance(options, dict) or not isinstance(resource, str):
+        return []
+    given = [name for name in SERIAL_OPTIONS if name in options]
+    if not given or resource.strip().upper().startswith("ASRL"):
+        return []
+    return [f"{key}.options.{name}: applies to serial (ASRL) resources only, and {resource!r} is not one; remove "
+            "it, or give the serial resource (ASRL/dev/ttyUSB0::INSTR, ASRL3::INSTR)" for name in given]
 _TERM_KEYS = {"pct_of_reading", "offset", "range_max", "distribution", "coverage_factor"}
 
 
@@ -476,7 +523,7 @@ def parse_station(text: str, *, path: Path | None = None) -> Station:
         limits_data = {k: v for k, v in limits_data.items() if k != "absolute"}
     limits = _limits_table(limits_data, settings["hazardous_voltage_acknowledged"], problems)
     absolute = _absolute_limits_table(absolute_data, limits, settings["hazardous_voltage_acknowledged"], problems)
-    instruments = _instruments_table(data.get("instruments", {}), problems)
+    instruments = _instruments_table(data.get("instruments", {}), problems, settings["visa_library"])
     if problems:
         raise StationFileError(f"{where}: {len(problems)} problem(s) in the station file", problems)
     assert limits is not None
@@ -549,7 +596,12 @@ def _station_table(station: Any, problems: list[str]) -> dict[str, Any]:
         problems.append(f"station.calibration_overdue: {overdue_policy!r} must be one of "
                         f"{', '.join(repr(p) for p in CALIBRATION_POLICIES)} (what a run does when an instrument's "
                         "calibration_due has passed)")
+    library = station.get("visa_library", DEFAULT_VISA_LIBRARY)
+    library_problem = _visa_library_problem("station.visa_library", library)
+    if library_problem:
+        problems.append(library_problem)
     return dict(
+        visa_library=library if library_problem is None else DEFAULT_VISA_LIBRARY,
         name=name.strip() if isinstance(name, str) else "",
         description=str(station.get("description", "")),
         watch_period_s=float(watch) if _positive_number(watch) else 0.1,
@@ -612,20 +664,22 @@ def _optional_limits(limits_table: Mapping[str, Any], problems: list[str]) -> di
     return out
 
 
-def _instruments_table(table: Any, problems: list[str]) -> dict[str, InstrumentConfig]:
+def _instruments_table(table: Any, problems: list[str], visa_library: str = DEFAULT_VISA_LIBRARY,
+                       ) -> dict[str, InstrumentConfig]:
     """Every ``[instruments.<role>]`` table checked, its driver's options and commands included."""
     instruments: dict[str, InstrumentConfig] = {}
     if not isinstance(table, dict) or not table:
         problems.append("[instruments]: at least one [instruments.<role>] table is required")
         table = {}
     for role, spec in table.items():
-        config = _instrument(role, spec, problems)
+        config = _instrument(role, spec, problems, visa_library)
         if config is not None:
             instruments[role] = config
     return instruments
 
 
-def _instrument(role: str, spec: Any, problems: list[str]) -> InstrumentConfig | None:
+def _instrument(role: str, spec: Any, problems: list[str],
+                visa_library: str = DEFAULT_VISA_LIBRARY) -> InstrumentConfig | None:
     """One ``[instruments.<role>]`` table, or None (with its problems added) when it is not usable."""
     key = f"instruments.{role}"
     if not _ROLE_NAME.match(role):
@@ -670,6 +724,13 @@ def _instrument(role: str, spec: Any, problems: list[str]) -> InstrumentConfig |
     if not isinstance(commands, dict):
         problems.append(f"{key}.commands: must be a table of command-name = \"SCPI template\"")
         ok = False
+    serial = _serial_option_problems(key, resource, options)
+    problems.extend(serial)
+    library = spec.get("visa_library", visa_library)
+    library_problem = _visa_library_problem(f"{key}.visa_library", library) if "visa_library" in spec else None
+    if library_problem:
+        problems.append(library_problem)
+    ok = ok and not serial and not library_problem
     calibration_due, certificate = _calibration(key, spec, problems)
     if not ok or calibration_due is False:
         return None
@@ -685,6 +746,7 @@ def _instrument(role: str, spec: Any, problems: list[str]) -> InstrumentConfig |
         kind=str(getattr(load_driver_class(driver), "kind", "")),
         calibration_due=calibration_due or None,
         calibration_certificate=certificate,
+        visa_library=str(library),
     )
 
 

@@ -28,16 +28,36 @@ from benchctl.errors import StationFileError
 
 @dataclass(frozen=True)
 class OptionSpec:
-    """One station option of a driver: a number in ``[low, high]`` (whole when ``whole``);
-    ``default`` None: the option has no default value (its absence means something)."""
+    """One station option of a driver.
 
-    default: float | None
-    low: float
-    high: float
+    A number in ``[low, high]`` (whole when ``whole``) by default; ``kind="choice"``: one of
+    ``choices`` (words, or numbers such as stop bits 1 | 1.5 | 2); ``kind="text"``: one of
+    ``choices`` spelled as text, where ``aliases`` maps other spellings to it (a termination
+    written ``'\\r\\n'`` in a TOML literal string means CR LF). ``default`` None: the option has
+    no default value (its absence means something). Build the last two with :func:`choice_option`
+    and :func:`text_option`.
+    """
+
+    default: Any
+    low: float = 0.0
+    high: float = 0.0
     whole: bool = False
     help: str = ""
+    kind: str = "number"
+    choices: tuple[Any, ...] = ()
+    aliases: tuple[tuple[str, str], ...] = ()
+
+    def value(self, given: Any) -> Any:
+        """``given`` (valid: see :meth:`problem`) in its canonical form (an alias resolved)."""
+        if self.kind == "text" and isinstance(given, str):
+            return dict(self.aliases).get(given, given)
+        if self.kind == "choice" and isinstance(given, (int, float)) and not isinstance(given, bool):
+            return next((c for c in self.choices if c == given), given)
+        return given
 
     def problem(self, key: str, value: Any) -> str | None:
+        if self.kind in ("choice", "text"):
+            return self._choice_problem(key, value)
         ok = isinstance(value, (int, float)) and not isinstance(value, bool) and self.low <= value <= self.high
         if ok and self.whole:
             ok = float(value) == int(value)
@@ -48,6 +68,37 @@ class OptionSpec:
         default = "leave it out for none" if self.default is None else f"default {self.default:g}"
         return (f"options.{key} = {value!r} must be {kind} in [{self.low:g}, {self.high:g}]{about}; "
                 f"fix it in the station file ({default})")
+
+    def _choice_problem(self, key: str, value: Any) -> str | None:
+        if self.kind == "text":
+            if isinstance(value, str) and self.value(value) in self.choices:
+                return None
+        elif not isinstance(value, bool) and isinstance(value, (str, int, float)) and value in self.choices:
+            return None
+        about = f" ({self.help})" if self.help else ""
+        shown = ", ".join(_show(c) for c in self.choices)
+        default = "leave it out for none" if self.default is None else f"default {_show(self.default)}"
+        return (f"options.{key} = {_show(value)} must be one of {shown}{about}; fix it in the station file "
+                f"({default})")
+
+
+def _show(value: Any) -> str:
+    """A value as a station file writes it (text in double quotes with its escapes)."""
+    if isinstance(value, str):
+        return '"' + value.encode("unicode_escape").decode("ascii").replace('"', '\\"') + '"'
+    return repr(value)
+
+
+def choice_option(default: Any, choices: tuple[Any, ...], *, help: str = "") -> OptionSpec:
+    """An option that is one of ``choices`` (words, or numbers)."""
+    return OptionSpec(default, help=help, kind="choice", choices=tuple(choices))
+
+
+def text_option(default: str | None, choices: tuple[str, ...], *, aliases: Mapping[str, str] | None = None,
+                help: str = "") -> OptionSpec:
+    """An option of text that is one of ``choices``, or an alias of one (``aliases``: spelling -> choice)."""
+    return OptionSpec(default, help=help, kind="text", choices=tuple(choices),
+                      aliases=tuple((aliases or {}).items()))
 
 
 def merged(cls: type, attribute: str) -> dict[str, Any]:
@@ -131,8 +182,8 @@ def option_values(cls: type, name: str, options: Mapping[str, Any]) -> dict[str,
         where = [f"instruments.{name}.{p}" for p in problems]
         raise StationFileError(where[0] if len(where) == 1 else f"{len(where)} problems with the options of "
                                f"instrument {name}", where if len(where) > 1 else None)
-    specs = merged(cls, "OPTIONS")
-    return {key: options.get(key, spec.default) for key, spec in specs.items()}
+    specs: dict[str, OptionSpec] = merged(cls, "OPTIONS")
+    return {key: spec.value(options[key]) if key in options else spec.default for key, spec in specs.items()}
 
 
 def option_problems(cls: type, options: Mapping[str, Any]) -> list[str]:
@@ -140,7 +191,7 @@ def option_problems(cls: type, options: Mapping[str, Any]) -> list[str]:
     problems = []
     for key in sorted(set(options) - set(specs)):
         problems.append(f"options.{key}: unknown option of driver {getattr(cls, 'kind', cls.__name__)!r}; "
-                        f"its options are: {', '.join(sorted(specs)) or 'none'}")
+                        f"known options: {', '.join(sorted(specs)) or 'none'}")
     for key, spec in specs.items():
         if key in options:
             problem = spec.problem(key, options[key])

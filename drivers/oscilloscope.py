@@ -31,7 +31,7 @@ from numpy.typing import NDArray
 
 from benchctl.errors import BenchctlError, InstrumentResponseError, InstrumentStateError, InstrumentTimeout, UsageError
 from benchctl.drivers.ieee488_block import decode_samples, scale_waveform
-from benchctl.drivers.scpi_driver import OptionSpec, ScpiDriver
+from benchctl.drivers.scpi_driver import OptionSpec, ScpiDriver, choice_option
 
 logger = logging.getLogger(__name__)
 
@@ -130,6 +130,7 @@ class Oscilloscope(ScpiDriver):
         "get_data": "TRAC? {channel}",
         "set_fixture_capacitance": "FIXT:CAP {value:.6g}",
         "get_done": "INIT:DONE?",
+        "get_operation_condition": "STAT:OPER:COND?",
         "set_fixture_probe": "FIXT:PROB{channel} {word}",
         "set_fixture_load_capacitance": "FIXT:LOAD:CAP {value:.6g}",
         "set_fixture_input_capacitance": "FIXT:INP:CAP {value:.6g}",
@@ -142,11 +143,23 @@ class Oscilloscope(ScpiDriver):
 
     OPTIONS: ClassVar[dict[str, OptionSpec]] = {
         "channels": OptionSpec(4, 1, 64, whole=True, help="number of input channels"),
+        # how a capture is awaited; left out: *OPC? for wait_acquired/single, the done query for wait_triggered
+        "capture_wait": choice_option(None, ("done_query", "operation_register", "opc_query"),
+                                      help="how the end of a capture is awaited"),
+        # STATus:OPERation bits that mean "still capturing": 4 MEASuring and 5 waiting for TRIGger
+        # (SCPI-1999 Vol. 2 §9.7.1, from memory); a scope that uses other bits names them here
+        "capture_busy_mask": OptionSpec(48, 1, 65535, whole=True,
+                                        help="STAT:OPER:COND? bits set while a capture runs (capture_wait = "
+                                             "operation_register)"),
+        "capture_poll_s": OptionSpec(0.005, 0.0005, 10, help="polling period of a capture wait, s"),
     }
 
     def __init__(self, resource: str, **kwargs: Any) -> None:
         super().__init__(resource, **kwargs)
         self.channels = int(self.option("channels"))
+        self.capture_wait: str | None = self.option("capture_wait")
+        self.capture_busy_mask = int(self.option("capture_busy_mask"))
+        self.capture_poll_s = float(self.option("capture_poll_s"))
         self._acquired = False
 
     # -- helpers -------------------------------------------------------------------
@@ -259,9 +272,14 @@ class Oscilloscope(ScpiDriver):
         self.send_at_shutdown(self.command("abort"))
 
     def wait_acquired(self, timeout_s: float = 10.0) -> None:
-        """Block until the armed acquisition is complete (``*OPC?``)."""
-        self.wait_complete(timeout_s)
-        self._acquired = True
+        """Block until the armed acquisition is complete: ``*OPC?`` (the default, ``capture_wait``
+        left out or ``opc_query``), or polling as ``capture_wait`` says (then a capture that does
+        not end within ``timeout_s`` is aborted, as in :meth:`wait_triggered`)."""
+        if self.capture_wait in (None, "opc_query"):
+            self.wait_complete(timeout_s)
+            self._acquired = True
+            return
+        self.wait_triggered(timeout_s, poll_s=self.capture_poll_s)
 
     def single(self, timeout_s: float = 10.0) -> None:
         """Arm one acquisition and wait for it (for a trigger that comes by itself)."""
@@ -274,29 +292,51 @@ class Oscilloscope(ScpiDriver):
                        sleep: Callable[[float], None] = time.sleep) -> None:
         """Wait for a single-shot acquisition armed with :meth:`arm` to trigger and complete.
 
-        Polls ``INIT:DONE?`` (the instrument stays free to answer anything else) every
-        ``poll_s`` until ``timeout_s`` (s, from ``clock``) has passed; then aborts the
-        acquisition and raises :class:`InstrumentTimeout`, so a trigger that never comes
-        ends cleanly instead of holding the session in ``*OPC?``.
+        Polls ``INIT:DONE?`` (``capture_wait`` left out or ``done_query``) or ``STAT:OPER:COND?``
+        until none of ``capture_busy_mask``'s bits is set (``operation_register``) every ``poll_s``
+        (the instrument stays free to answer anything else) until ``timeout_s`` (s, from
+        ``clock``) has passed; then aborts the acquisition and raises :class:`InstrumentTimeout`,
+        so a trigger that never comes ends cleanly. ``capture_wait = "opc_query"`` waits with
+        ``*OPC?`` within ``timeout_s`` instead (and aborts on its timeout too). A poll that gets no
+        answer says so with both timeouts: the exchange's and the wait's.
         """
         if not timeout_s > 0:
             raise UsageError(f"timeout_s must be positive seconds, got {timeout_s!r}")
+        if self.capture_wait == "opc_query":
+            try:
+                self.wait_complete(timeout_s)
+            except InstrumentTimeout:
+                self._abort_after_timeout()
+                raise
+            self._acquired = True
+            return
+        by_register = self.capture_wait == "operation_register"
+        key = "get_operation_condition" if by_register else "get_done"
         deadline = clock() + timeout_s
         while True:
-            if self.query_bool("get_done"):
+            try:
+                done = (not int(self.query_float(key)) & self.capture_busy_mask) if by_register \
+                    else self.query_bool(key)
+            except InstrumentTimeout as exc:
+                raise exc.located(detail=f"{exc.detail} (the instrument's timeout_s of {self.timeout_s:g} s for one "
+                                         f"exchange, while waiting up to {timeout_s:g} s for the capture)") from exc
+            if done:
                 self._acquired = True
                 return
             if clock() >= deadline:
                 break
             sleep(poll_s)
+        self._abort_after_timeout()
+        raise InstrumentTimeout(
+                f"no trigger within {timeout_s:g} s: the single-shot acquisition was aborted; check the "
+                "trigger source, level and slope against the signal, or give a longer timeout",
+                instrument=self.name, command=self.command(key))
+
+    def _abort_after_timeout(self) -> None:
         try:
             self.abort()
         except BenchctlError as exc:  # the timeout is the news; a failed abort only adds to it
             logger.warning("%s: abort after the trigger timeout failed: %s", self.name, exc)
-        raise InstrumentTimeout(
-                f"no trigger within {timeout_s:g} s: the single-shot acquisition was aborted; check the "
-                "trigger source, level and slope against the signal, or give a longer timeout",
-                instrument=self.name, command=self.command("get_done"))
 
     # -- transfer ------------------------------------------------------------------
 

@@ -8,13 +8,26 @@ read-back and reconnects are policy and live in :mod:`drivers.scpi_driver`; a se
 never retries.
 
 :class:`Session` is the interface the driver needs; :class:`VisaSession` implements it over
-pyvisa (pyvisa-py backend, ``"@py"``, so no vendor VISA is needed); a test double with
-scripted answers is in :mod:`drivers.testing`.
+pyvisa, on the VISA library the station names (``visa_library``: ``"@py"``, pyvisa-py, by
+default, so no vendor VISA is needed; ``"@ivi"`` or a path for a vendor's), one resource
+manager per library (:func:`resource_manager`); a test double with scripted answers is in
+:mod:`drivers.testing`. :class:`Transport` holds the interface settings of the station's
+``options`` (terminations, serial line settings, chunk size, query delay). Interfaces that
+pyvisa-py reaches only through an optional package (serial, USB-TMC, GPIB) fail with one
+line naming benchctl's extra that installs it (:data:`INTERFACE_EXTRAS`); a VXI-11 or
+HiSLIP resource that does not open says what to check (:func:`open_problem`).
+
+After a timeout the policy calls :meth:`VisaSession.clear`: a device clear (VISA
+``viClear``; on GPIB the selected device clear, which empties the instrument's input
+buffer and output queue, IEEE 488.2-1992 §5.8, from memory) and, on a raw socket, which has
+no device clear of its own, discarding whatever already arrived; :meth:`VisaSession.read`
+lets the policy read and discard stale answer lines until its marker answers.
 
 Tuning of pyvisa-py raw sockets (``TCPIP::host::port::SOCKET``), the documented fast path,
 the only place any driver reaches into pyvisa-py internals (``visalib.sessions``, the
-backend's ``interface`` socket and ``_pending_buffer``); other backends and interfaces
-take the generic pyvisa path:
+backend's ``interface`` socket and ``_pending_buffer``). Only SOCKET resources take it;
+every other resource class (VXI-11 and HiSLIP ``TCPIP::host::inst0|hislip0::INSTR``, GPIB,
+USB, ASRL) and every other VISA library take plain pyvisa calls:
 
 * TCP_NODELAY on the socket: without it a setting followed by ``SYST:ERR?`` waits for the
   instrument's delayed acknowledgement of the first packet — about 40 ms on Linux (Nagle's
@@ -40,6 +53,7 @@ import socket
 import threading
 import time
 from contextlib import contextmanager
+from dataclasses import dataclass
 from typing import Any, Callable, Iterator, Protocol
 
 from benchctl.errors import (
@@ -54,27 +68,155 @@ from benchctl.drivers.ieee488_block import block_length, header_length
 logger = logging.getLogger(__name__)
 
 _resource_manager_lock = threading.Lock()
-_resource_manager: Any = None
+_resource_managers: dict[str, Any] = {}
+
+#: The VISA library of a station that names none: pyvisa-py, pure Python.
+DEFAULT_VISA_LIBRARY = "@py"
+
+#: The interfaces pyvisa-py reaches only through an optional package: VISA interface type ->
+#: (benchctl extra, the package it installs).
+INTERFACE_EXTRAS: dict[str, tuple[str, str]] = {
+    "ASRL": ("serial", "pyserial"),
+    "USB": ("usb", "pyusb"),
+    "GPIB": ("gpib", "gpib-ctypes"),
+}
 
 
-def resource_manager() -> Any:
-    """The process-wide pyvisa ResourceManager on the pure-Python backend (``@py``).
+class VisaLibraryError(InstrumentConnectionError):
+    """The station's ``visa_library`` cannot be loaded (not installed, a wrong path)."""
+
+
+def resource_manager(library: str = DEFAULT_VISA_LIBRARY) -> Any:
+    """The process-wide pyvisa ResourceManager of VISA library ``library`` (``"@py"``,
+    ``"@ivi"``, a path to a vendor library), one per library string.
 
     pyvisa shares one manager per backend in a process, so other code closing "its own"
-    manager closes ours too; a closed one is replaced.
+    manager closes ours too; a closed one is replaced. A library that cannot be loaded
+    raises :class:`VisaLibraryError` in one line saying what to install or set.
     """
-    global _resource_manager
     import pyvisa
 
     with _resource_manager_lock:
-        if _resource_manager is not None:
+        manager = _resource_managers.get(library)
+        if manager is not None:
             try:
-                _resource_manager.session  # raises InvalidSession once closed
+                manager.session  # raises InvalidSession once closed
             except pyvisa.errors.InvalidSession:
-                _resource_manager = None
-        if _resource_manager is None:
-            _resource_manager = pyvisa.ResourceManager("@py")
-        return _resource_manager
+                manager = None
+        if manager is None:
+            try:
+                manager = pyvisa.ResourceManager(library)
+            except Exception as exc:  # OSError/LibraryError (a binary library), ValueError (no such backend)
+                raise VisaLibraryError(library_problem(library, exc)) from exc
+            _resource_managers[library] = manager
+        return manager
+
+
+def library_problem(library: str, exc: BaseException) -> str:
+    """One line: VISA library ``library`` did not load (``exc``), and what to install or set."""
+    reason = " ".join(str(exc).split()) or type(exc).__name__
+    if library == "@py":
+        what = "install pyvisa-py (pip install pyvisa-py)"
+    elif library == "@ivi":
+        what = "install a vendor VISA library (its installer puts it where pyvisa looks)"
+    elif library.startswith("@"):
+        what = f"install the pyvisa backend package pyvisa-{library[1:]}"
+    else:
+        what = "give the path of an installed vendor VISA library (such as libvisa.so or visa64.dll)"
+    return (f"visa_library {library!r} cannot be loaded ({reason[:160]}); {what}, or set visa_library in "
+            "[station] or [instruments.<role>] to one that is installed (\"@py\" is pyvisa-py)")
+
+
+@dataclass(frozen=True)
+class Transport:
+    """How bytes travel to one instrument: the station's ``visa_library`` and interface options.
+
+    ``None`` leaves a setting at the VISA library's default. The serial settings apply to
+    ASRL resources only (the station refuses them on others); ``parity``, ``stop_bits`` and
+    ``flow_control`` are the station's words and numbers, mapped to pyvisa's constants when
+    applied. ``query_delay_s`` is waited between the write and the read of every query.
+    An empty ``read_termination`` reads to the END/EOI of the message (GPIB, USB-TMC).
+    """
+
+    visa_library: str = DEFAULT_VISA_LIBRARY
+    read_termination: str = "\n"
+    write_termination: str = "\n"
+    baud_rate: int | None = None
+    data_bits: int | None = None
+    parity: str | None = None
+    stop_bits: float | None = None
+    flow_control: str | None = None
+    chunk_size: int | None = None
+    query_delay_s: float = 0.0
+
+
+def serial_constants() -> dict[str, dict[Any, Any]]:
+    """The station's words for the serial line -> pyvisa's constants (VISA attributes)."""
+    from pyvisa import constants
+
+    return {
+        "parity": {"none": constants.Parity.none, "odd": constants.Parity.odd, "even": constants.Parity.even,
+                   "mark": constants.Parity.mark, "space": constants.Parity.space},
+        "stop_bits": {1: constants.StopBits.one, 1.5: constants.StopBits.one_and_a_half,
+                      2: constants.StopBits.two},
+        "flow_control": {"none": constants.ControlFlow.none, "xon_xoff": constants.ControlFlow.xon_xoff,
+                         "rts_cts": constants.ControlFlow.rts_cts, "dtr_dsr": constants.ControlFlow.dtr_dsr},
+    }
+
+
+def resource_parts(resource: str) -> tuple[str, str, str]:
+    """(interface type, resource class, LAN device name) of a resource string, upper/upper/lower
+    case ("" each when it does not parse): ``("TCPIP", "INSTR", "hislip0")``."""
+    from pyvisa import rname
+
+    try:
+        parsed = rname.parse_resource_name(resource)
+    except Exception:
+        return "", "", ""
+    return (str(getattr(parsed, "interface_type", "")).upper(), str(getattr(parsed, "resource_class", "")).upper(),
+            str(getattr(parsed, "lan_device_name", "")).lower())
+
+
+def open_problem(resource: str, exc: BaseException, *, timeout_s: float) -> str:
+    """One line saying why ``resource`` did not open and what to check (no traceback)."""
+    interface, klass, device = resource_parts(resource)
+    text = " ".join(str(exc).split())
+    if isinstance(exc, ValueError) and "install" in text.lower() and interface in INTERFACE_EXTRAS:
+        extra, package = INTERFACE_EXTRAS[interface]
+        more = " with the linux-gpib driver on Linux" if extra == "gpib" else ""
+        return (f"{resource} needs the {extra} extra: pip install \"benchctl[{extra}]\" ({package}{more}, for "
+                "pyvisa-py; or set visa_library to a vendor VISA)")
+    description = getattr(exc, "description", "") or text or type(exc).__name__
+    if isinstance(exc, ConnectionRefusedError):
+        description = "connection refused: nothing listens there"
+    if interface == "TCPIP" and klass == "INSTR":
+        if device.startswith("hislip"):
+            protocol, check = "HiSLIP", "that HiSLIP is enabled in the instrument's LAN settings (TCP port 4880)"
+        else:
+            protocol, check = "VXI-11", ("that the instrument's VXI-11 server is on and its port mapper (TCP 111) "
+                                         "is reachable through any firewall")
+        return (f"cannot open {protocol} resource {resource!r} within {timeout_s:g} s ({description[:160]}); check "
+                f"the host name or address, {check}, or use the instrument's raw socket (TCPIP::host::port::SOCKET)")
+    return (f"cannot open VISA resource {resource!r} ({description[:160]}); check the resource string in the "
+            "station file, that the instrument is on and reachable (for the simulated bench: that "
+            "`benchctl sim` is running)")
+
+
+def _apply_settings(visa: Any, resource: str, transport: Transport) -> None:
+    """The chunk size on any resource; the serial line settings on ASRL resources only."""
+    if transport.chunk_size is not None:
+        visa.chunk_size = int(transport.chunk_size)
+    if resource_parts(resource)[0] != "ASRL":
+        return
+    if transport.baud_rate is not None:
+        visa.baud_rate = int(transport.baud_rate)
+    if transport.data_bits is not None:
+        visa.data_bits = int(transport.data_bits)
+    words = serial_constants()
+    for key in ("parity", "stop_bits", "flow_control"):
+        value = getattr(transport, key)
+        if value is not None:
+            setattr(visa, key, words[key][value])
 
 
 class Session(Protocol):
@@ -93,6 +235,9 @@ class Session(Protocol):
 
     def close(self) -> None: ...
 
+    # Optional (the policy looks them up, a session without them is used without): ``clear()``,
+    # a device clear after a timeout, and ``read()``, one more answer line without sending anything.
+
 
 #: How a driver opens a session: ``connect(resource, name=..., timeout_s=...)``.
 Connect = Callable[..., Session]
@@ -107,13 +252,15 @@ class NotABlock(InstrumentResponseError):
 
 
 class VisaSession:
-    """A pyvisa message-based resource, newline-terminated, with the raw-socket fast path."""
+    """A pyvisa message-based resource with the station's :class:`Transport`, and the raw-socket fast path."""
 
-    def __init__(self, resource: Any, *, name: str, resource_name: str) -> None:
+    def __init__(self, resource: Any, *, name: str, resource_name: str, transport: Transport | None = None) -> None:
         self.visa_resource = resource
         self.name = name
         self.resource_name = resource_name
-        self._fast = _socket_of(resource)
+        self.transport = transport or Transport()
+        self._term = self.transport.read_termination.encode("latin-1")
+        self._fast = _socket_of(resource) if resource_parts(resource_name)[1] == "SOCKET" else None
         if self._fast is not None:
             try:
                 self._fast[1].setsockopt(socket.IPPROTO_TCP, socket.TCP_NODELAY, 1)
@@ -121,24 +268,32 @@ class VisaSession:
                 logger.debug("%s: TCP_NODELAY not set: %s", name, exc)
 
     @classmethod
-    def open(cls, resource: str, *, name: str, timeout_s: float) -> "VisaSession":
-        """Open ``resource`` (VISA resource string) answering within ``timeout_s`` (also to open)."""
-        import pyvisa
-
+    def open(cls, resource: str, *, name: str, timeout_s: float, transport: Transport | None = None) -> "VisaSession":
+        """Open ``resource`` (VISA resource string) answering within ``timeout_s`` (also to open),
+        on ``transport``'s VISA library with its interface settings."""
+        transport = transport or Transport()
+        try:
+            manager = resource_manager(transport.visa_library)
+        except VisaLibraryError as exc:
+            raise exc.located(instrument=name) from exc.__cause__
         ms = max(1, int(timeout_s * 1000))
         try:
-            visa = resource_manager().open_resource(resource, read_termination="\n", write_termination="\n",
-                                                    timeout=ms, open_timeout=ms)
-        except pyvisa.errors.VisaIOError as exc:
+            visa = manager.open_resource(resource, read_termination=transport.read_termination or None,
+                                         write_termination=transport.write_termination, timeout=ms, open_timeout=ms)
+        except Exception as exc:  # pyvisa's VisaIOError and pyvisa-py's bare exceptions (a missing package ...)
+            raise InstrumentConnectionError(open_problem(resource, exc, timeout_s=timeout_s), instrument=name) from exc
+        try:
+            _apply_settings(visa, resource, transport)
+        except Exception as exc:
+            try:
+                visa.close()
+            except Exception:  # the refused setting is what matters
+                pass
             raise InstrumentConnectionError(
-                f"cannot open VISA resource {resource!r} ({exc.description}); check the resource string in the "
-                "station file, that the instrument is on and reachable (for the simulated bench: that "
-                "`benchctl sim` is running)", instrument=name) from exc
-        except Exception as exc:  # pyvisa-py raises bare exceptions too (a port that is not a number ...)
-            raise InstrumentConnectionError(
-                f"cannot open VISA resource {resource!r}: {exc}; check the resource string and that the "
-                "instrument is reachable", instrument=name) from exc
-        return cls(visa, name=name, resource_name=resource)
+                f"{resource} opened but refused its interface settings ({' '.join(str(exc).split())[:160]}); check "
+                "the options baud_rate, data_bits, parity, stop_bits, flow_control and chunk_size in the station "
+                "file", instrument=name) from exc
+        return cls(visa, name=name, resource_name=resource, transport=transport)
 
     # -- the one translation ---------------------------------------------------------
 
@@ -203,8 +358,42 @@ class VisaSession:
             self.visa_resource.write(text)
 
     def query(self, text: str) -> str:
+        delay = self.transport.query_delay_s
         with self.translated(text):
-            return str(self.visa_resource.query(text)).strip()
+            if not delay:
+                return str(self.visa_resource.query(text)).strip()
+            self.visa_resource.write(text)
+            time.sleep(delay)
+            return str(self.visa_resource.read()).strip()
+
+    def read(self) -> str:
+        """One more answer line, sending nothing (the policy reads stale answers away with it)."""
+        with self.translated("(read)"):
+            return str(self.visa_resource.read()).strip()
+
+    def clear(self) -> None:
+        """Device clear, then on a raw socket drop whatever input already arrived; never raises.
+
+        A raw socket has no device clear in its protocol: on pyvisa-py's the buffered input and
+        what has already arrived are discarded here (pyvisa-py's own ``clear`` would spin forever
+        on a socket the instrument closed). An answer that comes later still is the policy's to
+        skip (its marker).
+        """
+        if self._fast is None:
+            try:
+                self.visa_resource.clear()
+            except Exception as exc:
+                logger.debug("%s: device clear not done: %s", self.name, exc)
+            return
+        backend, sock = self._fast
+        backend._pending_buffer = bytearray()
+        deadline = time.monotonic() + 0.5
+        try:
+            while time.monotonic() < deadline and select.select([sock], [], [], 0)[0]:
+                if not sock.recv(65536):
+                    break  # closed by the instrument: nothing more will come
+        except OSError as exc:
+            logger.debug("%s: draining after a timeout failed: %s", self.name, exc)
 
     def read_block(self, text: str) -> bytes:
         """Send query ``text`` and return the payload of its definite-length block answer.
@@ -218,28 +407,32 @@ class VisaSession:
         with self.translated(text):
             try:
                 visa.write(text)
+                if self.transport.query_delay_s:
+                    time.sleep(self.transport.query_delay_s)
                 visa.read_termination = None
                 head = bytes(visa.read_bytes(2))
                 if head[:1] != b"#":
                     visa.read_termination = previous
-                    rest = head if head.endswith(b"\n") else head + bytes(visa.read_raw())
+                    ended = bool(self._term) and head.endswith(self._term[-1:])
+                    rest = head if ended else head + bytes(visa.read_raw())
                     raise NotABlock(f"expected a definite-length block, got {rest[:40]!r}; check the query and "
                                     "the data format", answer=rest, instrument=self.name, command=text)
                 head += bytes(visa.read_bytes(header_length(head) - 2))
                 count = block_length(head) - len(head)
+                ends = len(self._term)
                 if self._fast is not None:
                     backend, sock = self._fast
-                    data = _recv_exactly(backend, sock, count + 1, self.timeout_s, backend._pending_buffer)
+                    data = _recv_exactly(backend, sock, count + ends, self.timeout_s, backend._pending_buffer)
                     payload, end = bytes(data[:count]), bytes(data[count:])
                 else:
                     payload = bytes(visa.read_bytes(count, chunk_size=count)) if count else b""
-                    end = bytes(visa.read_bytes(1))
+                    end = bytes(visa.read_bytes(ends)) if ends else b""
             finally:
                 try:
                     visa.read_termination = previous
                 except Exception:  # a dead session: the original error is what matters
                     pass
-        _check_terminator(end, count, self.name, text)
+        _check_terminator(end, count, self.name, text, self._term)
         logger.debug("%s -> block of %d bytes", self.name, len(payload))
         return payload
 
@@ -249,18 +442,21 @@ class VisaSession:
         One round trip, on the fast path only; None elsewhere (ask the two queries apart).
         An answer without a block raises :class:`NotABlock` holding it.
         """
-        if self._fast is None:
+        if self._fast is None or not self._term:
             return None
         backend, sock = self._fast
+        term, ends = self._term, len(self._term)
 
         def header_done(buf: bytearray) -> bool:
             k = buf.find(b";#")
             if k < 0:
-                return b"\n" in buf  # an answer without a block: an error, reported below
+                return term in buf  # an answer without a block: an error, reported below
             return len(buf) >= k + 3 and len(buf) >= k + 3 + int(buf[k + 2:k + 3] or b"0")
 
         with self.translated(text):
             self.visa_resource.write(text)
+            if self.transport.query_delay_s:
+                time.sleep(self.transport.query_delay_s)
             buf = _recv_until(backend, sock, header_done, self.timeout_s)
             k = buf.find(b";#")
             if k < 0:
@@ -269,8 +465,8 @@ class VisaSession:
             head = bytes(buf[k + 1:k + 3])
             head = bytes(buf[k + 1:k + 1 + header_length(head)])
             count = block_length(head) - len(head)
-            data = _recv_exactly(backend, sock, count + 1, self.timeout_s, buf[k + 1 + len(head):])
-        _check_terminator(bytes(data[count:]), count, self.name, text)
+            data = _recv_exactly(backend, sock, count + ends, self.timeout_s, buf[k + 1 + len(head):])
+        _check_terminator(bytes(data[count:]), count, self.name, text, term)
         return bytes(buf[:k]).decode("latin-1"), bytes(data[:count])
 
     def close(self) -> None:
@@ -281,10 +477,10 @@ class VisaSession:
             logger.debug("%s: error while closing: %s", self.name, exc)
 
 
-def _check_terminator(end: bytes, count: int, name: str, text: str) -> None:
-    if end != b"\n":
-        raise InstrumentResponseError(f"block of {count} bytes is followed by {end!r}, not the newline terminator; "
-                                      "the byte count and the data disagree", instrument=name, command=text)
+def _check_terminator(end: bytes, count: int, name: str, text: str, term: bytes = b"\n") -> None:
+    if end != term:
+        raise InstrumentResponseError(f"block of {count} bytes is followed by {end!r}, not the read termination "
+                                      f"{term!r}; the byte count and the data disagree", instrument=name, command=text)
 
 
 # -- the fast path: pyvisa-py raw sockets ------------------------------------------------------

@@ -5,9 +5,10 @@ In the spirit of a mock transport: the driver is built with
 :class:`ScriptedSession` objects that implement :class:`drivers.session.Session`. The
 instrument answers from a small state table (``VOLT 12`` then ``VOLT?`` answers ``12``),
 from scripted answers, and the IEEE 488.2 common queries it needs (``*IDN?``, ``*ESR?``,
-``*OPC?``, ``*RST``, ``*CLS``) and ``SYSTem:ERRor?``; it records every program message,
-and fails on cue (:meth:`ScriptedInstrument.fail`): a timeout, with or without the
-message applied and with or without its answer arriving late, or a dropped connection.
+``*OPC?``, ``*OPC``, ``*STB?``, ``*ESE``, ``*RST``, ``*CLS``) and ``SYSTem:ERRor?``; it records
+every program message and every device clear, and fails on cue (:meth:`ScriptedInstrument.fail`):
+a timeout, with or without the message applied and with or without its answer arriving late
+(before the device clear that follows, or after it), or a dropped connection.
 
 It is not a simulator: no SCPI tree, no physics (that is ``simulated_instruments``, over
 real sockets). Compound messages are split at ``;`` and a leading ``:`` is ignored.
@@ -34,7 +35,7 @@ class _Fault:
     message: str
     error: Failure
     applied: bool
-    late_answer: bool
+    late_answer: bool | str
     times: int
 
 
@@ -52,6 +53,10 @@ class ScriptedInstrument:
         self.errors: list[tuple[int, str]] = []
         #: Standard Event Status Register (bit 7, 128, is power-on: IEEE 488.2-1992 §11.5.1.1.8, from memory).
         self.esr = 0
+        #: Standard Event Status Enable register (``*ESE``); ESB of ``*STB?`` is ESR AND ESE.
+        self.ese = 0
+        #: Device clears received (over any session).
+        self.clears = 0
         #: Headers whose setting queues this error (code, message) instead of taking effect.
         self.refuse: dict[str, tuple[int, str]] = {}
         #: Payloads answered to block queries, by query text.
@@ -64,14 +69,16 @@ class ScriptedInstrument:
 
     # -- scripting -----------------------------------------------------------------------
 
-    def fail(self, message: str, error: Failure = "timeout", *, applied: bool = False, late_answer: bool = False,
-             times: int = 1) -> None:
+    def fail(self, message: str, error: Failure = "timeout", *, applied: bool = False,
+             late_answer: bool | str = False, times: int = 1) -> None:
         """The next ``times`` messages equal to ``message`` fail with ``error``.
 
         ``"garble"``: the message is acted on and its answer replaced by bytes that mean nothing.
         ``applied``: the instrument acts on the message before the failure (a setting takes
         effect, its answer is lost). ``late_answer`` (timeouts): the answer arrives after the
-        timeout and waits on that session for whoever reads next.
+        timeout and waits on that session for whoever reads next; ``"after_clear"``: it
+        arrives later still, after a device clear, just before the next message's answers
+        (a slow instrument on a raw socket, which has no device clear).
         """
         self._faults.append(_Fault(message, error, applied, late_answer, times))
 
@@ -128,6 +135,8 @@ class ScriptedInstrument:
             return str(esr)
         if header == "*OPC":
             return "1"
+        if header == "*STB":  # bit 2 error queue not empty (SCPI-1999), bit 5 ESB (IEEE 488.2 §11.2; from memory)
+            return str((4 if self.errors else 0) | (32 if self.esr & self.ese else 0))
         if header in ("SYST:ERR", "SYSTEM:ERROR"):
             code, text = self.errors.pop(0) if self.errors else (0, "No error")
             return f'{code},"{text}"'
@@ -142,6 +151,10 @@ class ScriptedInstrument:
         elif header == "*CLS":
             self.errors.clear()
             self.esr = 0
+        elif header == "*OPC":
+            self.esr |= 1  # operation complete at once: nothing here takes time
+        elif header == "*ESE":
+            self.ese = int(float(parameter or 0))
         elif header in self.refuse:
             self.errors.append(self.refuse[header])
         else:
@@ -157,10 +170,13 @@ class ScriptedSession:
         self.timeout_s = timeout_s
         self.closed = False
         self._pending: list[str] = []  # answer lines not read yet, one per message (a late answer waits here)
+        self._late: list[str] = []  # answers still on their way: they arrive with the next message
 
     def _deliver(self, text: str) -> None:
         if self.closed:
             raise InstrumentConnectionError("the connection is closed", instrument=self.name, command=text)
+        self._pending.extend(self._late)
+        self._late.clear()
         inst = self.instrument
         inst.messages.append(text)
         fault = inst._fault_for(text)
@@ -174,7 +190,9 @@ class ScriptedSession:
         if fault.error == "drop":
             self.closed = True
             raise InstrumentConnectionError("connection reset by the instrument", instrument=self.name, command=text)
-        if fault.late_answer:
+        if fault.late_answer == "after_clear":
+            self._late.append(";".join(answers)) if answers else None
+        elif fault.late_answer:
             self._answer(answers)
         raise InstrumentTimeout(f"no answer within {self.timeout_s:g} s", instrument=self.name, command=text)
 
@@ -204,6 +222,20 @@ class ScriptedSession:
 
     def query_text_and_block(self, text: str) -> tuple[str, bytes] | None:
         return None  # no fast path: the caller asks the two queries apart
+
+    def read(self) -> str:
+        """The next answer line already there, sending nothing (a timeout when there is none)."""
+        if self.closed:
+            raise InstrumentConnectionError("the connection is closed", instrument=self.name, command="(read)")
+        if not self._pending:
+            raise InstrumentTimeout(f"no answer within {self.timeout_s:g} s", instrument=self.name, command="(read)")
+        return self._pending.pop(0)
+
+    def clear(self) -> None:
+        """Device clear: the answers waiting are discarded (the instrument's output queue,
+        IEEE 488.2-1992 §5.8, from memory); one still on its way (``"after_clear"``) is not."""
+        self.instrument.clears += 1
+        self._pending.clear()
 
     def close(self) -> None:
         self.closed = True

@@ -319,14 +319,15 @@ load_power_max_w = 20.0
 [instruments.source]
 driver = "dc_source"
 resource = "TCPIP::192.0.2.10::5025::SOCKET"
-options = { retries = 2, baud_rate = 9600 }
+options = { retries = 2, termination = "\\r\\n" }
 [instruments.source.commands]
 set_voltage = "VOLT {voltage}"
 """
     with pytest.raises(StationFileError) as info:  # parse_station opens nothing: no instrument is reached
         parse_station(text)
     problems = "\n".join(info.value.problems)
-    assert "instruments.source.options.baud_rate: unknown option" in problems
+    # "termination" is not an option (read_termination and write_termination are): named, not ignored
+    assert "instruments.source.options.termination: unknown option" in problems
     assert "instruments.source.commands: command override 'set_voltage'" in problems
 
 
