@@ -787,6 +787,13 @@ class ScpiDriver:
         return errors
 
     def raise_on_errors(self, command: str) -> None:
+        """Raise the instrument's queued errors for ``command``, as option ``error_check`` reads them
+        (``status_byte``: the status byte first, the queue only when bit 2 says it holds one; ``none``: no check)."""
+        if self.error_check == "none":
+            return
+        if self.error_check == "status_byte":
+            self._check_status_byte(command)
+            return
         errors = self.read_errors()
         if errors:
             self._raise_scpi(errors, command)

@@ -76,6 +76,15 @@ def test_status_byte_bit_2_reads_the_error_queue():
     assert _after_open(inst, 3)[:3] == ["VOLT 99", "*STB?", "SYST:ERR?"]
 
 
+def test_status_byte_reset_checks_the_status_byte_not_the_queue():
+    # An IEEE 488.2 instrument without SYST:ERR? (no SCPI error queue): a reset's check must not ask it.
+    inst = ScriptedInstrument()
+    src = scripted_driver(DcSource, inst, options={**NO_DELAY, "error_check": "status_byte"})
+    src.reset()
+    sent = _after_open(inst, 3)
+    assert "SYST:ERR?" not in sent and sent[-1] == "*STB?", sent
+
+
 def test_status_byte_esb_names_the_event_class_and_the_power_on():
     inst = ScriptedInstrument(answers={"SYST:ERR?": '0,"No error"'})
     src = scripted_driver(DcSource, inst, options={**NO_DELAY, "error_check": "status_byte"})

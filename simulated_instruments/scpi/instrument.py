@@ -310,7 +310,8 @@ class ScpiInstrument:
 
     def _push_error(self, entry: ErrorEntry) -> None:
         logger.debug("%s queues %s", self.identity.model, entry.response())
-        self._errors.push(entry)
+        if not self.quirks.no_syst_err:  # an instrument without SYST:ERR? keeps no error queue either
+            self._errors.push(entry)
         self._esr |= esr_bit_for_error(entry.code)
 
     # ------------------------------------------------------------- execution

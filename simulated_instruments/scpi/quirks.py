@@ -7,10 +7,12 @@ show each one, alone or together, on any simulated instrument:
 * ``crlf`` — every response ends with CR LF instead of LF (the input side still takes
   LF, with or without a CR before it).
 * ``opc_plus_one`` — ``*OPC?`` answers ``+1`` (an <NR1> with its sign) instead of ``1``.
-* ``no_syst_err`` — the ``SYSTem:ERRor`` subsystem is missing: ``SYST:ERR?`` (and
-  ``:NEXT?``, ``:ALL?``, ``:COUNt?``) queue -113 Undefined header and answer nothing,
-  so a client waiting for the answer times out. IEEE 488.2 status (``*ESR?``, ``*STB?``)
-  still works, so the error is visible as the Command Error bit (ESR bit 5).
+* ``no_syst_err`` — the ``SYSTem:ERRor`` subsystem is missing, and with it the error queue
+  (an IEEE 488.2 instrument that is not SCPI): ``SYST:ERR?`` (and ``:NEXT?``, ``:ALL?``,
+  ``:COUNt?``) is an undefined header that answers nothing, so a client waiting for the
+  answer times out. IEEE 488.2 status (``*ESR?``, ``*STB?``) still works: every error sets
+  its ESR bit (Command Error, bit 5, for this one), and the status byte's error-queue bit
+  (bit 2) never sets.
 * ``no_compound`` — a program message of several units (``*ESR?;*IDN?``) is not
   supported: the FIRST unit executes and the rest is discarded with -103 Invalid
   separator (SCPI-1999 Vol. 2 §21.8.9 error list, from memory). Chosen over "none
