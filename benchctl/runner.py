@@ -153,6 +153,7 @@ def execute(
             try:
                 with signals.interruptible():
                     _record_calibration(writes, run_id, station, roles, overdue)
+                    _record_dialect_cautions(writes, run_id, drivers, notify)
                     if envelope is not None:
                         writes.record_event(run_id, "test_envelope", envelope.caution(procedure.name), {
                             "widened": {k: {"operating": a, "envelope": b} for k, (a, b) in envelope.widened.items()},
@@ -232,6 +233,20 @@ def _calibration_check(station: Station, roles: tuple[str, ...], *, today: _dt.d
     if notify is not None:
         notify(text)
     return overdue
+
+
+def _record_dialect_cautions(store: Any, run_id: int, drivers: Mapping[str, Any],
+                             notify: Callable[[str], None] | None) -> None:
+    """What an instrument's dialect leaves unchecked (error_check = none, completion = fixed_wait):
+    told at the console and stored with the run, so a reader of its results knows."""
+    cautions = {role: list(d.dialect_cautions()) for role, d in drivers.items()
+                if callable(getattr(d, "dialect_cautions", None)) and d.dialect_cautions()}
+    if not cautions:
+        return
+    text = "; ".join(c for found in cautions.values() for c in found)
+    store.record_event(run_id, "caution", f"instrument dialect: {text}", {"dialect_cautions": cautions})
+    if notify is not None:
+        notify(f"caution: {text}")
 
 
 def _record_calibration(store: Any, run_id: int, station: Station, roles: tuple[str, ...],

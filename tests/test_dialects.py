@@ -277,3 +277,27 @@ def test_a_late_answer_over_a_real_socket_is_read_away_after_the_timeout(bench):
     finally:
         plan.clear()
         src.close()
+
+
+def test_a_run_with_an_unchecked_dialect_stores_and_tells_the_caution(bench, tmp_path, benchctl_store):
+    """error_check = none on one instrument: the run's events and console say its errors go unseen."""
+    from benchctl.procedure import load_procedure
+    from benchctl.runner import execute
+    from benchctl.station import load_station
+
+    path = bench.write_station(tmp_path / "station.toml")
+    text = path.read_text().replace('driver = "power_meter"\n', 'driver = "power_meter"\noptions = { error_check = "none" }\n', 1)
+    path.write_text(text)
+    told: list[str] = []
+    proc = load_procedure("efficiency_map")
+    params = proc.resolve_parameters(values={"vin_v": [48.0], "load_pct": [50.0]})
+    out = execute(proc, params, load_station(path), benchctl_store, notify=told.append)
+    assert out.status == "completed", out.message
+    events = benchctl_store.events(out.run_id)
+    cautions = events[events["kind"] == "caution"]
+    assert len(cautions) == 1 and "input_meter" in cautions.iloc[0]["message"]
+    assert "unseen" in cautions.iloc[0]["message"]
+    assert any("unseen" in t for t in told)
+    # the run still measured and recorded its point through the unchecked meter
+    pts = benchctl_store.points(out.run_id)
+    assert len(pts) == 1
