@@ -151,10 +151,12 @@ def _add_bench_commands(sub: Any) -> None:
                    help="run every step on each of these units in turn (instead of the job file's serials)")
     p.add_argument("--dut-part", default="", help="DUT part number (instead of the job file's)")
     p.add_argument("--dut-rev", default="", help="DUT revision (instead of the job file's)")
-    p.add_argument("--unit-change", choices=("fixed", "operator"), default=None,
-                   help="how the next unit gets connected: operator (the job asks for it, outputs off) or fixed "
-                        "(no change: a simulated bench, or a fixture changed outside benchctl); default: the job "
-                        "file's unit_change, else operator at a terminal when there are several units")
+    p.add_argument("--unit-change", choices=("fixed", "operator", "switch_matrix"), default=None,
+                   help="how the next unit gets connected: operator (the job asks for it, outputs off), "
+                        "switch_matrix (the station's switch matrix connects each unit's channel, never hot) or "
+                        "fixed (no change: a simulated bench, or a fixture changed outside benchctl); default: the "
+                        "job file's unit_change, else switch_matrix on a station with one, else operator at a "
+                        "terminal when there are several units")
     p.add_argument("--list", action="store_true", help="list every planned point and the estimated duration only")
     p.add_argument("--no-settle", action="store_true", help="skip settling waits (dry runs)")
     p.add_argument("--operator", default=None, help="operator name (default: the login name)")

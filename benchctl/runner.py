@@ -549,8 +549,9 @@ def _shut_down(interlock: Interlock, drivers: Mapping[str, Any], store: Any, run
     interlock.stop_watch(wait_s=0.0)
     steps = interlock.shutdown()
     activities = _stop_activities(drivers)
-    if activities:
-        store.record_event(run_id, "info", "after the outputs: " + "; ".join(activities), {"stopped": activities})
+    unstopped = [a for a in activities if "could not be stopped" in a]
+    if unstopped:
+        store.record_event(run_id, "error", "after the outputs: " + "; ".join(unstopped), {"stopped": activities})
     early = list(interlock.stop_shutdown_steps)
     if early:  # what the shutdown a termination signal started did, before the final one
         store.record_event(run_id, "info", "outputs switched off on the termination signal: " + "; ".join(early),

@@ -254,6 +254,8 @@ def test_dialects_against_the_simulated_source(bench, error_check, check):
         plan.clear()
         src.close()
     sent = plan.messages("source")
+    # open's last message (*ESE, no answer awaited) may reach the server after the plan began counting
+    sent = sent[sent.index("VOLT 12"):]
     assert sent[:1 + len(check)] == ["VOLT 12", *check]
     assert "*OPC" in sent and "*OPC?" not in sent and not any(";" in m for m in sent)
 

@@ -31,12 +31,12 @@ def emap():
     return load_procedure("efficiency_map")
 
 
-def _station(bench):
-    return parse_station(bench.station_toml().replace("timeout_s = 2.0", f"timeout_s = {TIMEOUT_S}"))
+def _station(bench, timeout_s=TIMEOUT_S):
+    return parse_station(bench.station_toml().replace("timeout_s = 2.0", f"timeout_s = {timeout_s}"))
 
 
-def _run(emap, bench, store, specs=()):
-    station = _station(bench)
+def _run(emap, bench, store, specs=(), timeout_s=TIMEOUT_S):
+    station = _station(bench, timeout_s)
     params = emap.resolve_parameters(values={**bench.procedure_parameters(), **SWEEP})
     committed: list[int] = []
     plan = apply_fault_specs(bench, specs)
@@ -203,7 +203,8 @@ def test_dut_fault_that_overstresses_trips(kind, emap, clean_counts, simulated_b
 
 def test_overheat_shows_in_the_losses_and_completes(emap, simulated_bench, benchctl_store):
     bench = simulated_bench("flyback-48v-5v", time_scale=50.0)
-    outcome, plan, committed = _run(emap, bench, benchctl_store, ["overheat@load:after=10"])
+    # a DUT fault: the instruments answer, so a generous timeout keeps a loaded machine from looking like a hang
+    outcome, plan, committed = _run(emap, bench, benchctl_store, ["overheat@load:after=10"], timeout_s=2.0)
     assert plan.fired and outcome.status == "completed", outcome.message
     points = benchctl_store.points(outcome.run_id)
     last = points.iloc[-1]
@@ -218,7 +219,8 @@ def test_overheat_shows_in_the_losses_and_completes(emap, simulated_bench, bench
 
 def test_input_sag_below_lockout_is_recorded_truthfully(emap, clean_counts, simulated_bench, benchctl_store):
     bench = simulated_bench("flyback-48v-5v", time_scale=50.0)
-    outcome, plan, committed = _run(emap, bench, benchctl_store, [f"input_sag@load:after={_after(clean_counts, 'load')}"])
+    outcome, plan, committed = _run(emap, bench, benchctl_store, [f"input_sag@load:after={_after(clean_counts, 'load')}"],
+                                    timeout_s=2.0)  # a DUT fault, as above
     assert plan.fired and outcome.status == "completed", outcome.message
     points = benchctl_store.points(outcome.run_id)
     after = points.iloc[-1]

@@ -38,8 +38,13 @@ def _run_with_fault_after_first_point(emap, bench, store, specs, *, source_curre
     text = bench.station_toml()
     values = {**bench.procedure_parameters(), "vin_v": [48.0], "load_pct": list(load_pct)}
     if source_current_max_a is not None:
+        from benchctl.simulated_instruments.bench import absolute_limits_for
+
         text = text.replace(f"source_current_max_a = {bench.limits.source_current_max_a!r}",
-                            f"source_current_max_a = {source_current_max_a!r}")
+                            f"source_current_max_a = {source_current_max_a!r}", 1)
+        # the absolute limit of the source current follows (a key left out stays at the operating limit)
+        absolute = absolute_limits_for(bench.design).source_current_max_a
+        text = text.replace(f"source_current_max_a = {absolute!r}\n", "", 1)
     station = parse_station(text)
     params = emap.resolve_parameters(values=values)
     plan = FaultPlan(bench)
