@@ -45,9 +45,12 @@ def simulated_bench() -> Any:
     started: list[SimulatedBench] = []
 
     def start(model: str = "flyback-48v-5v", *, time_scale: float = 50.0, seed: int = 1,
-              thermal_drift: bool = False, reading_time_s: float = FAST_READING_TIME_S) -> SimulatedBench:
+              thermal_drift: bool = False, reading_time_s: float = FAST_READING_TIME_S,
+              **options: Any) -> SimulatedBench:
+        # options: the bench's other knobs (generator=True, duts=3, thermal=True, dut_protection=True,
+        # extra_loads=1, protocol="hislip", quirks={...}; see SimulatedBench)
         bench = SimulatedBench(model, time_scale=time_scale, seed=seed, thermal_drift=thermal_drift,
-                               reading_time_s=reading_time_s).start()
+                               reading_time_s=reading_time_s, **options).start()
         started.append(bench)
         return bench
 
