@@ -372,7 +372,10 @@ class Oscilloscope(ScpiDriver):
 
     def _fetch_combined(self, ch: int) -> tuple[WaveformPreamble, bytes] | None:
         """Preamble and block in one message (``<preamble query>;:<data query>``), one round trip
-        instead of two where the session can (its fast path); None where it cannot."""
+        instead of two where the session can (its fast path); None where it cannot, or where the
+        instrument's dialect says it takes no compound messages (``error_check`` other than compound)."""
+        if self.error_check != "compound":
+            return None
         pre_q, data_q = self.command("get_preamble", channel=ch), self.command("get_data", channel=ch)
         both = self.query_text_and_block(f"{pre_q};:{data_q.lstrip(':')}")
         if both is None:

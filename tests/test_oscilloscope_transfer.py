@@ -132,3 +132,22 @@ def test_command_table_overrides_are_checked():
     assert table["arm"] == "DIG"
     with pytest.raises(StationFileError, match="no command named"):
         Oscilloscope.command_table({"no_such_command": "X"})
+
+
+def test_a_scope_without_compound_messages_fetches_preamble_and_block_apart():
+    """error_check = separate (what `benchctl probe` proposes for it): no `;` in any message, and the
+    same hand-built block scaled by its preamble as over the combined fast path."""
+    bench = SimulatedBench("flyback-48v-5v", time_scale=50.0, seed=3, quirks={"scope": ["no_compound"]}).start()
+    scope = Oscilloscope(bench.resources["scope"], timeout_s=10.0, options={"error_check": "separate"}).open()
+    try:
+        scope.single(5.0)
+        codes = np.array([100, -200, 300, 0], dtype="<i2")
+        _serve_hand_built(bench, codes.tobytes(), (16, codes.size, 1e-6, 0.0, 0.0, 1e-3, 0.5, 0.0, 0, "V"))
+        wf = scope.fetch_waveform(1)
+        # v = y_origin + (code - y_reference) * y_increment (common practice)
+        assert np.array_equal(wf.values, 0.5 + codes.astype(float) * 1e-3)
+        # the quirky scope queues -103 for the rest of any message of several units: none was sent
+        assert scope.read_errors() == []
+    finally:
+        scope.close()
+        bench.stop()
