@@ -303,3 +303,30 @@ def test_a_run_with_an_unchecked_dialect_stores_and_tells_the_caution(bench, tmp
     # the run still measured and recorded its point through the unchecked meter
     pts = benchctl_store.points(out.run_id)
     assert len(pts) == 1
+
+
+def test_capture_by_the_operation_register_against_the_simulated_scope(bench):
+    """capture_wait = operation_register on the simulated scope: a capture that triggers completes (its
+    STAT:OPER:COND? went through 'measuring' to 0), one whose trigger never comes times out after the
+    wait asked for, and the scope answers at once afterwards."""
+    from benchctl.drivers.oscilloscope import Oscilloscope
+
+    scope = Oscilloscope(bench.resources["scope"], name="scope", timeout_s=5.0,
+                         options={"capture_wait": "operation_register"}).open()
+    try:
+        scope.set_record(0.002, 2000)
+        scope.set_trigger("immediate")
+        scope.arm()
+        scope.wait_triggered(10.0)
+        wf = scope.fetch_waveform(1)
+        assert wf.values.size == 2000
+        polls = [e for e in bench.instruments["scope"].audit.entries()
+                 if e.kind == "command" and e.text.startswith("STAT:OPER:COND")]
+        assert polls, "the wait did not poll the operation register"
+        scope.set_trigger(1, level=1e3, slope="rising")  # 1 kV on a 5 V output: never
+        scope.arm()
+        with pytest.raises(InstrumentTimeout, match="0.5 s"):
+            scope.wait_triggered(0.5)
+        assert scope.identify().model  # usable again: the capture was aborted
+    finally:
+        scope.close()

@@ -149,6 +149,9 @@ class SimulatedOscilloscope(ScpiInstrument):
                          params=[Choice("AUTO", "NORMal")])
         self.add_command("INITiate[:IMMediate]", setter=self._initiate)
         self.add_command("INITiate:DONE", getter=lambda: self.pending_done())
+        # SCPI-1999 Vol. 2 STATus:OPERation: bit 3 SWEeping, bit 4 MEASuring, bit 5 waiting for TRIGger
+        # (from memory): 32 while armed and untriggered, 16 while the post-trigger part is recorded, 0 done.
+        self.add_command("STATus:OPERation:CONDition", getter=self._operation_condition)
         self.add_command("ABORt", setter=self._abort)
         self.add_command("FORMat[:DATA]", setter=self._set_format, getter=self._get_format,
                          params=[Choice("INTeger", "REAL"), Numeric(minimum=8, maximum=32, integer=True,
@@ -279,6 +282,11 @@ class SimulatedOscilloscope(ScpiInstrument):
     def _abort(self) -> None:
         self._armed_at = None
         self._trigger_t = None
+
+    def _operation_condition(self) -> int:
+        if self.pending_done():
+            return 0
+        return 32 if self._trigger_t is None else 16
 
     def pending_done(self) -> bool:
         if self._armed_at is None:
