@@ -10,13 +10,18 @@
     benchctl analyze turn-on start.csv [--vout-column C] [--vin-column C] [--vin-level-v V]
                                        [--band-v B] [--final-v V] [--turn-off] [--json]
     benchctl analyze inrush iin.csv [--column C] [--source-limit-a A] [--json]
+    benchctl analyze line-step step.csv [--vout-column C] [--step-time-s T] --band-v B [--fsw-hz F] [--json]
+    benchctl analyze hold-up dropout.csv --vin-column C --vout-column C --band-v B
+                                        [--capacitance-f C --power-w P] [--json]
+    benchctl analyze warm-up log.csv [--column C] [--ambient-column C] [--json]
 
 The files hold a time column in seconds and value columns (:mod:`benchctl.analysis.waveform_csv`);
 a bad file is reported with its row and column and exit code 2. With ``--fsw-hz`` the
 transient metrics are taken on the output averaged over one switching period (a boxcar with
 nulls at fsw and its harmonics: the ripple does not count as deviation), as the
 ``load_transient`` procedure does. Methods:
-:mod:`benchctl.analysis.turn_on`, :mod:`~benchctl.analysis.inrush`,
+:mod:`benchctl.analysis.turn_on`, :mod:`~benchctl.analysis.inrush`, :mod:`~benchctl.analysis.line_response`,
+:mod:`~benchctl.analysis.hold_up`, :mod:`~benchctl.analysis.thermal`,
 :mod:`benchctl.analysis.transient`, :mod:`~benchctl.analysis.ripple`,
 :mod:`~benchctl.analysis.conduction_mode`, :mod:`~benchctl.analysis.ringing`.
 """
@@ -106,6 +111,37 @@ def add_waveform_subcommands(analyze_sub: Any) -> None:
     p.add_argument("--source-limit-a", type=float, default=None, help="the source's current limit, A")
     p.add_argument("--json", action="store_true", help="print JSON instead of a table")
     p.set_defaults(analyze_handler=f"{_HANDLERS}:run_inrush")
+
+    p = analyze_sub.add_parser("line-step", help="line-step response: peak deviation, static shift, recovery",
+                               description="CSV: time in s (0 at the step, or give --step-time-s) and the output.")
+    p.add_argument("file", help="waveform CSV (time column first)")
+    p.add_argument("--vout-column", default=None, help="output-voltage column (default: the first value column)")
+    p.add_argument("--step-time-s", type=float, default=0.0, help="time of the line step in the file, s (default 0)")
+    p.add_argument("--band-v", type=float, required=True, help="recovery band half-width around the pre-step value, V")
+    p.add_argument("--fsw-hz", type=float, default=None,
+                   help="switching frequency: metrics on the output averaged over one switching period")
+    p.add_argument("--json", action="store_true", help="print JSON instead of a table")
+    p.set_defaults(analyze_handler=f"{_HANDLERS}:run_line_step")
+
+    p = analyze_sub.add_parser("hold-up", help="hold-up time after an input dropout (and the energy estimate)",
+                               description="CSV: time in s, the DUT input voltage and the output voltage, the record "
+                                           "beginning before the dropout.")
+    p.add_argument("file", help="waveform CSV (time column first)")
+    p.add_argument("--vin-column", required=True, help="input-voltage column")
+    p.add_argument("--vout-column", required=True, help="output-voltage column")
+    p.add_argument("--band-v", type=float, required=True, help="regulation band half-width, V")
+    p.add_argument("--capacitance-f", type=float, default=None, help="bulk capacitance on the input, F")
+    p.add_argument("--power-w", type=float, default=None, help="input power before the dropout, W")
+    p.add_argument("--json", action="store_true", help="print JSON instead of a table")
+    p.set_defaults(analyze_handler=f"{_HANDLERS}:run_hold_up")
+
+    p = analyze_sub.add_parser("warm-up", help="first-order fit of a temperature log: final value, time constant",
+                               description="CSV: time in s from a load step and a temperature column (°C).")
+    p.add_argument("file", help="logger CSV (time column first)")
+    p.add_argument("--column", default=None, help="temperature column (default: the first value column)")
+    p.add_argument("--ambient-column", default=None, help="ambient column: the rise above it is reported too")
+    p.add_argument("--json", action="store_true", help="print JSON instead of a table")
+    p.set_defaults(analyze_handler=f"{_HANDLERS}:run_warm_up")
 
 
 # ---------------------------------------------------------------- output
@@ -257,3 +293,47 @@ def run_inrush(args: argparse.Namespace) -> int:
     name, i = table.column(args.column)
     m = inrush_metrics(table.t_s, i, source_limit_a=args.source_limit_a)
     return _emit(args, "inrush", {"column": name}, m)
+
+
+def run_line_step(args: argparse.Namespace) -> int:
+    from benchctl.analysis.line_response import line_step_metrics
+
+    table = _load(args, 8)
+    name, vout = table.column(args.vout_column)
+    if args.fsw_hz:
+        from benchctl.analysis.transient import switching_period_average
+
+        vout = switching_period_average(table.t_s, vout, args.fsw_hz)
+    m = line_step_metrics(table.t_s, vout, step_time_s=args.step_time_s, band_v=args.band_v)
+    return _emit(args, "line step", {"vout_column": name, "averaged_over_fsw": bool(args.fsw_hz)}, m)
+
+
+def run_hold_up(args: argparse.Namespace) -> int:
+    from benchctl.analysis.hold_up import energy_hold_up_s, hold_up_metrics
+
+    table = _load(args, 10)
+    _, vin = table.column(args.vin_column)
+    _, vout = table.column(args.vout_column)
+    m = hold_up_metrics(table.t_s, vin, vout, band_v=args.band_v)
+    source: dict[str, Any] = {"vin_column": args.vin_column, "vout_column": args.vout_column}
+    if args.capacitance_f and args.power_w and m.v2_v is not None:
+        energy = energy_hold_up_s(args.capacitance_f, m.v1_v, m.v2_v, args.power_w)
+        source["energy_hold_up_s"] = f"{energy:.6g}"
+        if m.hold_up_s is not None:
+            source["hold_up_to_energy"] = f"{m.hold_up_s / energy:.4g}"
+    return _emit(args, "hold-up", source, m)
+
+
+def run_warm_up(args: argparse.Namespace) -> int:
+    import numpy as np
+
+    from benchctl.analysis.thermal import fit_first_order
+
+    table = _load(args, 4)
+    name, temp = table.column(args.column)
+    fit = fit_first_order(table.t_s, temp)
+    source: dict[str, Any] = {"column": name}
+    if args.ambient_column is not None:
+        _, ambient = table.column(args.ambient_column)
+        source["rise_at_end_k"] = f"{float(fit.t_final_c - np.mean(ambient)):.4g}"
+    return _emit(args, "warm-up", source, fit)
