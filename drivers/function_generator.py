@@ -84,5 +84,10 @@ class FunctionGenerator(ScpiDriver):
     def set_output(self, on: bool) -> None:
         self.write("set_output", state=self.on_off(on))
 
+    def stop_activity(self) -> None:
+        """At a run's shutdown (after the source and loads): the generator's output off, read back
+        (:meth:`output_off_now`), so no sine is left on the DUT's input line however the run ended."""
+        self.output_off_now()
+
     def output_enabled(self) -> bool:
         return self.query_bool("get_output")

@@ -235,3 +235,26 @@ def test_sigterm_during_a_loop_sweep_aborts_the_injection(simulated_bench, tmp_p
     assert abort is not None, "the analyzer's sweep was not aborted at the shutdown"
     source_off = _first_state_after(bench, "source", "output", False, t_signal)
     assert source_off is not None and source_off.t_s <= abort.t_s  # the outputs first, then the injection
+
+
+def test_sigterm_during_line_injection_switches_the_generator_off(simulated_bench, tmp_path):
+    """A SIGTERM while the generator injects on the line: source off, load off, then the generator off."""
+    bench = simulated_bench("flyback-48v-5v", time_scale=1.0, generator=True)
+    proc, db, err = _start_run(bench, tmp_path, ["frequency_hz=100,200,300,500,1000"], procedure="line_rejection")
+    generator = bench.instruments["generator"]
+    try:
+        _wait_for(lambda: any(e.value is True for e in generator.audit.states("output")), proc,
+                  "the generator's output on")
+        t_signal = time.monotonic()
+        proc.send_signal(signal.SIGTERM)
+        proc.wait(timeout=EXIT_TIMEOUT_S)
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+            proc.wait()
+    assert proc.returncode == ExitCode.TERMINATED, err.read_text()
+    _check_interrupted(db, "SIGTERM")
+    _check_outputs_off_in_order(bench, t_signal)
+    off = _first_state_after(bench, "generator", "output", False, t_signal)
+    assert off is not None, "the generator was left on"
+    assert generator.audit.states("output")[-1].value is False
