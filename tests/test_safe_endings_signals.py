@@ -212,15 +212,12 @@ def test_second_and_third_ctrl_c_do_not_cut_the_shutdown_short(simulated_bench, 
 
 
 
-def test_sigterm_during_a_loop_sweep_aborts_the_injection(simulated_bench, tmp_path):
-    """A SIGTERM mid-sweep: outputs off, then the analyzer's sweep (its injection) aborted; exit 143."""
-    bench = simulated_bench("flyback-48v-5v", time_scale=1.0)
-    proc, db, err = _start_run(bench, tmp_path, ["vin_v=48", "load_pct=50", "points=201", "bandwidth_hz=5"],
-                               procedure="loop_gain")
-    analyzer = bench.instruments["analyzer"]
+def _sigterm_once(bench, tmp_path, sets, procedure, condition, what) -> float:
+    """Run ``procedure``, send SIGTERM once ``condition()`` holds; check exit 143, the stored
+    interruption and the outputs off in order. Returns when the signal was sent."""
+    proc, db, err = _start_run(bench, tmp_path, sets, procedure=procedure)
     try:
-        _wait_for(lambda: any(e.kind == "command" and e.text == "INIT" for e in analyzer.audit.entries()), proc,
-                  "the analyzer's sweep to start")
+        _wait_for(condition, proc, what)
         t_signal = time.monotonic()
         proc.send_signal(signal.SIGTERM)
         proc.wait(timeout=EXIT_TIMEOUT_S)
@@ -231,6 +228,16 @@ def test_sigterm_during_a_loop_sweep_aborts_the_injection(simulated_bench, tmp_p
     assert proc.returncode == ExitCode.TERMINATED, err.read_text()
     _check_interrupted(db, "SIGTERM")
     _check_outputs_off_in_order(bench, t_signal)
+    return t_signal
+
+
+def test_sigterm_during_a_loop_sweep_aborts_the_injection(simulated_bench, tmp_path):
+    """A SIGTERM mid-sweep: outputs off, then the analyzer's sweep (its injection) aborted; exit 143."""
+    bench = simulated_bench("flyback-48v-5v", time_scale=1.0)
+    analyzer = bench.instruments["analyzer"]
+    t_signal = _sigterm_once(bench, tmp_path, ["vin_v=48", "load_pct=50", "points=201", "bandwidth_hz=5"], "loop_gain",
+                             lambda: any(e.kind == "command" and e.text == "INIT" for e in analyzer.audit.entries()),
+                             "the analyzer's sweep to start")
     abort = _first_command_after(bench, "analyzer", "ABOR", t_signal)
     assert abort is not None, "the analyzer's sweep was not aborted at the shutdown"
     source_off = _first_state_after(bench, "source", "output", False, t_signal)
@@ -240,21 +247,9 @@ def test_sigterm_during_a_loop_sweep_aborts_the_injection(simulated_bench, tmp_p
 def test_sigterm_during_line_injection_switches_the_generator_off(simulated_bench, tmp_path):
     """A SIGTERM while the generator injects on the line: source off, load off, then the generator off."""
     bench = simulated_bench("flyback-48v-5v", time_scale=1.0, generator=True)
-    proc, db, err = _start_run(bench, tmp_path, ["frequency_hz=100,200,300,500,1000"], procedure="line_rejection")
     generator = bench.instruments["generator"]
-    try:
-        _wait_for(lambda: any(e.value is True for e in generator.audit.states("output")), proc,
-                  "the generator's output on")
-        t_signal = time.monotonic()
-        proc.send_signal(signal.SIGTERM)
-        proc.wait(timeout=EXIT_TIMEOUT_S)
-    finally:
-        if proc.poll() is None:
-            proc.kill()
-            proc.wait()
-    assert proc.returncode == ExitCode.TERMINATED, err.read_text()
-    _check_interrupted(db, "SIGTERM")
-    _check_outputs_off_in_order(bench, t_signal)
-    off = _first_state_after(bench, "generator", "output", False, t_signal)
-    assert off is not None, "the generator was left on"
+    t_signal = _sigterm_once(bench, tmp_path, ["frequency_hz=100,200,300,500,1000"], "line_rejection",
+                             lambda: any(e.value is True for e in generator.audit.states("output")),
+                             "the generator's output on")
+    assert _first_state_after(bench, "generator", "output", False, t_signal) is not None, "the generator was left on"
     assert generator.audit.states("output")[-1].value is False

@@ -1,4 +1,4 @@
-"""`benchctl analyze turn-on` and `inrush` on a user's CSV, against closed forms."""
+"""`benchctl analyze turn-on`, `inrush`, `line-step`, `hold-up` and `warm-up` on a user's CSV, against closed forms."""
 
 from __future__ import annotations
 
@@ -54,3 +54,47 @@ def test_inrush_from_csv(tmp_path, capsys):
     out = json.loads(capsys.readouterr().out)["result"]
     assert out["peak_a"] == 2.0 and out["peak_to_limit"] == 1.0
     assert out["i2t_a2s"] == pytest.approx(2.0 * 10e-6 * 48.0, rel=0.01)
+
+
+def test_line_step_of_a_first_order_recovery(tmp_path, capsys):
+    # v = 5 + 0.2·e^(−t/τ) after the step (first-order step response, handbook): peak +0.2 V at 0+, back in a
+    # 10 mV band after τ·ln(0.2/0.01) = 0.5 ms · 3.0 = 1.50 ms
+    t = np.arange(-500, 5001) * 1e-6
+    v = np.where(t < 0, 5.0, 5.0 + 0.2 * np.exp(-np.clip(t, 0, None) / 0.5e-3))
+    f = _write(tmp_path / "step.csv", "time_s,vout_v", (t, v))
+    assert _cli(["analyze", "line-step", f, "--band-v", "0.01", "--json"]) == 0
+    out = json.loads(capsys.readouterr().out)["result"]
+    assert out["peak_deviation_v"] == pytest.approx(0.2, rel=1e-3)
+    assert out["recovery_s"] == pytest.approx(0.5e-3 * math.log(20.0), abs=2e-6)  # one sample of 1 µs
+    assert out["recovered"] is True
+
+
+def test_hold_up_at_constant_power_against_the_energy_balance(tmp_path, capsys):
+    # 470 µF from 48 V at 25 W: v² falls linearly, v(t)² = V1² − 2·P·t/C; the output leaves its band when
+    # the input reaches 32 V, after ½·C·(48² − 32²)/P = 12.03 ms (energy balance, common practice)
+    c, p, v1, v2 = 470e-6, 25.0, 48.0, 32.0
+    t_hold = 0.5 * c * (v1 ** 2 - v2 ** 2) / p
+    t = np.arange(-2000, 20001) * 1e-6
+    vin = np.sqrt(np.clip(v1 ** 2 - 2 * p * np.clip(t, 0, None) / c, v2 ** 2, None))
+    vout = np.where(t < t_hold, 5.0, 5.0 - 2000.0 * (t - t_hold))  # then it drains at 2 kV/s
+    vout = np.clip(vout, 0.0, None)
+    f = _write(tmp_path / "dropout.csv", "time_s,vin_v,vout_v", (t, vin, vout))
+    assert _cli(["analyze", "hold-up", f, "--vin-column", "vin_v", "--vout-column", "vout_v", "--band-v", "0.25",
+                 "--capacitance-f", str(c), "--power-w", str(p), "--json"]) == 0
+    data = json.loads(capsys.readouterr().out)
+    out = data["result"]
+    # the output leaves the 0.25 V band 0.125 ms after the input reaches 32 V (0.25 V at 2 kV/s)
+    assert out["hold_up_s"] == pytest.approx(t_hold + 0.125e-3, rel=0.01)
+    assert float(data["energy_hold_up_s"]) == pytest.approx(t_hold, rel=0.01)
+
+
+def test_warm_up_fit_recovers_the_time_constant(tmp_path, capsys):
+    # T(t) = T∞ + (T0 − T∞)·e^(−t/τ) (first-order thermal network, common practice), τ = 240 s, 25 -> 80 °C
+    t = np.arange(0, 1800, 5.0)
+    temp = 80.0 + (25.0 - 80.0) * np.exp(-t / 240.0)
+    f = _write(tmp_path / "log.csv", "time_s,rectifier_c,ambient_c", (t, temp, np.full_like(t, 25.0)))
+    assert _cli(["analyze", "warm-up", f, "--column", "rectifier_c", "--ambient-column", "ambient_c", "--json"]) == 0
+    data = json.loads(capsys.readouterr().out)
+    assert data["result"]["tau_s"] == pytest.approx(240.0, rel=1e-3)
+    assert data["result"]["t_final_c"] == pytest.approx(80.0, abs=0.01)
+    assert float(data["rise_at_end_k"]) == pytest.approx(55.0, abs=0.01)

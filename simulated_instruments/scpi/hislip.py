@@ -53,7 +53,7 @@ from enum import IntEnum
 from typing import get_args
 
 from .instrument import ABORT_CLOSED, ABORT_DEVICE_CLEAR, ABORT_NEW_INPUT, ScpiInstrument
-from .server import GARBLED_RESPONSE, LOOPBACK, FaultKind, _reset_close
+from .server import GARBLED_RESPONSE, LOOPBACK, FaultKind, _reset_close, listen_on_loopback
 
 logger = logging.getLogger(__name__)
 
@@ -69,7 +69,6 @@ SERVER_MAX_MESSAGE_BYTES = 1 << 20
 #: The client's maximum until it says otherwise.
 DEFAULT_CLIENT_MAX_MESSAGE_BYTES = 1 << 20
 _INIT_TIMEOUT_S = 5.0
-_ACCEPT_POLL_S = 0.05
 
 
 class Msg(IntEnum):
@@ -220,18 +219,7 @@ class HislipServer:
         with self._lock:
             if self._running:
                 return self
-            listener = socket.socket(socket.AF_INET, socket.SOCK_STREAM)
-            listener.setsockopt(socket.SOL_SOCKET, socket.SO_REUSEADDR, 1)
-            try:
-                listener.bind((LOOPBACK, self._requested_port))
-            except OSError as exc:
-                listener.close()
-                raise OSError(
-                    f"cannot listen on {LOOPBACK}:{self._requested_port} for {self.instrument.identity.model} "
-                    f"(HiSLIP): {exc}; choose another port or 0 for a free one"
-                ) from exc
-            listener.listen(16)
-            listener.settimeout(_ACCEPT_POLL_S)
+            listener = listen_on_loopback(self._requested_port, f"{self.instrument.identity.model} (HiSLIP)")
             self._listener = listener
             self._port = listener.getsockname()[1]
             self._stopping.clear()

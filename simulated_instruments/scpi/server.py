@@ -71,6 +71,22 @@ def _reset_close(sock: socket.socket) -> None:
     sock.close()
 
 
+def listen_on_loopback(port: int, what: str) -> socket.socket:
+    """A listening TCP socket on 127.0.0.1:``port`` (0: a free one) that polls for accepts; an
+    address in use is an error naming ``what`` and the port."""
+    listener = socket.socket(socket.AF_INET, socket.SOCK_STREAM)
+    listener.setsockopt(socket.SOL_SOCKET, socket.SO_REUSEADDR, 1)
+    try:
+        listener.bind((LOOPBACK, port))
+    except OSError as exc:
+        listener.close()
+        raise OSError(f"cannot listen on {LOOPBACK}:{port} for {what}: {exc}; choose another port or 0 for a free one"
+                      ) from exc
+    listener.listen(16)
+    listener.settimeout(_ACCEPT_POLL_S)
+    return listener
+
+
 class ScpiServer:
     """Serve ``instrument`` on ``127.0.0.1:port``; a context manager.
 
@@ -106,18 +122,7 @@ class ScpiServer:
         with self._lock:
             if self._running:
                 return self
-            listener = socket.socket(socket.AF_INET, socket.SOCK_STREAM)
-            listener.setsockopt(socket.SOL_SOCKET, socket.SO_REUSEADDR, 1)
-            try:
-                listener.bind((LOOPBACK, self._requested_port))
-            except OSError as exc:
-                listener.close()
-                raise OSError(
-                    f"cannot listen on {LOOPBACK}:{self._requested_port} for {self.instrument.identity.model}: "
-                    f"{exc}; choose another port or 0 for a free one"
-                ) from exc
-            listener.listen(16)
-            listener.settimeout(_ACCEPT_POLL_S)
+            listener = listen_on_loopback(self._requested_port, self.instrument.identity.model)
             self._listener = listener
             self._port = listener.getsockname()[1]
             self._stopping.clear()
