@@ -125,7 +125,7 @@ def bench_postgres(server_url: str, n: int) -> None:
 
 
 def bench_sqlite(n: int) -> None:
-    with tempfile.TemporaryDirectory() as folder:
+    with tempfile.TemporaryDirectory(dir=".") as folder:  # in the working directory, as every benchmark
         path = Path(folder) / "bench.db"
         with Store.open(path, recover=False) as store:
             run_id = store.begin_run(_start("sqlite-store"))
