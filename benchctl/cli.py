@@ -69,6 +69,9 @@ def _add_bench_commands(sub: Any) -> None:
     p.add_argument("--thermal", action="store_true",
                    help="put the DUT in a thermal chamber (role chamber) with a temperature meter (role temp_meter); "
                         "turns thermal drift on")
+    p.add_argument("--dut-protection", action="store_true",
+                   help="give the DUT hiccup over-current and latching over-voltage protection (for the "
+                        "over_current, short_circuit and over_voltage procedures)")
     p.add_argument("--reading-time", type=float, default=None, metavar="S",
                    help="aperture of every meter, source and load reading in seconds (default 0.02, "
                         "one 50 Hz line cycle)")
