@@ -25,8 +25,8 @@ def protected_bench():
 
 # time scale 1 with the default 20 ms readings (realistic), and accelerated
 @pytest.mark.parametrize("time_scale, reading_time_s", [(1.0, None), (20.0, 0.002)])
-def test_ocp_threshold_within_the_bisection_resolution(protected_bench, station_for, benchctl_store, time_scale,
-                                                       reading_time_s):
+def test_ocp_threshold_within_the_bisection_resolution(protected_bench, station_for, benchctl_store, tmp_path,
+                                                       time_scale, reading_time_s):
     bench = protected_bench(time_scale, reading_time_s)
     proc = load_procedure("over_current")
     params = proc.resolve_parameters(values={})
@@ -47,6 +47,11 @@ def test_ocp_threshold_within_the_bisection_resolution(protected_bench, station_
     res = benchctl_store.results(out.run_id).set_index("name")
     assert res.loc["ocp_threshold_a", "value"] == pytest.approx(float(row["ocp_threshold_a"]))
     assert "test_envelope" in set(benchctl_store.events(out.run_id)["kind"])
+    if time_scale > 1.0:        # the report draws the procedure's plot (once: the accelerated run)
+        from benchctl.report import build_report
+
+        report = build_report(benchctl_store, out.run_id, tmp_path / "report")
+        assert sum("over-current" in p.name for p in report.png_paths) == 1, (report.png_paths, report.notes)
 
 
 def test_without_the_envelope_the_interlock_refuses_the_ramp(protected_bench, station_for, benchctl_store):

@@ -26,7 +26,7 @@ def protected_bench():
 
 
 @pytest.mark.parametrize("time_scale, reading_time_s", [(1.0, None), (20.0, 0.002)])
-def test_ovp_peak_trip_and_latch_match_the_model(protected_bench, station_for, benchctl_store, time_scale,
+def test_ovp_peak_trip_and_latch_match_the_model(protected_bench, station_for, benchctl_store, tmp_path, time_scale,
                                                  reading_time_s):
     bench = protected_bench(time_scale, reading_time_s)
     apply_fault_specs(bench, ["feedback_open@scope:on=INIT"])     # the engineer's switch, at the arm
@@ -56,6 +56,11 @@ def test_ovp_peak_trip_and_latch_match_the_model(protected_bench, station_for, b
     events = benchctl_store.events(out.run_id)
     assert "test_envelope" in set(events["kind"])                         # ... inside the declared envelope
     assert events["message"].str.contains("OPEN THE FEEDBACK PATH").any()
+    if time_scale > 1.0:        # the report draws the procedure's plot (once: the accelerated run)
+        from benchctl.report import build_report
+
+        report = build_report(benchctl_store, out.run_id, tmp_path / "report")
+        assert sum("over-voltage" in p.name for p in report.png_paths) == 1, (report.png_paths, report.notes)
 
 
 def test_without_the_feedback_opened_the_capture_times_out_cleanly(protected_bench, station_for, benchctl_store):

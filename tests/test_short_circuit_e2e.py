@@ -34,7 +34,7 @@ def _model_recovery_s(model, t_release_s: float, level_v: float, band_v: float) 
 
 
 @pytest.mark.parametrize("time_scale, reading_time_s", [(1.0, None), (20.0, 0.002)])
-def test_short_circuit_figures_match_the_model(protected_bench, station_for, benchctl_store, time_scale,
+def test_short_circuit_figures_match_the_model(protected_bench, station_for, benchctl_store, tmp_path, time_scale,
                                                reading_time_s):
     bench = protected_bench(time_scale, reading_time_s)
     proc = load_procedure("short_circuit")
@@ -73,3 +73,8 @@ def test_short_circuit_figures_match_the_model(protected_bench, station_for, ben
                  "short_recovery_s"):
         assert np.isfinite(res.loc[name, "value"]), name
     assert "test_envelope" in set(benchctl_store.events(out.run_id)["kind"])
+    if time_scale > 1.0:        # the report draws the procedure's plot (once: the accelerated run)
+        from benchctl.report import build_report
+
+        report = build_report(benchctl_store, out.run_id, tmp_path / "report")
+        assert sum("short-circuit" in p.name for p in report.png_paths) == 1, (report.png_paths, report.notes)

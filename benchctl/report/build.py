@@ -28,6 +28,7 @@ from . import loop_plots  # noqa: F401  (registers the Bode plot and the margin 
 from . import start_up_plots  # noqa: F401  (registers the turn-on, input-threshold and loss-split plots)
 from . import output_plots  # noqa: F401  (registers the output-impedance and cross-regulation plots)
 from . import thermal_plots  # noqa: F401  (registers the temperature plots)
+from . import protection_plots  # noqa: F401  (registers the over-current, short-circuit and over-voltage plots)
 from . import style
 from .html import EmbeddedImage, render_html
 from .registry import registered_plots
