@@ -52,6 +52,16 @@ def test_ocp_threshold_within_the_bisection_resolution(protected_bench, station_
 
         report = build_report(benchctl_store, out.run_id, tmp_path / "report")
         assert sum("over-current" in p.name for p in report.png_paths) == 1, (report.png_paths, report.notes)
+        # the bundled protection limits pass the model's protection (its figures are inside them)
+        from benchctl.cli import EXIT_OK
+        from benchctl.commands.check import load_run_data
+        from benchctl.limits import check_limits, load_limits
+        from benchctl.procedure import procedures_dir
+
+        limits = load_limits(procedures_dir() / "limits" / "flyback-48v-5v-protection.toml")
+        checked = check_limits(limits, load_run_data(benchctl_store, out.run_id))
+        assert checked.exit_code == EXIT_OK, checked.summary
+        assert checked.outcomes and all(o.limit.applies_to(proc.name) for o in checked.outcomes)
 
 
 def test_without_the_envelope_the_interlock_refuses_the_ramp(protected_bench, station_for, benchctl_store):
