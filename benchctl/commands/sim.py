@@ -109,6 +109,10 @@ def cmd_sim(args: argparse.Namespace) -> int:
         out.print(f"try:  benchctl instruments --station {path}")
         if bench.hazardous:
             print_caution("This simulated converter's input range goes above 60 V DC, as the real one would.")
+        if getattr(args, "dut_protection", False):
+            out.print("[bold yellow]CAUTION:[/] the simulated DUT has hiccup over-current and latching over-voltage "
+                      "protection; the protection procedures push a DUT past normal operation on purpose (on a "
+                      "real bench: follow local codes and licensed practice)")
         for spec in args.fault:
             out.print(f"fault armed: {escape(spec)}")
         for role, found in quirks.items():

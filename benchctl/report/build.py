@@ -29,6 +29,7 @@ from . import start_up_plots  # noqa: F401  (registers the turn-on, input-thresh
 from . import output_plots  # noqa: F401  (registers the output-impedance and cross-regulation plots)
 from . import thermal_plots  # noqa: F401  (registers the temperature plots)
 from . import line_plots  # noqa: F401  (registers the line-step, line-rejection and hold-up plots)
+from . import protection_plots  # noqa: F401  (registers the over-current, short-circuit and over-voltage plots)
 from . import style
 from .html import EmbeddedImage, render_html
 from .registry import registered_plots

@@ -251,9 +251,10 @@ class SimulatedElectronicLoad(ScpiInstrument):
         before_a = self._present_level()
         op_before = self.model.operating_point()
         self._at_b = not self._at_b
+        t_step = self.model.clock.now_s()       # the step's moment: before the model works out its transient
         self._apply()
         op_after = self.model.operating_point()
-        self.activity.add_step(LoadStep(self.model.clock.now_s(), before_a, self._present_level(),
+        self.activity.add_step(LoadStep(t_step, before_a, self._present_level(),
                                         self.slew_a_per_s, op_before, op_after, self.trigger_out))
         self._check_protection()
 
