@@ -34,7 +34,9 @@ def test_every_step_resolves_and_its_limits_bound_it():
             bounded = {"output_impedance"}  # its cross-regulation limits are for the two-output variant
         else:
             bounded = {lim.get("procedure") for lim in tomllib.loads(path.read_text())["limit"]}
-        assert bounded <= {load_procedure(n).name for n in names} | {"cross_regulation"}, path.name
+        # cross_regulation is for the two-output variant; over_voltage needs the feedback opened by hand (not a
+        # step of an unattended night)
+        assert bounded <= {load_procedure(n).name for n in names} | {"cross_regulation", "over_voltage"}, path.name
 
 
 def test_the_night_runs_on_the_simulated_bench_and_passes(simulated_bench, tmp_path):
