@@ -57,3 +57,8 @@ def test_the_night_runs_on_the_simulated_bench_and_passes(simulated_bench, tmp_p
     suites = list(junitparser.JUnitXml.fromfile(str(tmp_path / "night.xml")))
     cases = [case for suite in suites for case in suite]
     assert cases and all(case.is_passed for case in cases), [c.name for c in cases if not c.is_passed]
+
+
+def test_the_readme_shows_the_job_file_as_it_is():
+    readme = (JOB.parents[2] / "README.md").read_text(encoding="utf-8")
+    assert JOB.read_text(encoding="utf-8").strip() in readme
