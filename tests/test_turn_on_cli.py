@@ -98,3 +98,18 @@ def test_warm_up_fit_recovers_the_time_constant(tmp_path, capsys):
     assert data["result"]["tau_s"] == pytest.approx(240.0, rel=1e-3)
     assert data["result"]["t_final_c"] == pytest.approx(80.0, abs=0.01)
     assert float(data["rise_at_end_k"]) == pytest.approx(55.0, abs=0.01)
+
+
+def test_hiccup_of_a_rectangle_wave(tmp_path, capsys):
+    # 6 A for 3 ms every 30 ms (a hiccup current limit), after a 9 A first discharge: period 30 ms, duty 0.1,
+    # mean over whole periods = level·duty = 0.6 A (the mean of a rectangle wave, handbook)
+    t = np.arange(0, 200_000) * 1e-6
+    i = np.where((t % 30e-3) < 3e-3, 6.0, 0.0)
+    i[t < 0.5e-3] = 9.0
+    f = _write(tmp_path / "short.csv", "time_s,iout_a", (t, i))
+    assert _cli(["analyze", "hiccup", f, "--skip-s", "0.01", "--json"]) == 0
+    out = json.loads(capsys.readouterr().out)["result"]
+    assert out["peak_a"] == pytest.approx(9.0)
+    assert out["period_s"] == pytest.approx(30e-3, abs=2e-6)
+    assert out["duty"] == pytest.approx(0.1, abs=1e-3)
+    assert out["average_a"] == pytest.approx(0.6, rel=1e-3)

@@ -14,6 +14,7 @@
     benchctl analyze hold-up dropout.csv --vin-column C --vout-column C --band-v B
                                         [--capacitance-f C --power-w P] [--json]
     benchctl analyze warm-up log.csv [--column C] [--ambient-column C] [--json]
+    benchctl analyze hiccup short.csv [--column C] [--skip-s S] [--json]
 
 The files hold a time column in seconds and value columns (:mod:`benchctl.analysis.waveform_csv`);
 a bad file is reported with its row and column and exit code 2. With ``--fsw-hz`` the
@@ -21,7 +22,7 @@ transient metrics are taken on the output averaged over one switching period (a 
 nulls at fsw and its harmonics: the ripple does not count as deviation), as the
 ``load_transient`` procedure does. Methods:
 :mod:`benchctl.analysis.turn_on`, :mod:`~benchctl.analysis.inrush`, :mod:`~benchctl.analysis.line_response`,
-:mod:`~benchctl.analysis.hold_up`, :mod:`~benchctl.analysis.thermal`,
+:mod:`~benchctl.analysis.hold_up`, :mod:`~benchctl.analysis.thermal`, :mod:`~benchctl.analysis.protection`,
 :mod:`benchctl.analysis.transient`, :mod:`~benchctl.analysis.ripple`,
 :mod:`~benchctl.analysis.conduction_mode`, :mod:`~benchctl.analysis.ringing`.
 """
@@ -142,6 +143,15 @@ def add_waveform_subcommands(analyze_sub: Any) -> None:
     p.add_argument("--ambient-column", default=None, help="ambient column: the rise above it is reported too")
     p.add_argument("--json", action="store_true", help="print JSON instead of a table")
     p.set_defaults(analyze_handler=f"{_HANDLERS}:run_warm_up")
+
+    p = analyze_sub.add_parser("hiccup", help="current into a short: peak, average, hiccup period and duty",
+                               description="CSV: time in s and the output (or short) current, from the short on.")
+    p.add_argument("file", help="waveform CSV (time column first)")
+    p.add_argument("--column", default=None, help="current column (default: the first value column)")
+    p.add_argument("--skip-s", type=float, default=0.0,
+                   help="leave out the first S seconds (the output capacitance's first discharge) from the cycles")
+    p.add_argument("--json", action="store_true", help="print JSON instead of a table")
+    p.set_defaults(analyze_handler=f"{_HANDLERS}:run_hiccup")
 
 
 # ---------------------------------------------------------------- output
@@ -337,3 +347,11 @@ def run_warm_up(args: argparse.Namespace) -> int:
         _, ambient = table.column(args.ambient_column)
         source["rise_at_end_k"] = f"{float(fit.t_final_c - np.mean(ambient)):.4g}"
     return _emit(args, "warm-up", source, fit)
+
+
+def run_hiccup(args: argparse.Namespace) -> int:
+    from benchctl.analysis.protection import hiccup_metrics
+
+    table = _load(args, 8)
+    name, current = table.column(args.column)
+    return _emit(args, "hiccup", {"column": name}, hiccup_metrics(table.t_s, current, skip_s=args.skip_s))
