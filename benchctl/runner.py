@@ -239,8 +239,9 @@ def _record_dialect_cautions(store: Any, run_id: int, drivers: Mapping[str, Any]
                              notify: Callable[[str], None] | None) -> None:
     """What an instrument's dialect leaves unchecked (error_check = none, completion = fixed_wait):
     told at the console and stored with the run, so a reader of its results knows."""
-    cautions = {role: list(d.dialect_cautions()) for role, d in drivers.items()
-                if callable(getattr(d, "dialect_cautions", None)) and d.dialect_cautions()}
+    found = {role: list(d.dialect_cautions()) for role, d in drivers.items()
+             if callable(getattr(d, "dialect_cautions", None))}
+    cautions = {role: c for role, c in found.items() if c}
     if not cautions:
         return
     text = "; ".join(c for found in cautions.values() for c in found)

@@ -97,3 +97,40 @@ def module_store_url(request: pytest.FixtureRequest, tmp_path_factory) -> Iterat
         return
     with _fresh_schema(request.getfixturevalue("pg_server_url")) as url:
         yield url
+
+
+# -- the protection procedures' end-to-end tests ------------------------------------------------------
+
+
+@pytest.fixture
+def protected_bench(simulated_bench):  # type: ignore[no-untyped-def]
+    """``start(time_scale, reading_time_s=0.002)``: the demo flyback with its protection (hiccup
+    over-current, latching over-voltage), served until the test ends."""
+
+    def start(time_scale: float, reading_time_s: float | None = 0.002):  # type: ignore[no-untyped-def]
+        return simulated_bench("flyback-48v-5v", time_scale=time_scale, reading_time_s=reading_time_s,
+                               dut_protection=True)
+
+    return start
+
+
+@pytest.fixture
+def check_protection_run(benchctl_store, tmp_path):  # type: ignore[no-untyped-def]
+    """``check(run_id, procedure_name, plot_key)``: the report draws the procedure's plot once, and the
+    bundled protection limits pass the model's protection (its figures are inside them)."""
+
+    def check(run_id: int, procedure_name: str, plot_key: str) -> None:
+        from benchctl.cli import EXIT_OK
+        from benchctl.commands.check import load_run_data
+        from benchctl.limits import check_limits, load_limits
+        from benchctl.procedure import procedures_dir
+        from benchctl.report import build_report
+
+        report = build_report(benchctl_store, run_id, tmp_path / "report")
+        assert sum(plot_key in p.name for p in report.png_paths) == 1, (report.png_paths, report.notes)
+        limits = load_limits(procedures_dir() / "limits" / "flyback-48v-5v-protection.toml")
+        checked = check_limits(limits, load_run_data(benchctl_store, run_id))
+        assert checked.exit_code == EXIT_OK, checked.summary
+        assert checked.outcomes and all(o.limit.applies_to(procedure_name) for o in checked.outcomes)
+
+    return check

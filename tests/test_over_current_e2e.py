@@ -6,26 +6,12 @@ import pytest
 
 from benchctl.procedure import load_procedure
 from benchctl.runner import execute
-from benchctl.simulated_instruments.bench import SimulatedBench
-
-
-@pytest.fixture
-def protected_bench():
-    started: list[SimulatedBench] = []
-
-    def start(time_scale: float, reading_time_s: float | None = 0.002) -> SimulatedBench:
-        bench = SimulatedBench(time_scale=time_scale, dut_protection=True, reading_time_s=reading_time_s).start()
-        started.append(bench)
-        return bench
-
-    yield start
-    for bench in started:
-        bench.stop()
 
 
 # time scale 1 with the default 20 ms readings (realistic), and accelerated
 @pytest.mark.parametrize("time_scale, reading_time_s", [(1.0, None), (20.0, 0.002)])
-def test_ocp_threshold_within_the_bisection_resolution(protected_bench, station_for, benchctl_store, tmp_path,
+def test_ocp_threshold_within_the_bisection_resolution(protected_bench, check_protection_run, station_for,
+                                                       benchctl_store, tmp_path,
                                                        time_scale, reading_time_s):
     bench = protected_bench(time_scale, reading_time_s)
     proc = load_procedure("over_current")
@@ -48,20 +34,7 @@ def test_ocp_threshold_within_the_bisection_resolution(protected_bench, station_
     assert res.loc["ocp_threshold_a", "value"] == pytest.approx(float(row["ocp_threshold_a"]))
     assert "test_envelope" in set(benchctl_store.events(out.run_id)["kind"])
     if time_scale > 1.0:        # the report draws the procedure's plot (once: the accelerated run)
-        from benchctl.report import build_report
-
-        report = build_report(benchctl_store, out.run_id, tmp_path / "report")
-        assert sum("over-current" in p.name for p in report.png_paths) == 1, (report.png_paths, report.notes)
-        # the bundled protection limits pass the model's protection (its figures are inside them)
-        from benchctl.cli import EXIT_OK
-        from benchctl.commands.check import load_run_data
-        from benchctl.limits import check_limits, load_limits
-        from benchctl.procedure import procedures_dir
-
-        limits = load_limits(procedures_dir() / "limits" / "flyback-48v-5v-protection.toml")
-        checked = check_limits(limits, load_run_data(benchctl_store, out.run_id))
-        assert checked.exit_code == EXIT_OK, checked.summary
-        assert checked.outcomes and all(o.limit.applies_to(proc.name) for o in checked.outcomes)
+        check_protection_run(out.run_id, proc.name, "over-current")
 
 
 def test_without_the_envelope_the_interlock_refuses_the_ramp(protected_bench, station_for, benchctl_store):

@@ -6,27 +6,13 @@ import pytest
 
 from benchctl.procedure import load_procedure
 from benchctl.runner import execute
-from benchctl.simulated_instruments.bench import SimulatedBench
 from benchctl.simulated_instruments.converter.protection import OvpTrip
 from benchctl.simulated_instruments.faults import apply_fault_specs
 
 
-@pytest.fixture
-def protected_bench():
-    started: list[SimulatedBench] = []
-
-    def start(time_scale: float, reading_time_s: float | None = 0.002) -> SimulatedBench:
-        bench = SimulatedBench(time_scale=time_scale, dut_protection=True, reading_time_s=reading_time_s).start()
-        started.append(bench)
-        return bench
-
-    yield start
-    for bench in started:
-        bench.stop()
-
-
 @pytest.mark.parametrize("time_scale, reading_time_s", [(1.0, None), (20.0, 0.002)])
-def test_ovp_peak_trip_and_latch_match_the_model(protected_bench, station_for, benchctl_store, tmp_path, time_scale,
+def test_ovp_peak_trip_and_latch_match_the_model(protected_bench, check_protection_run, station_for, benchctl_store,
+                                                 tmp_path, time_scale,
                                                  reading_time_s):
     bench = protected_bench(time_scale, reading_time_s)
     apply_fault_specs(bench, ["feedback_open@scope:on=INIT"])     # the engineer's switch, at the arm
@@ -57,20 +43,7 @@ def test_ovp_peak_trip_and_latch_match_the_model(protected_bench, station_for, b
     assert "test_envelope" in set(events["kind"])                         # ... inside the declared envelope
     assert events["message"].str.contains("OPEN THE FEEDBACK PATH").any()
     if time_scale > 1.0:        # the report draws the procedure's plot (once: the accelerated run)
-        from benchctl.report import build_report
-
-        report = build_report(benchctl_store, out.run_id, tmp_path / "report")
-        assert sum("over-voltage" in p.name for p in report.png_paths) == 1, (report.png_paths, report.notes)
-        # the bundled protection limits pass the model's protection (its figures are inside them)
-        from benchctl.cli import EXIT_OK
-        from benchctl.commands.check import load_run_data
-        from benchctl.limits import check_limits, load_limits
-        from benchctl.procedure import procedures_dir
-
-        limits = load_limits(procedures_dir() / "limits" / "flyback-48v-5v-protection.toml")
-        checked = check_limits(limits, load_run_data(benchctl_store, out.run_id))
-        assert checked.exit_code == EXIT_OK, checked.summary
-        assert checked.outcomes and all(o.limit.applies_to(proc.name) for o in checked.outcomes)
+        check_protection_run(out.run_id, proc.name, "over-voltage")
 
 
 def test_without_the_feedback_opened_the_capture_times_out_cleanly(protected_bench, station_for, benchctl_store):

@@ -7,22 +7,7 @@ import pytest
 
 from benchctl.procedure import load_procedure
 from benchctl.runner import execute
-from benchctl.simulated_instruments.bench import SimulatedBench
 from benchctl.simulated_instruments.converter.dynamics import OUTPUT_V
-
-
-@pytest.fixture
-def protected_bench():
-    started: list[SimulatedBench] = []
-
-    def start(time_scale: float, reading_time_s: float | None = 0.002) -> SimulatedBench:
-        bench = SimulatedBench(time_scale=time_scale, dut_protection=True, reading_time_s=reading_time_s).start()
-        started.append(bench)
-        return bench
-
-    yield start
-    for bench in started:
-        bench.stop()
 
 
 def _model_recovery_s(model, t_release_s: float, level_v: float, band_v: float) -> float:
@@ -34,7 +19,8 @@ def _model_recovery_s(model, t_release_s: float, level_v: float, band_v: float) 
 
 
 @pytest.mark.parametrize("time_scale, reading_time_s", [(1.0, None), (20.0, 0.002)])
-def test_short_circuit_figures_match_the_model(protected_bench, station_for, benchctl_store, tmp_path, time_scale,
+def test_short_circuit_figures_match_the_model(protected_bench, check_protection_run, station_for, benchctl_store,
+                                               tmp_path, time_scale,
                                                reading_time_s):
     bench = protected_bench(time_scale, reading_time_s)
     proc = load_procedure("short_circuit")
@@ -74,17 +60,4 @@ def test_short_circuit_figures_match_the_model(protected_bench, station_for, ben
         assert np.isfinite(res.loc[name, "value"]), name
     assert "test_envelope" in set(benchctl_store.events(out.run_id)["kind"])
     if time_scale > 1.0:        # the report draws the procedure's plot (once: the accelerated run)
-        from benchctl.report import build_report
-
-        report = build_report(benchctl_store, out.run_id, tmp_path / "report")
-        assert sum("short-circuit" in p.name for p in report.png_paths) == 1, (report.png_paths, report.notes)
-        # the bundled protection limits pass the model's protection (its figures are inside them)
-        from benchctl.cli import EXIT_OK
-        from benchctl.commands.check import load_run_data
-        from benchctl.limits import check_limits, load_limits
-        from benchctl.procedure import procedures_dir
-
-        limits = load_limits(procedures_dir() / "limits" / "flyback-48v-5v-protection.toml")
-        checked = check_limits(limits, load_run_data(benchctl_store, out.run_id))
-        assert checked.exit_code == EXIT_OK, checked.summary
-        assert checked.outcomes and all(o.limit.applies_to(proc.name) for o in checked.outcomes)
+        check_protection_run(out.run_id, proc.name, "short-circuit")
