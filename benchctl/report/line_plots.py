@@ -113,16 +113,7 @@ def hold_up_figure(t_s: ArrayLike, vin_v: ArrayLike, vout_v: ArrayLike, *, dropo
 # ---------------------------------------------------------------- registration
 
 def _records(run: RunData, kind: str) -> list[tuple[int | None, dict[str, Any]]]:
-    rows = run.array_rows("waveform")
-    out: list[tuple[int | None, dict[str, Any]]] = []
-    if rows.empty:
-        return out
-    for _, row in rows.iterrows():
-        meta = row["meta"] or {}
-        if meta.get("kind") == kind:
-            seq = row["point_seq"]
-            out.append((None if seq is None or (isinstance(seq, float) and math.isnan(seq)) else int(seq), meta))
-    return out[:MAX_FIGURES]
+    return run.array_records("waveform", kind, MAX_FIGURES)
 
 
 @register_plot("line-transient", title="Line transients", order=69,

@@ -72,12 +72,7 @@ def cross_regulation_figure(points: Any, *, vout1_nom_v: float | None = None, vo
 # ---------------------------------------------------------------- registration
 
 def _zout_rows(run: RunData) -> list[tuple[int | None, dict]]:
-    rows = run.array_rows("zout")
-    out = []
-    for _, row in rows.iterrows():
-        seq = row["point_seq"]
-        out.append((None if seq is None or seq != seq else int(seq), row["meta"] or {}))
-    return out[:MAX_TRACES]
+    return run.array_records("zout", limit=MAX_TRACES)
 
 
 @register_plot("output-impedance", title="Output impedance", order=67, applies=lambda run: bool(_zout_rows(run)))

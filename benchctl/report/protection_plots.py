@@ -84,15 +84,7 @@ def ovp_figure(t_s: Any, vout_v: Any, *, peak_v: float | None, trip_v: float | N
 # ---------------------------------------------------------------- registration
 
 def _waveforms(run: RunData, kind: str) -> list[tuple[int | None, dict]]:
-    rows = run.array_rows("waveform")
-    out = []
-    for _, row in rows.iterrows():
-        meta = row["meta"] or {}
-        if meta.get("kind") != kind:
-            continue
-        seq = row["point_seq"]
-        out.append((None if seq is None or seq != seq else int(seq), meta))
-    return out
+    return run.array_records("waveform", kind)
 
 
 def _last(run: RunData, column: str) -> float | None:

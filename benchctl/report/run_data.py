@@ -48,6 +48,19 @@ class RunData:
             return self.arrays
         return self.arrays[self.arrays["name"] == name]
 
+    def array_records(self, name: str, kind: str | None = None,
+                      limit: int | None = None) -> list[tuple[int | None, dict[str, Any]]]:
+        """(point seq or None, meta) of the run's arrays called ``name``, in store order; only those
+        whose ``meta["kind"]`` is ``kind`` when it is given; at most ``limit``."""
+        out: list[tuple[int | None, dict[str, Any]]] = []
+        for _, row in self.array_rows(name).iterrows():
+            meta = row["meta"] or {}
+            if kind is not None and meta.get("kind") != kind:
+                continue
+            seq = row["point_seq"]
+            out.append((None if seq is None or seq != seq else int(seq), meta))  # NaN != NaN: no point
+        return out if limit is None else out[:limit]
+
     def float_parameter(self, name: str) -> float | None:
         """A numeric run parameter, or None when absent or not a number."""
         value = self.parameters.get(name)

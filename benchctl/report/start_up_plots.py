@@ -97,14 +97,7 @@ def threshold_figure(vin_v: ArrayLike, vout_v: ArrayLike, phases: ArrayLike, on_
 # ---------------------------------------------------------------- registration
 
 def _turn_on_records(run: RunData) -> list[tuple[int | None, dict]]:
-    rows = run.array_rows("waveform")
-    out = []
-    for _, row in rows.iterrows():
-        meta = row["meta"] or {}
-        if meta.get("kind") == "turn_on":
-            seq = row["point_seq"]
-            out.append((None if seq is None or seq != seq else int(seq), meta))
-    return out[:MAX_FIGURES]
+    return run.array_records("waveform", "turn_on", MAX_FIGURES)
 
 
 @register_plot("turn-on", title="Turn-on", order=64, applies=lambda run: bool(_turn_on_records(run)))

@@ -144,16 +144,7 @@ def ringing_figure(t_s: ArrayLike, v_v: ArrayLike, fit: Any, *, title: str = "Sw
 # ---------------------------------------------------------------- registration
 
 def _records(run: RunData, kind: str) -> list[Any]:
-    rows = run.array_rows("waveform")
-    if rows.empty:
-        return []
-    out = []
-    for _, row in rows.iterrows():
-        meta = row["meta"] or {}
-        if meta.get("kind") == kind:
-            seq = row["point_seq"]
-            out.append((None if seq is None or (isinstance(seq, float) and math.isnan(seq)) else int(seq), meta))
-    return out[:MAX_FIGURES]
+    return run.array_records("waveform", kind, MAX_FIGURES)
 
 
 def _has(kind: str):
