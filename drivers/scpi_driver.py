@@ -601,11 +601,13 @@ class ScpiDriver:
         """
         text = self.command(key, **fields)
         with self._lock:
+            sent = False
             try:
                 self.send(text)
+                sent = True
                 self._check_setting(text)
             except (*_RETRYABLE, InstrumentResponseError) as exc:
-                self._recover_setting(key, fields, text, exc)
+                self._recover_setting(key, fields, text, exc, check_lost=sent and isinstance(exc, _RETRYABLE))
             self._settings[key] = dict(fields)
 
     def _status_query(self) -> str:
@@ -690,8 +692,14 @@ class ScpiDriver:
             if errors:
                 self._raise_scpi(errors, text)
 
-    def _recover_setting(self, key: str, fields: Mapping[str, Any], text: str, first: InstrumentError) -> None:
-        """After ``text`` failed with ``first``: reconnect if needed, read back, re-send only if it differs."""
+    def _recover_setting(self, key: str, fields: Mapping[str, Any], text: str, first: InstrumentError,
+                         check_lost: bool = False) -> None:
+        """After ``text`` failed with ``first``: reconnect if needed, read back, re-send only if it differs.
+
+        ``check_lost``: the setting was sent and the answer to its error check never came. Reading
+        ``*ESR?`` and the error queue removes what they report, so an error that answer carried is
+        gone for good; when the read-back then matches, a warning says so instead of staying silent.
+        """
         if self._retries_stopped:  # the run is shutting down: no read-back, no re-send
             self._drop_session()  # a late answer must not be read as the next one
             raise first
@@ -728,6 +736,10 @@ class ScpiDriver:
                 if errors:
                     self._raise_scpi(errors, text)
                 logger.warning("%s: read-back shows %r took effect; not sent again", self.name, text)
+                if check_lost:
+                    logger.warning("%s: the answer to the error check after %r was lost; an error it reported "
+                                   "(reading the queue removes it) cannot be recovered, so the instrument's own "
+                                   "error log is the only record of one", self.name, text)
                 return
             logger.warning("%s: read-back %r differs from %r; sending the setting again", self.name, answer, text)
             try:

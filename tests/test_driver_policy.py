@@ -87,6 +87,28 @@ def test_a_setting_applied_before_its_check_was_lost_is_read_back_not_resent(ins
     assert "VOLT?" in _after_open(inst) and src.voltage_setpoint() == 12.0
 
 
+def test_a_lost_check_answer_is_said_to_have_taken_any_error_with_it(inst, caplog):
+    # *ESR? and SYST:ERR? remove what they report (IEEE 488.2 §11.5.1.2.2; SCPI-1999 Vol. 2 §21.8, from
+    # memory): the refused setting's -222 went out in the answer that timed out, and only a warning can say so.
+    inst.state["VOLT"] = "12"  # the value already in effect: the read-back matches although VOLT 12 was refused
+    inst.refuse["VOLT"] = (-222, "Data out of range")
+    src = scripted_driver(DcSource, inst, name="source", options=NO_DELAY)
+    inst.fail("*ESR?;:SYST:ERR?", "timeout", applied=True)
+    with caplog.at_level("WARNING", logger="benchctl.drivers.scpi_driver"):
+        src.set_voltage(12.0)
+    assert _after_open(inst).count("VOLT 12") == 1
+    assert any("error check after 'VOLT 12' was lost" in r.getMessage() for r in caplog.records)
+
+
+def test_a_lost_setting_is_not_said_to_have_lost_an_error(inst, caplog):
+    inst.state["VOLT"] = "0"
+    src = scripted_driver(DcSource, inst, options=NO_DELAY)
+    inst.fail("VOLT 12", "drop", applied=True)  # the connection went with the setting, before any check
+    with caplog.at_level("WARNING", logger="benchctl.drivers.scpi_driver"):
+        src.set_voltage(12.0)
+    assert not any("error check" in r.getMessage() for r in caplog.records)
+
+
 def test_a_setting_lost_with_the_connection_is_sent_again_once(inst):
     inst.state["VOLT"] = "0"  # its setpoint before
     src = scripted_driver(DcSource, inst, options=NO_DELAY)
