@@ -9,6 +9,8 @@ reachable from a procedure, so nothing can bypass the limits by accident.
 
 from __future__ import annotations
 
+import math
+import time
 import weakref
 from typing import Any
 
@@ -515,6 +517,29 @@ class GuardedTemperatureMeter(Guarded):
             return self._interlock.check_reading("hot_spot_temperature_max_c", value, self.role,
                                                  f"{label} temperature (°C)")
         return value
+
+
+    def hot_spot_watch_source(self) -> WatchSource:
+        """Every hot-spot channel (all but the ambient) as one source of the interlock watch:
+        each read within the watch's deadline, never retried, checked against
+        ``limits.hot_spot_temperature_max_c``. The channel labels are read here, before the
+        watch starts; a procedure's own temperature readings do not stand in for these (it may
+        read one part while another heats)."""
+        driver, interlock, role = self._driver, self._interlock, self.role
+        hot_spots = [(k, label) for k, label in enumerate(driver.channels(), 1) if label != self.AMBIENT]
+        if not hot_spots:
+            raise ValueError(f"{role} has no hot-spot channel (only {', '.join(driver.channels())})")
+
+        def read(deadline_s: float) -> float:
+            deadline_at, hottest = time.monotonic() + deadline_s, -math.inf
+            for number, label in hot_spots:
+                value = driver.query_float_now("measure_temperature", channel=number,
+                                               deadline_s=max(deadline_at - time.monotonic(), 0.0))
+                hottest = max(hottest, interlock.check_reading("hot_spot_temperature_max_c", value, role,
+                                                               f"{label} temperature (°C)"))
+            return hottest
+
+        return WatchSource(role, read)
 
 
 class GuardedChamber(Guarded):

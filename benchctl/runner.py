@@ -31,7 +31,7 @@ from benchctl.guarded import guard
 from benchctl.interlock import Interlock, WatchSource
 from benchctl.run_status import RunStatus
 from benchctl.procedure import Parameters, Procedure
-from benchctl.station import LOAD_KIND, SOURCE_KIND, Station
+from benchctl.station import LOAD_KIND, SOURCE_KIND, TEMPERATURE_METER_KIND, Station
 from benchctl.station_lock import one_run_per_station
 from benchctl.termination import StopSignal, StopSignals
 
@@ -173,6 +173,11 @@ def execute(
             trip = interlock.trip_record
             if status == RunStatus.FAILED and trip is not None:  # e.g. a procedure's retry chain ended by the trip
                 status, message = RunStatus.TRIPPED, f"interlock tripped: {trip.message}; the outputs were switched off"
+            elif status == RunStatus.COMPLETED and trip is not None:
+                # The watch tripped after the procedure's last check (in its power-down, or on a reading still in
+                # flight as the watch stopped): every point is stored, but a limit was crossed while energised.
+                status, message = RunStatus.TRIPPED, (f"interlock tripped after the procedure's last point: "
+                                                      f"{trip.message}; the outputs were switched off")
             if status == RunStatus.COMPLETED and procedure.analyse is not None:
                 try:
                     store_results(store, run_id, procedure, params)
@@ -199,12 +204,22 @@ def _roles_to_open(procedure: Procedure, station: Station) -> tuple[str, ...]:
     from benchctl.guarded import has_guard
 
     roles = tuple(str(r) for r in procedure.roles_on(station))
+    roles += tuple(r for r in _watch_only_roles(station) if r not in roles)
     unguarded = [f"{r} ({station.kind_of(r)})" for r in roles if not has_guard(station.kind_of(r))]
     if unguarded:
         raise StationFileError(
             f"station {station.name!r}: no interlock guard for role(s) {', '.join(unguarded)} used by procedure "
             f"{procedure.name}; nothing was opened. A new kind needs its guard (benchctl.guarded.register_guard)")
     return roles
+
+
+def _watch_only_roles(station: Station) -> list[str]:
+    """Roles opened for the interlock alone: once the station declares
+    ``limits.hot_spot_temperature_max_c``, its temperature meters guard every run, whether or not
+    the procedure reads temperatures (a full-load point at a hot ambient needs them most)."""
+    if station.limits.hot_spot_temperature_max_c is None:
+        return []
+    return station.roles_of_kind(TEMPERATURE_METER_KIND)
 
 
 def _calibration_check(station: Station, roles: tuple[str, ...], *, today: _dt.date,
@@ -460,7 +475,9 @@ def _arm_watch(interlock: Interlock, bench: Bench, drivers: Mapping[str, Any], s
     a reset stops the run; a source or load that answers nobody trips it), the DUT input
     (input meter and the source's read-back) and the DUT output (output meter and the load's
     read-back). Every further source and load role (``source2``, ``load2``) is watched on its own
-    read-back: its input (source) or output (load) voltage, each a quantity of its own."""
+    read-back: its input (source) or output (load) voltage, each a quantity of its own. With
+    ``limits.hot_spot_temperature_max_c`` declared, every hot-spot channel of each temperature
+    meter too."""
     energy = _energy_roles(drivers, station)
     for role, d in drivers.items():
         check = getattr(d, "check_power_on_now", None)
@@ -472,6 +489,10 @@ def _arm_watch(interlock: Interlock, bench: Bench, drivers: Mapping[str, Any], s
         sources = [bench.role(role).watch_source(quantity) for role in roles if bench.has_role(role)]
         if sources:
             interlock.watch(name, sources)
+    if station is not None and station.limits.hot_spot_temperature_max_c is not None:
+        for role in station.roles_of_kind(TEMPERATURE_METER_KIND):
+            if role in drivers:  # a thermocouple left unread could let a part overheat: a silent meter trips
+                interlock.watch(f"hot-spot temperature at {role}", [bench.role(role).hot_spot_watch_source()])
     for role, kind in energy.items():
         if role in MUST_ANSWER:
             continue  # watched above

@@ -103,6 +103,10 @@ ROLE_KINDS: dict[str, str] = {
 SOURCE_KIND = "dc_source"
 LOAD_KIND = "electronic_load"
 ENERGY_KINDS = (SOURCE_KIND, LOAD_KIND)
+#: A kind the interlock reads on every run once the station declares
+#: ``limits.hot_spot_temperature_max_c``: the station's thermocouples guard every procedure,
+#: not only the ones that ask for temperatures.
+TEMPERATURE_METER_KIND = "temperature_meter"
 
 #: What ``[station] calibration_overdue`` may say: print a caution and store an event, or
 #: refuse the run before any instrument is opened.

@@ -1001,11 +1001,13 @@ class ScpiDriver:
         finally:
             session.close()
 
-    def query_float_now(self, key: str, *, deadline_s: float, answer_by_deadline: bool = False) -> float:
-        """Reading ``key`` as a number: no retry, no error-queue read; the driver is waited for
-        ``deadline_s`` at most, the answer for its ``timeout_s`` (the watch) or, with
-        ``answer_by_deadline``, by the same deadline (the shutdown's discharge read-back)."""
-        text = self.command(key)
+    def query_float_now(self, key: str, *, deadline_s: float, answer_by_deadline: bool = False,
+                        **fields: Any) -> float:
+        """Reading ``key`` (with its template ``fields``) as a number: no retry, no error-queue
+        read; the driver is waited for ``deadline_s`` at most, the answer for its ``timeout_s``
+        (the watch) or, with ``answer_by_deadline``, by the same deadline (the shutdown's
+        discharge read-back)."""
+        text = self.command(key, **fields)
         return self._number(self._ask_bounded(text, deadline_s, answer_by_deadline=answer_by_deadline), text,
                             check_errors=False)
 

@@ -230,3 +230,29 @@ def test_settle_times_out_as_unsettled():
     result = settle_adaptive(lambda: float(next(values)), rel_tol=0, abs_tol=0.01, interval_s=0.1,
                              timeout_s=5.0, clock=clock, sleep=sleep)
     assert not result.settled and result.settling_time_s is None and "did not agree" in result.reason
+
+
+def test_a_trip_after_the_procedures_last_check_is_not_a_completed_run(emap, simulated_bench, station_for,
+                                                                        benchctl_store, monkeypatch):
+    # The watch can trip once the procedure has returned (a hot spot still rising during its power-down, a
+    # reading in flight as the watch stops): the run must not be stored as completed with a trip beside it.
+    import benchctl.runner as runner
+    from benchctl.errors import InterlockTrip
+
+    body = runner._run_body
+
+    def body_then_late_trip(procedure, params, bench, drivers, interlock, *args):
+        status, message = body(procedure, params, bench, drivers, interlock, *args)
+        try:
+            interlock.trip("output_voltage_max_v", 6.0, 6.4, "output_meter", "output_meter: late reading 6.4 V")
+        except InterlockTrip:
+            pass
+        return status, message
+
+    monkeypatch.setattr(runner, "_run_body", body_then_late_trip)
+    bench = simulated_bench("flyback-48v-5v", time_scale=50.0)
+    outcome = _run(emap, bench, station_for(bench), benchctl_store)
+    assert outcome.status == "tripped" and "after the procedure's last point" in outcome.message
+    assert benchctl_store.run(outcome.run_id).status == "tripped"
+    assert "interlock_trip" in set(benchctl_store.events(outcome.run_id)["kind"])
+    _outputs_ended_off(bench)

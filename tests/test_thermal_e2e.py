@@ -182,3 +182,57 @@ def test_warm_up_time_constants_against_the_nodes(thermal_bench, tmp_path, bench
         # the fitted warm-up τ against the node's R·C: wall-clock sampling of the model time (40 ms apart at
         # 100×, 4 model s) and the meter noise over a step of tens of K: 15 %
         assert r["value"] * scale == pytest.approx(nodes[name].tau_s, rel=0.15), (name, r["value"] * scale)
+
+
+def _hot_spot_station(bench, tmp_path, limit_c):
+    station = _station(bench, tmp_path)
+    path = station.path
+    path.write_text(path.read_text().replace("hot_spot_temperature_max_c = 150.0",
+                                             f"hot_spot_temperature_max_c = {limit_c}"))
+    return load_station(path)
+
+
+@pytest.mark.parametrize("scale, reading_time_s, limit_c", [(1.0, 0.02, 26.5), (100.0, 1e-4, 55.0)])
+def test_the_watch_trips_on_a_hot_spot_during_a_procedure_that_reads_no_temperature(
+        thermal_bench, tmp_path, benchctl_store, scale, reading_time_s, limit_c):
+    # efficiency_map declares no temperature meter; the station's hot-spot limit makes the interlock open the
+    # station's meter anyway and read every hot spot each watch period. At 5 A the rectifier takes ~1.9 W into
+    # 3.2 J/K (the model's node, 25 K/W): ~0.6 K/s at first, so 1.5 K above the 25 °C ambient is reached about
+    # 3 s into a map that takes 6 s at time scale 1 (at 100x, 30 K in about 0.6 s of a 1 s map).
+    bench = thermal_bench(time_scale=scale, reading_time_s=reading_time_s)
+    station = _hot_spot_station(bench, tmp_path, limit_c)
+    emap = load_procedure("efficiency_map")
+    params = emap.resolve_parameters(values={**bench.procedure_parameters(),
+                                             "vin_v": [36.0, 48.0, 60.0, 75.0], "load_pct": [100.0, 90.0, 80.0]})
+    out = execute(emap, params, station, benchctl_store)
+    assert out.status == "tripped", out.message
+    trip = out.trip
+    assert trip.limit == "hot_spot_temperature_max_c" and trip.instrument == "temp_meter"
+    assert trip.value > limit_c and trip.limit_value == limit_c
+    assert trip.shutdown[0].startswith("source off")   # the source first, then the load (as every trip)
+    meter = bench.instruments["temp_meter"]
+    assert any(c.startswith("MEAS:TEMP") for c in meter.audit.commands())
+    for role, state in (("source", "output"), ("load", "input")):
+        assert bench.instruments[role].audit.states(state)[-1].value is False
+    off_at = bench.instruments["source"].audit.states("output")[-1].t_s
+    assert off_at - trip.t_monotonic_s < 0.5           # off within the shutdown's deadline of the trip
+    if scale == 1.0:
+        # The truth just after: the hottest part within the meter's ±0.5 °C (0.3 as simulated) of the limit,
+        # plus what it gained in one watch period (~0.6 K/s) and lost since (~0.04 K/s): the trip was not late.
+        hottest = max(meter.true_temperature_c(label) for label in ("switch", "rectifier", "transformer"))
+        assert limit_c - 0.3 <= hottest <= limit_c + 0.3 + 0.6 * station.watch_period_s + 0.1
+
+
+def test_without_a_hot_spot_limit_a_procedure_without_temperatures_leaves_the_meter_closed(
+        thermal_bench, tmp_path, benchctl_store):
+    bench = thermal_bench(time_scale=100.0)
+    station = _station(bench, tmp_path)
+    path = station.path
+    path.write_text(path.read_text().replace("hot_spot_temperature_max_c = 150.0\n", ""))
+    station = load_station(path)
+    assert station.limits.hot_spot_temperature_max_c is None
+    emap = load_procedure("efficiency_map")
+    params = emap.resolve_parameters(values={**bench.procedure_parameters(), "vin_v": [48.0], "load_pct": [50.0]})
+    out = execute(emap, params, station, benchctl_store)
+    assert out.status == "completed", out.message
+    assert not bench.instruments["temp_meter"].audit.commands()
