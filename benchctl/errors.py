@@ -30,6 +30,7 @@ the boundary where they happen, and chained with ``raise ... from exc``.
     │   ├── StoreFullError          the disk (or the database's size limit) is full
     │   └── StoreReadOnlyError      a write to a store opened read-only
     ├── StationBusyError            the station is held by another run (nothing was opened)
+    ├── StationLockLost             the station's database lock went with its session mid-run
     ├── ProcedureError              a procedure script that cannot be loaded or run
     └── AnalysisInputError          data given to analysis that cannot be used (CSV files)
 """
@@ -193,6 +194,11 @@ class StationBusyError(BenchctlError):
     def __init__(self, message: str, *, holder: object = None) -> None:
         self.holder = holder
         super().__init__(message)
+
+
+class StationLockLost(BenchctlError):
+    """The station's lock in the shared database was lost during a run (its session ended) and
+    could not be taken again: another run may hold the station now, so this one stops."""
 
 
 class ProcedureError(BenchctlError):

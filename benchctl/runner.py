@@ -26,13 +26,13 @@ from dataclasses import dataclass, field
 from typing import TYPE_CHECKING, Any, Callable, Mapping
 
 from benchctl.bench import Bench
-from benchctl.errors import BenchctlError, InstrumentError, InterlockTrip, SetpointRefused
+from benchctl.errors import BenchctlError, InstrumentError, InterlockTrip, SetpointRefused, StationLockLost
 from benchctl.guarded import guard
 from benchctl.interlock import Interlock, WatchSource
 from benchctl.run_status import RunStatus
 from benchctl.procedure import Parameters, Procedure
 from benchctl.station import LOAD_KIND, SOURCE_KIND, TEMPERATURE_METER_KIND, Station
-from benchctl.station_lock import one_run_per_station
+from benchctl.station_lock import held_by_this_thread, one_run_per_station
 from benchctl.termination import StopSignal, StopSignals
 
 if TYPE_CHECKING:
@@ -147,11 +147,14 @@ def execute(
         # From now on a termination signal switches this run's outputs off at once.
         signals.on_first = interlock.stop
         writes = _WritesFinish(store, signals)
+        hold = held_by_this_thread(station, store)
         try:
             status, message, bench = RunStatus.FAILED, "", None
             signal_name: str | None = None
             try:
                 with signals.interruptible():
+                    if hold is not None:  # a shared database's lock can go with its session: check it
+                        hold.watch_database_lock(lambda why: interlock.stop(StationLockLost(why)))
                     _record_calibration(writes, run_id, station, roles, overdue)
                     _record_dialect_cautions(writes, run_id, drivers, notify)
                     if envelope is not None:
@@ -167,9 +170,17 @@ def execute(
             except KeyboardInterrupt as exc:  # a stop before the body began, or as it returned
                 status, message = _interrupted(store, run_id, exc)
                 signal_name = getattr(exc, "signal_name", None)
+            except StationLockLost as exc:  # lost already when the run began: nothing was switched on
+                store.record_event(run_id, "error", str(exc), {"type": type(exc).__name__})
+                status, message = RunStatus.FAILED, str(exc)
             finally:
                 # No signal interrupts what follows (the handler only acknowledges it).
                 steps = _shut_down(interlock, drivers, store, run_id)
+                if hold is not None:
+                    hold.unwatch_database_lock()
+                    for note in hold.lock_notes:
+                        store.record_event(run_id, "station_lock", note, {})
+                    hold.lock_notes.clear()
             trip = interlock.trip_record
             if status == RunStatus.FAILED and trip is not None:  # e.g. a procedure's retry chain ended by the trip
                 status, message = RunStatus.TRIPPED, f"interlock tripped: {trip.message}; the outputs were switched off"

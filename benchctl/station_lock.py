@@ -21,6 +21,12 @@ Two locks, taken in this order and released in the reverse one:
 * **An advisory lock in a shared database** (PostgreSQL, :mod:`benchctl.store.station_locks`)
   when the run's store is one: stations on other hosts see it.
 
+A database lock lives as long as its session, and a dropped connection frees it without a
+word. While a run goes on, :meth:`StationHold.watch_database_lock` asks the database every
+:data:`DATABASE_LOCK_CHECK_PERIOD_S` whether the lock is still held; a lost one is taken again
+at once (and the run stores that it was), and when another session has it by then the run is
+stopped through its interlock: the outputs go off and it ends ``failed``.
+
 Within one process a thread that holds a station may take it again (a job holds it for all
 its steps, and each step's run takes it once more); another thread is refused like another
 process.
@@ -42,11 +48,15 @@ from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any, Callable
 
-from benchctl.errors import StationBusyError
+from benchctl.errors import StationBusyError, StationLockLost
 
 logger = logging.getLogger(__name__)
 
 LOCK_SUFFIX = ".lock"
+#: How often a run checks that its station's database lock is still held (s), and how long
+#: one check (or one attempt to take the lock again) may take before it counts as failed.
+DATABASE_LOCK_CHECK_PERIOD_S = 5.0
+DATABASE_LOCK_CHECK_TIMEOUT_S = 10.0
 
 
 @dataclass(frozen=True)
@@ -280,7 +290,64 @@ class StationHold:
     database_lock: Any = None
     stale: LockHolder | None = None
     keys: tuple[tuple[str, ...], ...] = ()
+    #: What the database-lock check found and mended (a lock lost and taken again), for the run's events.
+    lock_notes: list[str] = field(default_factory=list)
+    #: Why the database lock is gone for good (None while held).
+    lost: str | None = None
     _released: bool = field(default=False, repr=False)
+    _on_lost: Callable[[str], None] | None = field(default=None, repr=False)
+    _monitor_stop: threading.Event | None = field(default=None, repr=False)
+
+    def watch_database_lock(self, on_lost: Callable[[str], None]) -> None:
+        """While a run goes on: check the database lock now and then every
+        :data:`DATABASE_LOCK_CHECK_PERIOD_S`; one lost is taken again (noted in :attr:`lock_notes`),
+        and when that fails ``on_lost(message)`` is called once, from the checking thread.
+        Raises :class:`~benchctl.errors.StationLockLost` at once if the lock is gone already."""
+        if self.database_lock is None:
+            return
+        self._check_database_lock()
+        if self.lost is not None:
+            raise StationLockLost(self.lost)
+        self._on_lost = on_lost
+        stop = self._monitor_stop = threading.Event()
+        threading.Thread(target=self._monitor, args=(stop,), name="benchctl-station-lock", daemon=True).start()
+
+    def unwatch_database_lock(self) -> None:
+        """The run has ended: stop checking (a job's next run checks again when it begins)."""
+        self._on_lost = None
+        if self._monitor_stop is not None:
+            self._monitor_stop.set()
+            self._monitor_stop = None
+
+    def _monitor(self, stop: threading.Event) -> None:
+        while not stop.wait(DATABASE_LOCK_CHECK_PERIOD_S):
+            self._check_database_lock()
+            if self.lost is not None:
+                on_lost = self._on_lost
+                if on_lost is not None and not stop.is_set():
+                    on_lost(self.lost)
+                return
+
+    def _check_database_lock(self) -> None:
+        lock = self.database_lock
+        if lock is None or self.lost is not None:
+            return
+        if _within(lock.still_held, DATABASE_LOCK_CHECK_TIMEOUT_S):
+            return
+        where = getattr(lock, "where", "the database")
+        when = datetime.now(timezone.utc).strftime("%Y-%m-%d %H:%M:%S UTC")
+        if _within(lock.retake, DATABASE_LOCK_CHECK_TIMEOUT_S):
+            note = (f"the lock of station {self.station!r} in {where} was lost (its database session ended) and "
+                    f"taken again at {when}; between two checks ({DATABASE_LOCK_CHECK_PERIOD_S:g} s apart) another "
+                    "host could have taken the station, so check the lab's log if the data look odd")
+            logger.warning("%s", note)
+            self.lock_notes.append(note)
+            return
+        self.lost = (f"the lock of station {self.station!r} in {where} was lost at {when} (its database session "
+                     "ended) and could not be taken again: another run may hold the station now, or the database "
+                     "cannot be reached. The outputs were switched off. Find out who uses the station "
+                     f"(benchctl runs --station {self.station} --status running), then start the run again")
+        logger.error("%s", self.lost)
 
     def note_run(self, run_id: int) -> None:
         if self.lock_file is not None:
@@ -292,6 +359,7 @@ class StationHold:
         if self._released:
             return
         self._released = True
+        self.unwatch_database_lock()
         with _REGISTRY_LOCK:
             for key in self.keys:
                 _REGISTRY.pop(key, None)
@@ -309,6 +377,36 @@ class StationHold:
         self.release()
 
 
+def _within(check: Callable[[], bool], timeout_s: float) -> bool:
+    """``check()`` in a thread of its own; False when it raises or has not answered by ``timeout_s``
+    (a database behind a cut network can leave a query waiting for minutes)."""
+    result: list[bool] = []
+
+    def run() -> None:
+        try:
+            result.append(bool(check()))
+        except Exception:
+            logger.warning("station lock check failed", exc_info=True)
+            result.append(False)
+
+    thread = threading.Thread(target=run, name="benchctl-station-lock-check", daemon=True)
+    thread.start()
+    thread.join(timeout_s)
+    return bool(result and result[0])
+
+
+def held_by_this_thread(station: Any, store: Any = None) -> "StationHold | None":
+    """The hold this thread has on ``station`` (in ``store``), or None."""
+    keys = _registry_keys(station, store, lock_file_for(station, store))
+    me = threading.get_ident()
+    with _REGISTRY_LOCK:
+        for key in keys:
+            held = _REGISTRY.get(key)
+            if held is not None and held.thread == me:
+                return held.hold
+    return None
+
+
 class _Reentry:
     """A station this thread already holds, taken again: releasing it only counts down."""
 
@@ -324,6 +422,7 @@ class _Reentry:
         if self._released:
             return
         self._released = True
+        self.unwatch_database_lock()
         with _REGISTRY_LOCK:
             self._held.count -= 1
 

@@ -235,3 +235,96 @@ def test_a_job_on_a_held_station_is_refused_before_it_begins(simulated_bench, tm
     with Store.open(tmp_path / "jobs.db") as store:
         assert store.runs().empty
     assert not any(e.kind == "command" for inst in bench.instruments.values() for e in inst.audit.entries())
+
+
+def _lock_session_pid(store, station_name: str) -> int:
+    holder = store.station_lock_holder(station_name)
+    assert holder is not None and holder.session_pid is not None
+    return holder.session_pid
+
+
+def _terminate(store, pid: int) -> None:
+    # What a server restart, a cut network or an administrator does to the lock's session
+    # (PostgreSQL docs, "Server Signaling Functions": pg_terminate_backend).
+    from sqlalchemy import text
+
+    with store._require_open().connect() as conn:
+        conn.execute(text("SELECT pg_terminate_backend(:pid)"), {"pid": pid})
+
+
+def _lost_lock_run(pg_url, simulated_bench, station_for, on_point):
+    from benchctl.procedure import load_procedure
+    from benchctl.runner import execute
+
+    # time scale 1, 20 ms readings: a map of 6 points that lasts seconds, long enough for several checks
+    bench = simulated_bench("flyback-48v-5v", time_scale=1.0, reading_time_s=0.02)
+    station = station_for(bench)
+    emap = load_procedure("efficiency_map")
+    params = emap.resolve_parameters(values={**bench.procedure_parameters(), "vin_v": [40.0, 48.0],
+                                             "load_pct": [25.0, 50.0, 100.0]})
+    store = Store.open(pg_url)
+    try:
+        outcome = execute(emap, params, station, store,
+                          progress=lambda done, total, values: on_point(done, store, station))
+        return bench, store, outcome
+    except BaseException:
+        store.close()
+        raise
+
+
+def test_a_database_lock_lost_mid_run_is_taken_again_and_the_run_says_so(pg_url, simulated_bench, station_for,
+                                                                         monkeypatch):
+    import benchctl.station_lock as station_lock
+
+    monkeypatch.setattr(station_lock, "DATABASE_LOCK_CHECK_PERIOD_S", 0.2)
+
+    def on_point(done, store, station):
+        if done == 2:
+            _terminate(store, _lock_session_pid(store, station.name))
+
+    bench, store, outcome = _lost_lock_run(pg_url, simulated_bench, station_for, on_point)
+    try:
+        assert outcome.status == "completed", outcome.message
+        events = store.events(outcome.run_id)
+        notes = events[events["kind"] == "station_lock"]["message"].tolist()
+        assert len(notes) == 1 and "was lost" in notes[0] and "taken again" in notes[0]
+        assert store.station_lock_holder(store.run(outcome.run_id).station_name) is None  # released at the end, like any other run's
+    finally:
+        store.close()
+
+
+def test_a_database_lock_taken_by_another_session_stops_the_run_with_the_outputs_off(
+        pg_url, simulated_bench, station_for, monkeypatch):
+    # Another host's run takes the station between two checks: this run must not go on driving it.
+    import benchctl.station_lock as station_lock
+    from sqlalchemy import text
+    from benchctl.store.station_locks import station_lock_key
+
+    monkeypatch.setattr(station_lock, "DATABASE_LOCK_CHECK_PERIOD_S", 0.5)
+    thief: list = []
+
+    def on_point(done, store, station):
+        if done != 2:
+            return
+        _terminate(store, _lock_session_pid(store, station.name))
+        conn = store._require_open().connect().execution_options(isolation_level="AUTOCOMMIT")
+        thief.append(conn)
+        key = station_lock_key(conn, station.name)
+        _wait_for(lambda: conn.execute(text("SELECT pg_try_advisory_lock(:k)"), {"k": key}).scalar(),
+                  "the terminated session's lock to be free", timeout_s=5.0)
+
+    bench, store, outcome = _lost_lock_run(pg_url, simulated_bench, station_for, on_point)
+    try:
+        assert outcome.status == "failed"
+        assert "lock of station" in outcome.message and "could not be taken again" in outcome.message
+        assert outcome.points < 6
+        events = store.events(outcome.run_id)
+        assert any("could not be taken again" in m for m in events[events["kind"] == "error"]["message"])
+        # the outputs off, source first (the simulated instruments' own audit logs)
+        src_off = bench.instruments["source"].audit.states("output")[-1]
+        load_off = bench.instruments["load"].audit.states("input")[-1]
+        assert src_off.value is False and load_off.value is False and src_off.t_s <= load_off.t_s
+    finally:
+        for conn in thief:
+            conn.close()
+        store.close()

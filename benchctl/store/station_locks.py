@@ -74,16 +74,68 @@ def _label(text_: str) -> str:
 
 
 class AdvisoryStationLock:
-    """A held advisory lock of one station; :meth:`release` frees it (safe twice)."""
+    """A held advisory lock of one station; :meth:`release` frees it (safe twice).
 
-    def __init__(self, conn: Connection, key: int, station_name: str, where: str) -> None:
+    The lock lives as long as its session: a dropped connection (a server restart, a network
+    cut, an administrator's ``pg_terminate_backend``) frees it silently, and another process
+    may then take the station. :meth:`still_held` asks ``pg_locks`` whether this session still
+    has it; :meth:`retake` tries to take it again on a new connection.
+    """
+
+    def __init__(self, conn: Connection, key: int, station_name: str, where: str,
+                 engine: Engine | None = None) -> None:
         self._conn: Connection | None = conn
+        self._engine = engine
+        self._label = ""
         self.key = key
         self.station_name = station_name
         self.where = where
 
+    def still_held(self) -> bool:
+        """Whether this session still holds the lock (False also when the session is gone)."""
+        conn = self._conn
+        if conn is None:
+            return False
+        try:
+            return bool(conn.execute(text(
+                "SELECT count(*) FROM pg_locks WHERE locktype = 'advisory' AND granted AND objsubid = 1 "
+                "AND classid = :hi AND objid = :lo AND pid = pg_backend_pid()"), _key_parts(self.key)).scalar())
+        except SQLAlchemyError:
+            log.warning("the station lock's session of %s in %s is gone", self.station_name, self.where, exc_info=True)
+            return False
+
+    def retake(self) -> bool:
+        """Take the lock again on a new connection (the old one is discarded): True when taken,
+        False when another session holds it now or the database cannot be reached."""
+        old, self._conn = self._conn, None
+        if old is not None:
+            try:
+                old.invalidate()
+                old.close()
+            except SQLAlchemyError:
+                pass
+        if self._engine is None:
+            return False
+        try:
+            conn = self._engine.connect().execution_options(isolation_level="AUTOCOMMIT")
+        except SQLAlchemyError:
+            log.warning("cannot reach %s to take the lock of station %s again", self.where, self.station_name,
+                        exc_info=True)
+            return False
+        try:
+            conn.execute(text("SELECT set_config('application_name', :v, false)"), {"v": _label(self._label)})
+            if conn.execute(text("SELECT pg_try_advisory_lock(:key)"), {"key": self.key}).scalar():
+                self._conn = conn
+                return True
+        except SQLAlchemyError:
+            log.warning("taking the lock of station %s in %s again failed", self.station_name, self.where,
+                        exc_info=True)
+        conn.close()
+        return False
+
     def label(self, label: str) -> None:
         """Say who holds it (host, pid, run) where other sessions can read it."""
+        self._label = label
         if self._conn is None:
             return
         try:
@@ -118,7 +170,9 @@ def try_lock_station(engine: Engine, station_name: str, label: str, where: str) 
         key = station_lock_key(conn, station_name)
         conn.execute(text("SELECT set_config('application_name', :v, false)"), {"v": _label(label)})
         if conn.execute(text("SELECT pg_try_advisory_lock(:key)"), {"key": key}).scalar():
-            return AdvisoryStationLock(conn, key, station_name, where)
+            held = AdvisoryStationLock(conn, key, station_name, where, engine)
+            held._label = label
+            return held
         holder = lock_holder(conn, key, station_name)
     except SQLAlchemyError as exc:
         conn.close()
