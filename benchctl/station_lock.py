@@ -422,7 +422,6 @@ class _Reentry:
         if self._released:
             return
         self._released = True
-        self.unwatch_database_lock()
         with _REGISTRY_LOCK:
             self._held.count -= 1
 

@@ -152,11 +152,43 @@ def run(bench, p: Parameters) -> None:
             end_chamber(bench, chamber, p)
 
 
-def analyse(points, p: Parameters) -> list[Result]:
-    """Rises per point, first-order fits of the warm-ups, derated load per ambient."""
+#: The station role whose accuracy gives the temperatures their uncertainty.
+METER_ROLE = "temp_meter"
+UNCERTAINTY_METHOD = ("JCGM 100:2008 (GUM): type B from the temperature meter's accuracy in the station file (4.3, "
+                      "rectangular a/sqrt(3) unless stated), each thermocouple's error fixed for its channel and "
+                      "independent between channels; first-order propagation (5.1.2, 5.2.2); U = 2u (6.2.1)")
+
+
+def temperature_readings(points, channels, accuracy) -> dict:
+    """{channel: [ReadingUncertainty per point]} of the ``t_<channel>_c`` columns."""
+    from benchctl.analysis.uncertainty import temperature_reading_uncertainty
+
+    inst = (accuracy or {}).get(METER_ROLE)
+    spec = inst.quantities.get("temperature") if inst is not None else None
+    instrument = inst.instrument if inst is not None else METER_ROLE
+    return {c: [temperature_reading_uncertainty(float(v), spec, instrument=instrument, channel=c)
+                for v in points[f"t_{c}_c"].to_numpy(float)] for c in channels}
+
+
+def with_uncertainty(details: dict, u) -> tuple[dict, dict]:
+    """(details with the method or why the uncertainty is unknown, Result uncertainty fields)."""
+    out = {**details, "uncertainty_method": UNCERTAINTY_METHOD}
+    if not u.known:
+        out["uncertainty_note"] = u.note or "uncertainty unknown"
+        return out, {}
+    return out, {"uncertainty": u.u, "expanded_uncertainty": u.expanded}
+
+
+def analyse(points, p: Parameters, accuracy=None) -> list[Result]:
+    """Rises per point, first-order fits of the warm-ups, derated load per ambient; the
+    temperatures, rises and derated loads with their uncertainty when the station states the
+    temperature meter's accuracy (``[instruments.temp_meter.accuracy] temperature = ...``)."""
+    import math
+
     import numpy as np
 
     from benchctl.analysis.thermal import derated_load
+    from benchctl.analysis.uncertainty import Uncertain, derated_load_uncertainty, temperature_rise_uncertainty
 
     results: list[Result] = []
     if points.empty:
@@ -171,12 +203,21 @@ def analyse(points, p: Parameters) -> list[Result]:
         return {"flags": ["unsettled"], "flag_reasons": "hot spots or ambient not stable at "
                 + ", ".join(f"{amb[k]:g} °C {iout[k]:g} A" for k in bad)} if bad else {}
 
+    readings = temperature_readings(points, [*hot, "ambient"] if "t_ambient_c" in points.columns else hot, accuracy)
+    no_ambient = Uncertain(math.nan, math.nan, 2.0, "no ambient channel recorded")
     for k, seq in enumerate(points["seq"]):
         scope = {"seq": int(seq), "ambient_set_c": float(amb[k]), "iout_set_a": float(points["iout_set_a"].iloc[k])}
         for c in hot:
+            u_rise = temperature_rise_uncertainty(readings[c][k], readings["ambient"][k]) if "ambient" in readings \
+                else no_ambient
+            details, u = with_uncertainty({"definition": "T_part - T_ambient (meter's ambient channel)",
+                                           **flags([k])}, u_rise)
             results.append(Result(f"rise_{c}_k", float(points[f"rise_{c}_k"].iloc[k]), "K", scope=scope,
-                                  details={"definition": "T_part - T_ambient (meter's ambient channel)", **flags([k])}))
-            results.append(Result(f"t_{c}_c", float(points[f"t_{c}_c"].iloc[k]), "degC", scope=scope, details=flags([k])))
+                                  details=details, **u))
+            details, u = with_uncertainty(flags([k]), Uncertain(readings[c][k].value, readings[c][k].u, 2.0,
+                                                                readings[c][k].note))
+            results.append(Result(f"t_{c}_c", float(points[f"t_{c}_c"].iloc[k]), "degC", scope=scope,
+                                  details=details, **u))
     for k, seq in enumerate(points["seq"]):
         scope = {"seq": int(seq), "ambient_set_c": float(amb[k]), "iout_set_a": float(points["iout_set_a"].iloc[k])}
         for c in hot:
@@ -211,5 +252,12 @@ def analyse(points, p: Parameters) -> list[Result]:
         if flag:
             details.setdefault("flags", []).append(flag)
             details["flag_reasons"] = (details.get("flag_reasons", "") + " " + per_part[limiting].reason).strip()
-        results.append(Result("derated_load_a", value, "A", scope={"ambient_set_c": float(a)}, details=details))
+        u_fields: dict = {}
+        bracket = per_part[limiting].bracket
+        if bracket is not None:
+            (j1, j2), column = (int(sel[bracket[0]]), int(sel[bracket[1]])), readings[limiting]
+            details, u_fields = with_uncertainty(details, derated_load_uncertainty(
+                float(iout[j1]), float(iout[j2]), column[j1], column[j2], p.hot_spot_limit_c))
+        results.append(Result("derated_load_a", value, "A", scope={"ambient_set_c": float(a)}, details=details,
+                              **u_fields))
     return results

@@ -183,11 +183,16 @@ def _meter_readers(meter, v_name: str, i_name: str, p_name: str) -> dict:
     return {v_name: meter.measure_voltage, i_name: meter.measure_current, p_name: meter.measure_power}
 
 
-def analyse(points, p: Parameters) -> list[Result]:
-    """Efficiency per point; load and line regulation per ambient; efficiency change against the lowest ambient."""
+def analyse(points, p: Parameters, accuracy=None) -> list[Result]:
+    """Efficiency per point; load and line regulation per ambient; efficiency change against the lowest
+    ambient. The efficiency and the hot spot carry their uncertainty (JCGM 100:2008) where the station
+    states the meters' accuracy."""
     import numpy as np
 
     from benchctl.analysis.efficiency import efficiency
+    from benchctl.analysis.uncertainty import Uncertain, efficiency_uncertainty
+    from benchctl.procedures.efficiency_map import UNCERTAINTY_METHOD as POWER_METHOD, _readings as power_readings
+    from benchctl.procedures.temperature_rise import temperature_readings, with_uncertainty
     from benchctl.analysis.quality import point_flags
     from benchctl.analysis.regulation import line_regulation_by_load, load_regulation_by_line
 
@@ -212,17 +217,23 @@ def analyse(points, p: Parameters) -> list[Result]:
 
     hot = [c for c in points.columns if c.startswith("t_") and c.endswith("_c") and "_sd_" not in c
            and c != "t_ambient_c"]
+    r_pin, r_pout = power_readings(points, "pin_w", accuracy), power_readings(points, "pout_w", accuracy)
+    temps_u = temperature_readings(points, [c[2:-2] for c in hot], accuracy)
     for k, seq in enumerate(points["seq"]):
         scope = {"seq": int(seq), "ambient_set_c": float(amb[k]), "vin_set_v": float(vin[k]), "iout_set_a": float(iout[k])}
         if iout[k] > 0 and np.isfinite(eff[k]):
-            results.append(Result("efficiency", float(eff[k]), "", scope=scope, details=details(k)))
+            u = efficiency_uncertainty(r_pout[k], r_pin[k])
+            info, u_fields = with_uncertainty(details(k), u)
+            info["uncertainty_method"] = POWER_METHOD
+            results.append(Result("efficiency", float(eff[k]), "", scope=scope, details=info, **u_fields))
         results.append(Result("loss_w", float(points["pin_w"].iloc[k] - points["pout_w"].iloc[k]), "W", scope=scope,
                               details=details(k)))
         if hot:
             temps = {c: float(points[c].iloc[k]) for c in hot}
             name = max(temps, key=lambda c: temps[c])
-            results.append(Result("hot_spot_c", temps[name], "degC", scope=scope,
-                                  details=details(k, {"channel": name[2:-2]})))
+            r = temps_u[name[2:-2]][k]
+            info, u_fields = with_uncertainty(details(k, {"channel": name[2:-2]}), Uncertain(r.value, r.u, 2.0, r.note))
+            results.append(Result("hot_spot_c", temps[name], "degC", scope=scope, details=info, **u_fields))
     for a in sorted(set(amb)):
         sel = amb == a
         for r in load_regulation_by_line(vin[sel], iout[sel], points["vout_v"].to_numpy(float)[sel],

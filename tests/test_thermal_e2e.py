@@ -125,6 +125,11 @@ def test_thermal_efficiency_matches_the_model_at_each_ambient(thermal_bench, tmp
         assert row["chamber_air_c"] == pytest.approx(row["ambient_set_c"], abs=0.5)   # ±0.3 °C sensor
     res = benchctl_store.results(out.run_id)
     assert {"efficiency", "load_regulation_pct", "efficiency_change_pct", "hot_spot_c"} <= set(res["name"])
+    # the station's accuracy gives both their uncertainty: the meters' (efficiency, as in efficiency_map) and
+    # the ±0.5 °C thermocouple's (hot spot: 2·0.5/√3 = 0.577 °C, GUM 4.3.7)
+    eff_u = res[res["name"] == "efficiency"]["expanded_uncertainty"]
+    assert eff_u.notna().all() and (eff_u > 0).all() and (eff_u < 2e-3).all()
+    assert res[res["name"] == "hot_spot_c"]["expanded_uncertainty"].to_numpy() == pytest.approx(0.5774, abs=1e-3)
     change = res[res["name"] == "efficiency_change_pct"]["value"].to_numpy()
     assert (change < 0).all()            # the on-resistances rise with temperature: less efficient when hot
     assert bench.instruments["chamber"].air.setpoint_c == 25.0 and not bench.instruments["chamber"].air.running
@@ -161,6 +166,17 @@ def test_temperature_rise_and_derating_against_the_model(thermal_bench, tmp_path
     assert derated.loc[70.0, "details"]["limiting_part"] == "rectifier"
     # the measured temperatures carry ±0.8 K; over a 21 K bracket of 2 A that is ±0.08 A
     assert derated.loc[70.0, "value"] == pytest.approx(expect, abs=0.1)
+    # Its uncertainty from the station's ±0.5 °C (rectangular, GUM 4.3.7): the rectifier's fixed error over
+    # the slope, U = 2 · (0.5/√3) · 2 A / (T(5 A) − T(3 A)); the truth within it plus the equilibrium residual
+    # (< 0.3 K over the slope).
+    slope_k_per_a = (temps[1] - temps[0]) / 2.0
+    u_derated = derated.loc[70.0, "expanded_uncertainty"]
+    assert u_derated == pytest.approx(2 * 0.5 / 3 ** 0.5 / slope_k_per_a, rel=0.05)
+    assert abs(derated.loc[70.0, "value"] - expect) <= u_derated + 0.3 / slope_k_per_a
+    rises = res[res["name"].str.startswith("rise_")]
+    # two independent ±0.5 °C thermocouples (GUM 5.1.2): U = 2·√2·0.5/√3 = 0.8165 K on every rise
+    assert len(rises) == 3 * len(pts) and rises["expanded_uncertainty"].to_numpy() == pytest.approx(0.8165, abs=1e-3)
+    assert res[res["name"].str.match(r"t_.*_c")]["expanded_uncertainty"].to_numpy() == pytest.approx(0.5774, abs=1e-3)
 
 
 def test_warm_up_time_constants_against_the_nodes(thermal_bench, tmp_path, benchctl_store):

@@ -216,3 +216,55 @@ def test_scatter_column_names():
     assert scatter_column("pin_w") == "pin_sd_w"
     assert scatter_column("iout_a") == "iout_sd_a"
     assert scatter_column("vout_v") == "vout_sd_v"
+
+
+# ---------------------------------------------------------------- temperatures
+def test_a_temperature_rise_combines_two_independent_thermocouples():
+    from benchctl.analysis.uncertainty import temperature_reading_uncertainty, temperature_rise_uncertainty
+
+    tc = spec(0.0, 0.5)  # ±0.5 °C, rectangular: u = 0.5/√3 = 0.28868 K per channel (GUM 4.3.7)
+    part = temperature_reading_uncertainty(80.0, tc, instrument="T1", channel="rectifier")
+    amb = temperature_reading_uncertainty(25.0, tc, instrument="T1", channel="ambient")
+    u = temperature_rise_uncertainty(part, amb)
+    # ΔT = 55 K; two thermocouples, independent (GUM 5.1.2): u = √2 · 0.28868 = 0.40825 K, U = 0.81650 K
+    assert u.value == pytest.approx(55.0)
+    assert u.u == pytest.approx(math.sqrt(2.0) * 0.5 / math.sqrt(3.0), rel=1e-12)
+    assert u.expanded == pytest.approx(0.81650, abs=1e-5)
+
+
+def test_one_thermocouple_read_twice_keeps_its_fixed_error():
+    from benchctl.analysis.uncertainty import temperature_reading_uncertainty, temperature_rise_uncertainty
+
+    tc = spec(0.0, 0.5)
+    a = temperature_reading_uncertainty(90.0, tc, instrument="T1", channel="switch")
+    b = temperature_reading_uncertainty(70.0, tc, instrument="T1", channel="switch")
+    # the same thermocouple's fixed error cancels in its own difference (GUM 5.2.2 with r = 1): u = 0
+    assert temperature_rise_uncertainty(a, b).u == pytest.approx(0.0, abs=1e-12)
+    unknown = temperature_reading_uncertainty(90.0, None, instrument="T1", channel="switch")
+    assert not unknown.known and "no accuracy" in unknown.note
+
+
+def test_derated_load_uncertainty_is_the_fixed_error_over_the_slope():
+    from benchctl.analysis.uncertainty import derated_load_uncertainty, temperature_reading_uncertainty
+
+    tc = spec(0.0, 0.5)
+    t1 = temperature_reading_uncertainty(100.0, tc, instrument="T1", channel="rectifier")
+    t2 = temperature_reading_uncertainty(110.0, tc, instrument="T1", channel="rectifier")
+    u = derated_load_uncertainty(3.0, 4.0, t1, t2, 105.0)
+    # I* = 3 + (105 − 100)·1/10 = 3.5 A. By hand (GUM 5.1.3): ∂I*/∂T1 = −1·(110 − 105)/10² = −0.05 A/K,
+    # ∂I*/∂T2 = −1·(105 − 100)/10² = −0.05 A/K; one thermocouple, r = 1 (GUM 5.2.2):
+    # u = |−0.05 − 0.05| · 0.28868 = 0.028868 A, i.e. the fixed error over the slope of 10 K/A.
+    assert u.value == pytest.approx(3.5)
+    assert u.u == pytest.approx(0.1 * 0.5 / math.sqrt(3.0), rel=1e-12)
+    # Were the two readings independent, it would be √(0.05² + 0.05²)·0.28868 = 0.020412 A: smaller, and wrong.
+    assert u.u > math.hypot(0.05, 0.05) * 0.5 / math.sqrt(3.0)
+    with pytest.raises(ValueError, match="must exceed"):
+        derated_load_uncertainty(3.0, 4.0, t2, t1, 105.0)
+
+
+def test_derated_load_names_the_points_that_bracket_the_limit():
+    from benchctl.analysis.thermal import derated_load
+
+    d = derated_load([5.0, 1.0, 3.0], [120.0, 60.0, 95.0], 105.0)   # unsorted on purpose
+    assert d.found and d.bracket == (2, 0)                           # 3 A (index 2) and 5 A (index 0)
+    assert d.load_a == pytest.approx(3.0 + 10.0 * 2.0 / 25.0)        # I1 + (L − T1)(I2 − I1)/(T2 − T1)

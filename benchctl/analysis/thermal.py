@@ -84,6 +84,8 @@ class Derating:
     found: bool
     flag: str
     reason: str
+    #: When found: the indices (into the arrays given) of the two points that bracket the limit.
+    bracket: tuple[int, int] | None = None
 
 
 def derated_load(load_a: ArrayLike, hot_spot_c: ArrayLike, limit_c: float, *, ambient_c: float = math.nan) -> Derating:
@@ -98,11 +100,12 @@ def derated_load(load_a: ArrayLike, hot_spot_c: ArrayLike, limit_c: float, *, am
     if i.shape != temp.shape or i.size < 1:
         raise AnalysisInputError("derated_load: give equal-length load and temperature arrays")
     keep = np.isfinite(i) & np.isfinite(temp)
+    given = np.flatnonzero(keep)
     i, temp = i[keep], temp[keep]
     if i.size == 0:
         raise AnalysisInputError("derated_load: no finite (load, temperature) pair")
     order = np.argsort(i, kind="stable")
-    i, temp = i[order], temp[order]
+    i, temp, given = i[order], temp[order], given[order]
     over = np.flatnonzero(temp > limit_c)
     if over.size == 0:
         return Derating(ambient_c, limit_c, float(i[-1]), False, "not_reached",
@@ -115,4 +118,5 @@ def derated_load(load_a: ArrayLike, hot_spot_c: ArrayLike, limit_c: float, *, am
     i1, i2, t1, t2 = float(i[k - 1]), float(i[k]), float(temp[k - 1]), float(temp[k])
     load = i1 + (limit_c - t1) * (i2 - i1) / (t2 - t1)
     return Derating(ambient_c, limit_c, float(load), True, "",
-                    f"interpolated between {i1:g} A ({t1:.4g} °C) and {i2:g} A ({t2:.4g} °C)")
+                    f"interpolated between {i1:g} A ({t1:.4g} °C) and {i2:g} A ({t2:.4g} °C)",
+                    (int(given[k - 1]), int(given[k])))

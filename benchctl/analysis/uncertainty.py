@@ -55,8 +55,9 @@ NORMAL = "normal"
 DISTRIBUTIONS = (RECTANGULAR, TRIANGULAR, NORMAL)
 
 #: The measured quantities an accuracy is given for (what measure_voltage,
-#: measure_current and measure_power return).
-MEASURED_QUANTITIES = ("voltage", "current", "power")
+#: measure_current, measure_power and measure_temperature return; a temperature's offset is
+#: in K and its % of reading is of the reading in °C, as thermocouple tolerances are stated).
+MEASURED_QUANTITIES = ("voltage", "current", "power", "temperature")
 
 
 # ---------------------------------------------------------------- specifications
@@ -346,6 +347,46 @@ def average_efficiency_uncertainty(
     return propagate(float(np.mean(level_means)), c, readings, k=k)
 
 
+# ---------------------------------------------------------------- temperatures
+def temperature_reading_uncertainty(value: float, accuracy: QuantityAccuracy | None, *, instrument: str = "",
+                                    channel: str = "", sd: float | None = None,
+                                    n_readings: float | None = None) -> ReadingUncertainty:
+    """One thermocouple channel's reading (GUM 4.2.3, 4.3).
+
+    A thermocouple's tolerance is a fixed error of that thermocouple (IEC 60584-1 states it per
+    thermocouple; common practice): the whole type B part is shared by the readings of one
+    channel (at two loads it cancels in a difference, and moves a derated load as one) and
+    independent between channels.
+    """
+    r = reading_uncertainty(value, accuracy, instrument=instrument, quantity=f"temperature {channel}".strip(),
+                            sd=sd, n_readings=n_readings)
+    if not r.known or r.gain_key is None:
+        return r
+    return ReadingUncertainty(r.value, r.u_type_a, r.u_type_b, r.u_type_b, r.gain_key, r.n_readings, r.note)
+
+
+def temperature_rise_uncertainty(part: ReadingUncertainty, ambient: ReadingUncertainty, *,
+                                 k: float = COVERAGE_FACTOR) -> Uncertain:
+    """ΔT = T_part − T_ambient: c = (1, −1) (GUM 5.1.3); two channels, so independent errors."""
+    return propagate(part.value - ambient.value, [1.0, -1.0], [part, ambient], k=k)
+
+
+def derated_load_uncertainty(load1_a: float, load2_a: float, t1: ReadingUncertainty, t2: ReadingUncertainty,
+                             limit_c: float, *, k: float = COVERAGE_FACTOR) -> Uncertain:
+    """I* = I₁ + (L − T₁)(I₂ − I₁)/(T₂ − T₁), the linear interpolation of a derated load.
+
+    ∂I*/∂T₁ = −(I₂ − I₁)(T₂ − L)/(T₂ − T₁)², ∂I*/∂T₂ = −(I₂ − I₁)(L − T₁)/(T₂ − T₁)² (GUM 5.1.3).
+    ``t1`` and ``t2`` are one channel at two loads: its fixed error moves I* by −δ·(I₂ − I₁)/(T₂ − T₁).
+    The load currents' own uncertainty (a load's read-back, ~0.1 %) is neglected.
+    """
+    di, dt = load2_a - load1_a, t2.value - t1.value
+    if not dt > 0:
+        raise ValueError(f"derated_load_uncertainty: T₂ must exceed T₁, got {t1.value:g} and {t2.value:g} °C")
+    value = load1_a + (limit_c - t1.value) * di / dt
+    return propagate(value, [-di * (t2.value - limit_c) / dt ** 2, -di * (limit_c - t1.value) / dt ** 2], [t1, t2],
+                     k=k)
+
+
 def scatter_column(quantity: str) -> str:
     """The name under which the standard deviation of a recorded mean is stored:
     ``pin_w`` -> ``pin_sd_w`` (the unit suffix stays last). Names without a unit suffix
@@ -359,7 +400,8 @@ def scatter_column(quantity: str) -> str:
 __all__ = [
     "COVERAGE_FACTOR", "DISTRIBUTIONS", "MEASURED_QUANTITIES", "NORMAL", "RECTANGULAR", "TRIANGULAR",
     "AccuracyTerm", "InstrumentAccuracy", "QuantityAccuracy", "ReadingUncertainty", "StationAccuracy", "Uncertain",
-    "average_efficiency_uncertainty", "combined_standard_uncertainty", "covariance_matrix", "efficiency_uncertainty",
-    "line_regulation_uncertainty", "load_regulation_uncertainty", "loss_uncertainty", "propagate",
-    "reading_uncertainty", "scatter_column", "type_a_standard",
+    "average_efficiency_uncertainty", "combined_standard_uncertainty", "covariance_matrix", "derated_load_uncertainty",
+    "efficiency_uncertainty", "line_regulation_uncertainty", "load_regulation_uncertainty", "loss_uncertainty",
+    "propagate", "reading_uncertainty", "scatter_column", "temperature_reading_uncertainty",
+    "temperature_rise_uncertainty", "type_a_standard",
 ]

@@ -43,6 +43,8 @@ class SimulatedTemperatureMeter(ScpiInstrument):
                                   firmware="1.0"), sleep=sleep)
         self.model = model
         self.labels: tuple[str, ...] = (AMBIENT, *model.component_names)
+        #: what the station file states (one specification for every channel)
+        self.ACCURACY: dict[str, QuantityAccuracy] = {"temperature": single("C", 400.0, 0.0, ACCURACY_K)}
         self.TEMPERATURE_ACCURACY: dict[str, QuantityAccuracy] = {
             f"temperature{k}": single("C", 400.0, 0.0, ACCURACY_K) for k in range(1, len(self.labels) + 1)}
         self.errors = InstrumentErrors(self.TEMPERATURE_ACCURACY, [seed, 7])
