@@ -416,17 +416,30 @@ def _parse_term(key: str, item: Any, problems: list[str], *, need_range: bool) -
                         coverage_factor=2.0 if k is None else float(k))
 
 
-def parse_accuracy(key: str, table: Any, problems: list[str]) -> dict[str, QuantityAccuracy]:
-    """Validate one ``[instruments.<role>.accuracy]`` table (``key`` names it in messages);
-    appends every problem to ``problems`` and returns the valid quantities."""
+#: What each kind measures, for its accuracy table (a kind not listed: any measured quantity).
+_KIND_QUANTITIES = {"temperature_meter": ("temperature",), "thermal_chamber": ("temperature",),
+                    **{k: ("voltage", "current", "power") for k in ("power_meter", "dc_source", "electronic_load",
+                                                                   "oscilloscope", "function_generator")}}
+
+
+def _kind_in_spec(role: str, spec: Mapping[str, Any]) -> str:
+    """A role's kind as far as its raw table tells: ``kind``, a classic role name, else the driver name."""
+    return str(spec.get("kind") or ROLE_KINDS.get(role) or spec.get("driver") or "")
+
+
+def parse_accuracy(key: str, table: Any, problems: list[str], kind: str = "") -> dict[str, QuantityAccuracy]:
+    """Validate one ``[instruments.<role>.accuracy]`` table (``key`` names it in messages) of an
+    instrument of ``kind``; appends every problem to ``problems`` and returns the valid quantities."""
     if not isinstance(table, dict):
         problems.append(f"{key}: must be a table of quantity = {{ pct_of_reading = ..., offset = ... }}")
         return {}
+    allowed = _KIND_QUANTITIES.get(kind, MEASURED_QUANTITIES)
     out: dict[str, QuantityAccuracy] = {}
     for quantity, spec in table.items():
         qkey = f"{key}.{quantity}"
-        if quantity not in MEASURED_QUANTITIES:
-            problems.append(f"{qkey}: unknown quantity; accuracy is given for {', '.join(MEASURED_QUANTITIES)}")
+        if quantity not in allowed:
+            what = f" of a {kind}" if kind in _KIND_QUANTITIES else ""
+            problems.append(f"{qkey}: unknown quantity{what}; accuracy is given for {', '.join(allowed)}")
             continue
         if isinstance(spec, dict):
             term = _parse_term(qkey, spec, problems, need_range=False)
@@ -469,7 +482,8 @@ def station_accuracy_from_text(text: str | None, *, where: str = "stored station
         for role, spec in table.items():
             if not isinstance(spec, dict) or "accuracy" not in spec:
                 continue
-            quantities = parse_accuracy(f"instruments.{role}.accuracy", spec["accuracy"], problems)
+            quantities = parse_accuracy(f"instruments.{role}.accuracy", spec["accuracy"], problems,
+                                        _kind_in_spec(str(role), spec))
             if quantities:
                 out[role] = InstrumentAccuracy(str(spec.get("resource", role)), quantities)
     if problems:
@@ -701,7 +715,8 @@ def _instrument(role: str, spec: Any, problems: list[str],
     options = spec.get("options", {})
     commands = spec.get("commands", {})
     n_before = len(problems)
-    accuracy = parse_accuracy(f"{key}.accuracy", spec["accuracy"], problems) if "accuracy" in spec else {}
+    accuracy = parse_accuracy(f"{key}.accuracy", spec["accuracy"], problems, _kind_in_spec(role, spec)) \
+        if "accuracy" in spec else {}
     ok = len(problems) == n_before
     if not isinstance(driver, str) or not driver:
         problems.append(f"{key}.driver: required, one of {', '.join(driver_names())}")

@@ -89,7 +89,8 @@ power = { pct_of_reading = 0.1, offset = 0.01, coverage_factor = 2 }
         "instruments.input_meter.accuracy.current: range_max must increase",
         "instruments.input_meter.accuracy.power.offset: required",
         "instruments.input_meter.accuracy.power.distribution: 'uniformish' must be one of",
-        "instruments.input_meter.accuracy.temperature: unknown quantity",
+        "instruments.input_meter.accuracy.temperature: unknown quantity of a power_meter; accuracy is given for "
+        "voltage, current, power",
         "instruments.output_meter.accuracy.voltage[1].range_max: required when a quantity has several ranges",
         "instruments.output_meter.accuracy.current: pct_of_reading and offset are both 0",
         "instruments.output_meter.accuracy.power.coverage_factor: only meaningful with distribution",
@@ -117,5 +118,17 @@ def test_the_readme_accuracy_example_is_valid():
     readme = (Path(__file__).resolve().parents[1] / "README.md").read_text(encoding="utf-8")
     block = next(b for b in re.findall(r"```toml\n(.*?)```", readme, flags=re.S)
                  if b.startswith("[instruments.input_meter.accuracy]"))
-    acc = parse_station(BASE + block).accuracy["input_meter"].quantities
+    meter = '[instruments.temp_meter]\ndriver = "temperature_meter"\nresource = "TCPIP::127.0.0.1::5030::SOCKET"\n'
+    accuracy = parse_station(BASE + meter + block).accuracy
+    acc = accuracy["input_meter"].quantities
     assert set(acc) == {"voltage", "current", "power"} and len(acc["current"].terms) == 2
+    # ±0.5 °C per thermocouple, rectangular (GUM 4.3.7): u = 0.5/√3
+    assert accuracy["temp_meter"].quantities["temperature"].terms[0].standard(85.0) == pytest.approx(0.5 / 3 ** 0.5)
+
+
+def test_a_temperature_meter_takes_only_a_temperature_accuracy():
+    meter = '[instruments.temp_meter]\ndriver = "temperature_meter"\nresource = "TCPIP::127.0.0.1::5030::SOCKET"\n'
+    with pytest.raises(StationFileError) as err:
+        parse_station(BASE + meter + "[instruments.temp_meter.accuracy]\nvoltage = { pct_of_reading = 0.1, offset = 0.01 }\n")
+    assert err.value.problems == ["instruments.temp_meter.accuracy.voltage: unknown quantity of a temperature_meter; "
+                                  "accuracy is given for temperature"]

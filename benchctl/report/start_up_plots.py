@@ -45,13 +45,20 @@ def turn_on_figure(t_s: ArrayLike, vout_v: ArrayLike, vin_v: ArrayLike, metrics:
     sub.append(f"overshoot {metrics.overshoot_pct:.2g} %")
     sub.append("monotonic" if metrics.monotonic else "NOT monotonic")
     style.set_title(ax, title, ", ".join(sub))
-    ax2.plot(t, np.asarray(vin_v, float), color=style.line_colour(1), linewidth=1.0, label="input voltage")
-    ax2.set_ylabel("input (V)")
+    (vin_line,) = ax2.plot(t, np.asarray(vin_v, float), color=style.line_colour(1), linewidth=1.0,
+                           label="input voltage (left)")
+    ax2.set_ylabel("input voltage (V)", color=style.line_colour(1))
     ax2.set_xlabel("time from the trigger (ms)")
+    lines = [vin_line]
     if iin_a is not None:
+        # two y axes: each coloured as its curve, and one key naming which axis each curve reads on
         ax3 = ax2.twinx()
-        ax3.plot(t, np.asarray(iin_a, float), color=style.line_colour(2), linewidth=0.9, label="input current")
-        ax3.set_ylabel("input current (A)")
+        (iin_line,) = ax3.plot(t, np.asarray(iin_a, float), color=style.line_colour(2), linewidth=0.9,
+                               label="input current (right)")
+        ax3.set_ylabel("input current (A)", color=style.line_colour(2))
+        lines.append(iin_line)
+    style.legend_outside(ax2, handles=lines, labels=[str(x.get_label()) for x in lines],
+                         anchor_x=1.02 if iin_a is None else 1.16)  # past the right axis' ticks and label
     return fig
 
 

@@ -138,13 +138,15 @@ def set_title(ax: Axes, title: str, subtitle: str = "") -> None:
         ax.set_title(subtitle, loc="right", fontsize=CAPTION_SIZE_PT, color=MUTED_INK, pad=10)
 
 
-def legend_outside(ax: Axes, title: str = "", handles: list[Artist] | None = None, labels: list[str] | None = None) -> None:
-    """A legend to the right of the data area, so it never hides a curve."""
+def legend_outside(ax: Axes, title: str = "", handles: list[Artist] | None = None, labels: list[str] | None = None,
+                   *, anchor_x: float = 1.02) -> None:
+    """A legend to the right of the data area, so it never hides a curve (``anchor_x`` in axes
+    fractions: further right past a second y axis' labels)."""
     kwargs = {} if handles is None else {"handles": handles, "labels": labels}
     leg = ax.legend(
         **kwargs,
         loc="upper left",
-        bbox_to_anchor=(1.02, 1.0),
+        bbox_to_anchor=(anchor_x, 1.0),
         borderaxespad=0.0,
         frameon=False,
         fontsize=LEGEND_SIZE_PT,
