@@ -12,6 +12,7 @@ from __future__ import annotations
 from typing import Any
 
 import numpy as np
+from matplotlib.artist import Artist
 from matplotlib.figure import Figure
 from numpy.typing import ArrayLike
 
@@ -49,7 +50,7 @@ def turn_on_figure(t_s: ArrayLike, vout_v: ArrayLike, vin_v: ArrayLike, metrics:
                            label="input voltage (left)")
     ax2.set_ylabel("input voltage (V)", color=style.line_colour(1))
     ax2.set_xlabel("time from the trigger (ms)")
-    lines = [vin_line]
+    lines: list[Artist] = [vin_line]
     if iin_a is not None:
         # two y axes: each coloured as its curve, and one key naming which axis each curve reads on
         ax3 = ax2.twinx()
