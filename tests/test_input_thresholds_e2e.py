@@ -12,9 +12,11 @@ from benchctl.report import build_report
 from benchctl.runner import execute
 
 
+@pytest.mark.parametrize("time_scale, reading_time_s", [(5.0, 1e-4), (1.0, 0.02)],
+                         ids=["accelerated", "realistic clock, 20 ms readings"])
 def test_uvlo_on_off_and_hysteresis_within_the_bisection_resolution(simulated_bench, station_for, benchctl_store,
-                                                                     tmp_path):
-    bench = simulated_bench("flyback-48v-5v", time_scale=5.0)
+                                                                     tmp_path, time_scale, reading_time_s):
+    bench = simulated_bench("flyback-48v-5v", time_scale=time_scale, reading_time_s=reading_time_s)
     d = bench.design
     proc = load_procedure("input_thresholds")
     params = proc.resolve_parameters(values={"resolution_v": 0.02, "dwell_s": 0.1, "reset_s": 0.1})

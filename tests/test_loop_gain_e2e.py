@@ -33,9 +33,16 @@ def _results(store, run_id, name):
     return res[res["name"] == name]
 
 
-def test_margins_at_the_corners_agree_with_the_model(proc, simulated_bench, station_for, benchctl_store):
-    bench = simulated_bench("flyback-48v-5v", time_scale=200.0)
-    params = _params(proc, bench)
+@pytest.mark.parametrize("time_scale, reading_time_s, sweep", [
+    (200.0, 1e-4, {}),
+    # the realistic clock: 20 ms meter readings and the analyzer integrating in wall time (1/bandwidth a
+    # point: 10 ms at 100 Hz, so 61 points from 100 Hz take under a second per corner)
+    (1.0, 0.02, {"start_hz": 100.0, "points": 61, "bandwidth_hz": 100.0}),
+], ids=["accelerated", "realistic clock"])
+def test_margins_at_the_corners_agree_with_the_model(proc, simulated_bench, station_for, benchctl_store,
+                                                     time_scale, reading_time_s, sweep):
+    bench = simulated_bench("flyback-48v-5v", time_scale=time_scale, reading_time_s=reading_time_s)
+    params = _params(proc, bench, **sweep)
     outcome = execute(proc, params, station_for(bench), benchctl_store)
     assert outcome.status == "completed", outcome.message
     points = benchctl_store.points(outcome.run_id)
