@@ -69,6 +69,9 @@ _ENTRIES = (
     Source("GUM", "JCGM 100:2008, Evaluation of measurement data - Guide to the expression of uncertainty in "
            "measurement (GUM)", "type A (4.2) and type B (4.3) evaluation, law of propagation (5.1.2, 5.2.2), "
            "expanded uncertainty with k = 2 (6.2-6.3)", basis="published"),
+    Source("JCGM-101", "JCGM 101:2008, Evaluation of measurement data - Supplement 1 to the GUM - Propagation "
+           "of distributions using a Monte Carlo method", "the Monte Carlo check of the margins' uncertainty",
+           basis="published"),
     Source("ILAC-G8", "ILAC-G8:09/2019, Guidelines on Decision Rules and Statements of Conformity",
            "simple acceptance and guarded acceptance decision rules"),
     Source("ISO-22514-2", "ISO 22514-2, Statistical methods in process management - Capability and performance",

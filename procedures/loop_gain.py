@@ -23,6 +23,7 @@ crossover, means the measurement is noise-limited (injection too small).
 
 from __future__ import annotations
 
+import math
 from typing import Any, Mapping
 
 import numpy as np
@@ -36,6 +37,7 @@ from benchctl.analysis.injection_check import (
     summarize,
 )
 from benchctl.analysis.injection_check import number_or_none as _num
+from benchctl.errors import AnalysisInputError
 from benchctl.procedure import Parameter, Parameters, Result, power_parameters
 
 NAME = "loop_gain"
@@ -166,6 +168,7 @@ def _record(bench, p: Parameters, point: Mapping[str, Any], profile, tag: str, s
     t = -h if p.phase_convention == "inverted" else h
     g = 20.0 * np.log10(np.abs(t))
     ph = unwrapped_phase_deg(t)
+    spread = _margin_spread(f, t)
     values = {
         "vin_set_v": point["vin_set_v"], "iout_set_a": point["iout_set_a"],
         "vin_v": vin, "vout_v": vout, "iout_a": iout,
@@ -178,6 +181,7 @@ def _record(bench, p: Parameters, point: Mapping[str, Any], profile, tag: str, s
         "band_min_hz": float(f[0]), "band_max_hz": float(f[-1]),
         "gain_min_db": float(g.min()), "gain_max_db": float(g.max()),
         "phase_min_deg": float(ph.min()), "phase_max_deg": float(ph.max()),
+        **spread,
         **dict(extra or {}),
     }
     seq = bench.record(values, settle=settle, tag=tag)
@@ -197,6 +201,32 @@ def _record(bench, p: Parameters, point: Mapping[str, Any], profile, tag: str, s
                                 "phase_deg": unwrapped_phase_deg(h), "re": h.real.copy(), "im": h.imag.copy()},
                        units={"re": "", "im": ""}, point_seq=seq, meta=meta)
     return seq
+
+
+#: Per margin: the point columns of its standard uncertainty and coverage factor.
+_SPREAD_COLUMNS = {"crossover_hz": ("crossover_u_hz", "crossover_k"),
+                   "phase_margin_deg": ("phase_margin_u_deg", "phase_margin_k"),
+                   "gain_margin_db": ("gain_margin_u_db", "gain_margin_k")}
+UNCERTAINTY_METHOD = ("type A from the trace's own scatter about a local quadratic in log f (JCGM 100:2008 4.2), "
+                      "propagated through the linear interpolation and the crossing's shift (5.1.2), k = t(nu_eff) "
+                      "at 95.45 % (G.3, G.4); checked against a Monte Carlo of analyzer noise (JCGM 101:2008)")
+
+
+def _margin_spread(f: np.ndarray, t: np.ndarray) -> dict[str, float]:
+    """The margins' uncertainty from the trace's scatter (benchctl.analysis.margin_uncertainty); NaN where
+    a margin was not found or too few samples lie near it."""
+    from benchctl.analysis.margin_uncertainty import margin_uncertainty
+    from benchctl.analysis.margins import loop_margins
+
+    try:
+        mu = margin_uncertainty(f, t, loop_margins(f, t))
+    except AnalysisInputError:
+        return {col: math.nan for cols in _SPREAD_COLUMNS.values() for col in cols}
+    out = {}
+    for name, (u_col, k_col) in _SPREAD_COLUMNS.items():
+        u = getattr(mu, name)
+        out[u_col], out[k_col] = (math.nan, math.nan) if u is None else (u.u, u.k)
+    return out
 
 
 def _summary_values(s: TraceSummary) -> dict[str, Any]:
@@ -292,7 +322,7 @@ def analyse(points, p: Parameters) -> list[Result]:
                 details.update(flags=["not_exist"], flag_reasons=details["reason"], unbounded="above")
             if name == "gain_margin_db" and v is not None:
                 details["phase_crossover_hz"] = _num(r.get("phase_crossover_hz"))
-            results.append(Result(name, v, unit, details=details, scope=scope))
+            results.append(Result(name, v, unit, details=details, scope=scope, **_spread_of(name, r, v, details)))
 
     for name, unit, pick, label in (("worst_phase_margin_deg", "deg", "phase_margin_deg", "smallest phase margin"),
                                     ("worst_gain_margin_db", "dB", "gain_margin_db", "smallest gain margin"),
@@ -310,12 +340,26 @@ def analyse(points, p: Parameters) -> list[Result]:
         value, row = (max if name == "max_crossover_hz" else min)(found, key=lambda item: item[0])
         missing = [{"vin_set_v": float(r["vin_set_v"]), "iout_set_a": float(r["iout_set_a"]), "reason": _reason(pick, r)}
                    for r in main if _num(r.get(pick)) is None]
-        results.append(Result(name, value, unit, details={
-            "found": True, "what": f"{label} over the envelope", "vin_set_v": float(row["vin_set_v"]),
-            "iout_set_a": float(row["iout_set_a"]), "points": len(main), "not_found_at": missing}))
+        details = {"found": True, "what": f"{label} over the envelope", "vin_set_v": float(row["vin_set_v"]),
+                   "iout_set_a": float(row["iout_set_a"]), "points": len(main), "not_found_at": missing}
+        results.append(Result(name, value, unit, details=details, **_spread_of(pick, row, value, details)))
 
     results.extend(_analyse_injection_check(rows, p))
     return results
+
+
+def _spread_of(name: str, row: Mapping[str, Any], value: float | None, details: dict) -> dict[str, float]:
+    """The Result uncertainty fields of margin ``name`` from its point's columns (none when unknown);
+    ``details`` gets the method and the coverage factor."""
+    cols = _SPREAD_COLUMNS.get(name)
+    if cols is None or value is None:
+        return {}
+    u, k = _num(row.get(cols[0])), _num(row.get(cols[1]))
+    if u is None or k is None:
+        details["uncertainty_note"] = "too few samples near the crossing to judge the trace's scatter"
+        return {}
+    details.update(uncertainty_method=UNCERTAINTY_METHOD, coverage_factor=k)
+    return {"uncertainty": u, "expanded_uncertainty": k * u}
 
 
 def _analyse_injection_check(rows: list[dict], p: Parameters) -> list[Result]:

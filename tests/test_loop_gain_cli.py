@@ -151,3 +151,24 @@ def test_propose_without_a_crossover_is_bad_input(tmp_path, capsys):
 def test_missing_file_is_bad_input(tmp_path, capsys):
     assert _run([str(tmp_path / "nope.csv")]) == 2
     assert "no such file" in capsys.readouterr().err
+
+
+def test_a_noisy_trace_gets_an_uncertainty_that_holds_the_truth(tmp_path, capsys):
+    # python-control gives the exact margins; the CSV carries 3 % circular noise on each of 61 samples
+    num, den = [25.0], [1.0, 10.0, 10.0, 10.0]
+    gm, pm, _, _ = control.margin(control.tf(num, den))
+    w = np.logspace(-1, 1.5, 61)
+    _, h = sig.freqs(num, den, worN=w)
+    rng = np.random.default_rng(7)
+    h = h * (1 + 0.03 * (rng.standard_normal(w.size) + 1j * rng.standard_normal(w.size)) / math.sqrt(2))
+    path = tmp_path / "noisy.csv"
+    path.write_text("freq_hz,gain_db,phase_deg\n" + "\n".join(
+        f"{float(a) / (2 * math.pi)!r},{20 * math.log10(abs(b))!r},{math.degrees(float(np.angle(b)))!r}"
+        for a, b in zip(w, h)) + "\n", encoding="utf-8")
+    report = _json(capsys, [str(path)])
+    big_u = report["expanded_uncertainty"]
+    assert 0.1 < big_u["phase_margin_deg"] < 10 and 0.05 < big_u["gain_margin_db"] < 3
+    assert abs(report["phase_margin_deg"] - pm) <= big_u["phase_margin_deg"]
+    assert abs(report["gain_margin_db"] - 20 * math.log10(gm)) <= big_u["gain_margin_db"]
+    assert _run([str(path)]) == 0
+    assert "± " in capsys.readouterr().out   # the table prints value ± U

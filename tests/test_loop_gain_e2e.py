@@ -60,14 +60,22 @@ def test_margins_at_the_corners_agree_with_the_model(proc, simulated_bench, stat
         pick = lambda frame: frame[frame["scope"] == scope].iloc[0]  # noqa: E731
         # Erickson & Maksimovic 2nd ed. ch. 9 definitions; truth = exact roots of the model's T(s).
         assert pick(fc)["value"] == pytest.approx(truth.crossover_hz, rel=0.03)
-        assert pick(pm)["value"] == pytest.approx(truth.phase_margin_deg, abs=2.0)
+        p_m = pick(pm)
+        assert p_m["value"] == pytest.approx(truth.phase_margin_deg, abs=2.0)
+        # Each margin states its own uncertainty from the trace's scatter (JCGM 100:2008, checked by Monte Carlo
+        # in test_margin_uncertainty.py); the truth lies within it, plus 0.3 for the linear interpolation.
+        assert abs(p_m["value"] - truth.phase_margin_deg) <= p_m["expanded_uncertainty"] + 0.3
         g = pick(gm)
         if truth.gain_margin_db is None or truth.phase_crossover_hz > row.band_max_hz:
             # Not found in the measured band: None, with the reason stated.
             assert g["value"] is None or np.isnan(g["value"])
             assert "no phase crossover" in g["details"]["reason"]
         else:
-            assert g["value"] == pytest.approx(truth.gain_margin_db, abs=1.0)
+            # Read where |T| is small, so the noisiest margin: with a 100 Hz bandwidth the 36 V / 1 A gain
+            # margin is 2 dB off, and its U says so (2.7 dB) instead of looking like a good number.
+            assert abs(g["value"] - truth.gain_margin_db) <= g["expanded_uncertainty"] + 0.3
+            if not sweep:  # the procedure's default sweep (10 Hz bandwidth): within 1 dB as well
+                assert g["value"] == pytest.approx(truth.gain_margin_db, abs=1.0)
 
     # Worst over the envelope is the smallest of the per-point phase margins.
     worst = _results(benchctl_store, outcome.run_id, "worst_phase_margin_deg").iloc[0]

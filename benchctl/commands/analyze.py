@@ -161,6 +161,7 @@ def loop_gain_report(args: argparse.Namespace) -> dict[str, Any]:
 
     from benchctl.analysis.compensator import MeasuredPlant, design_type2, design_type3
     from benchctl.analysis.loop_csv import read_loop_csv
+    from benchctl.analysis.margin_uncertainty import margin_uncertainty
     from benchctl.analysis.margins import loop_margins
     from benchctl.analysis.plant_fit import fit_plant_auto
     from benchctl.errors import AnalysisInputError
@@ -174,12 +175,21 @@ def loop_gain_report(args: argparse.Namespace) -> dict[str, Any]:
     if limit is not None:
         kwargs_m["unwrap_step_limit_deg"] = float(limit)
     m = loop_margins(data.freq_hz, data.response, phase_convention=convention, **kwargs_m)
+    t_data = -data.response if convention == "inverted" else data.response
+    spread = margin_uncertainty(data.freq_hz, t_data, m)
     report: dict[str, Any] = {
         "file": data.path, "points": int(data.freq_hz.size), "form": data.form, "columns": list(data.columns),
         "band_hz": [float(data.freq_hz[0]), float(data.freq_hz[-1])], "phase_convention": convention,
         "smooth_points": smooth, "merge_decades": merge,
         **_margins_dict(m), "warnings": [],
+        # U = k·u from the trace's own scatter (benchctl.analysis.margin_uncertainty), None where unknown
+        "expanded_uncertainty": {name: None if u is None else u.expanded for name, u in (
+            ("crossover_hz", spread.crossover_hz), ("phase_margin_deg", spread.phase_margin_deg),
+            ("gain_margin_db", spread.gain_margin_db))},
     }
+    report["notes"] = list(report["notes"]) + list(spread.notes)
+    if smooth > 1:
+        report["notes"].append("the margins' uncertainty is taken from the raw samples, before the smoothing")
     if m.unwrap_ambiguous_from_hz is not None:
         n_amb = sum(1 for c in m.phase_crossovers if c.unwrap_ambiguous)
         report["warnings"].append(
@@ -255,9 +265,16 @@ def run_loop_gain(args: argparse.Namespace) -> int:
                         f"{'-T' if report['phase_convention'] == 'inverted' else 'T'})")
     table.add_column("quantity")
     table.add_column("value", justify="right")
-    table.add_row("crossover", _fmt(report["crossover_hz"], "Hz"))
-    table.add_row("phase margin", _fmt(report["phase_margin_deg"], "deg"))
-    table.add_row("gain margin", _fmt(report["gain_margin_db"], "dB"))
+    big_u = report["expanded_uncertainty"]
+
+    def with_u(name: str, unit: str) -> str:
+        text = _fmt(report[name], unit)
+        u = big_u.get(name)
+        return text if report[name] is None or u is None else f"{text} ± {u:.2g} (U)"
+
+    table.add_row("crossover", with_u("crossover_hz", "Hz"))
+    table.add_row("phase margin", with_u("phase_margin_deg", "deg"))
+    table.add_row("gain margin", with_u("gain_margin_db", "dB"))
     table.add_row("phase crossover", _fmt(report["phase_crossover_hz"], "Hz"))
     table.add_row("phase crossovers found", str(len(report["phase_crossovers"]))
                   + (" (some above the unwrap limit)" if report["unwrap_ambiguous_from_hz"] is not None else ""))
