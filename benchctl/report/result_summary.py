@@ -120,7 +120,7 @@ def result_lines(results: pd.DataFrame) -> list[ResultLine]:
 
 
 def _u(row: Any) -> float:
-    """The expanded uncertainty U (k = 2) of a result row, NaN when none."""
+    """The expanded uncertainty U of a result row (k as the result states), NaN when none."""
     try:
         u = float(row.get("expanded_uncertainty"))
     except (TypeError, ValueError):
