@@ -130,28 +130,28 @@ def margin_uncertainty(freq_hz: ArrayLike, response: ArrayLike, margins: object,
     gain_db = 20.0 * np.log10(np.abs(t))
     phase = unwrapped_phase_deg(t)
     notes: list[str] = []
+
+    def near(freq: float, crossing: str) -> tuple[LocalScatter, LocalScatter] | None:
+        g, p = (local_scatter(x, y, math.log10(freq), half_width_decades=half_width_decades) for y in (gain_db, phase))
+        if g is None or p is None or not g.slope or not p.slope:
+            notes.append(f"too few samples either side of the {crossing} at {freq:g} Hz to estimate its margin's "
+                         "uncertainty")
+            return None
+        return g, p
+
     pm = fc = gm = None
-    wpm = getattr(margins, "worst_phase_margin")
-    if not isinstance(wpm, NotFound):
-        xc = math.log10(wpm.freq_hz)
-        g, p = (local_scatter(x, y, xc, half_width_decades=half_width_decades) for y in (gain_db, phase))
-        if g is None or p is None or not g.slope:
-            notes.append(f"too few samples either side of the gain crossover at {wpm.freq_hz:g} Hz to estimate "
-                         "the phase margin's uncertainty")
-        else:
-            pm = _combine([(p.u, p.dof), (abs(p.slope / g.slope) * g.u, g.dof)])
-            u_dec = g.u / abs(g.slope)
-            base = _combine([(u_dec, g.dof)])
-            fc = Uncertainty(wpm.freq_hz * math.log(10.0) * u_dec, base.dof, base.k)
-    wgm = getattr(margins, "worst_gain_margin")
-    if not isinstance(wgm, NotFound):
-        xp = math.log10(wgm.freq_hz)
-        g, p = (local_scatter(x, y, xp, half_width_decades=half_width_decades) for y in (gain_db, phase))
-        if g is None or p is None or not p.slope:
-            notes.append(f"too few samples either side of the phase crossover at {wgm.freq_hz:g} Hz to estimate "
-                         "the gain margin's uncertainty")
-        else:
-            gm = _combine([(g.u, g.dof), (abs(g.slope / p.slope) * p.u, p.dof)])
+    wpm, wgm = getattr(margins, "worst_phase_margin"), getattr(margins, "worst_gain_margin")
+    at_gain = None if isinstance(wpm, NotFound) else near(wpm.freq_hz, "gain crossover")
+    if at_gain is not None:
+        g, p = at_gain
+        pm = _combine([(p.u, p.dof), (abs(p.slope / g.slope) * g.u, g.dof)])
+        u_dec = g.u / abs(g.slope)
+        base = _combine([(u_dec, g.dof)])
+        fc = Uncertainty(wpm.freq_hz * math.log(10.0) * u_dec, base.dof, base.k)
+    at_phase = None if isinstance(wgm, NotFound) else near(wgm.freq_hz, "phase crossover")
+    if at_phase is not None:
+        g, p = at_phase
+        gm = _combine([(g.u, g.dof), (abs(g.slope / p.slope) * p.u, p.dof)])
     return MarginUncertainty(pm, fc, gm, tuple(notes))
 
 
