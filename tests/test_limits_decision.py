@@ -172,6 +172,22 @@ def test_bounds_a_lower_bound_above_the_max_is_a_definite_fail():
     assert o.status == SUSPECT and "only a bound" in o.reason
 
 
+def test_bounds_a_lower_bound_over_a_min_proves_the_pass_unless_something_else_is_flagged():
+    # True value >= 12 ms against a minimum of 10 ms and no maximum: it passes, whatever the record hid.
+    bound = {"flags": ["lower_bound"], "flag_reasons": "the record ended with the output in band"}
+    lim = limit(None, lo=0.010, hi=None, quantity="hold_up_s")
+    ok = evaluate_limit(lim, data(results([{"name": "hold_up_s", "value": 0.012, "unit": "s", "details": bound}])))
+    assert ok.status == PASS
+    short = evaluate_limit(lim, data(results([{"name": "hold_up_s", "value": 0.008, "unit": "s", "details": bound}])))
+    assert short.status == SUSPECT          # >= 8 ms may still be >= 10 ms: not decided
+    both = limit(None, lo=0.010, hi=0.050, quantity="hold_up_s")
+    assert evaluate_limit(both, data(results([{"name": "hold_up_s", "value": 0.012, "unit": "s",
+                                               "details": bound}]))).status == SUSPECT   # may exceed the max
+    unsettled = {"flags": ["unsettled", "lower_bound"], "flag_reasons": "timeout"}
+    assert evaluate_limit(lim, data(results([{"name": "hold_up_s", "value": 0.012, "unit": "s",
+                                              "details": unsettled}]))).status == SUSPECT
+
+
 def test_a_gain_margin_that_does_not_exist_is_unbounded_and_meets_a_minimum():
     not_exist = {"found": False, "reason": "no phase crossover of -180 deg in the measured band",
                  "flags": ["not_exist"], "flag_reasons": "no phase crossover", "unbounded": "above"}

@@ -20,7 +20,9 @@ from benchctl.errors import AnalysisInputError
 @dataclass(frozen=True)
 class HoldUpMetrics:
     """dropout_s: the input's dropout; exit_s: the output leaves ±band_v of its level; hold_up_s =
-    exit − dropout (None when the output stayed in band); v1_v: input before; v2_v: input at exit."""
+    exit − dropout (None when the output stayed in band); v1_v: input before; v2_v: input at exit.
+    at_least_s: when the output stayed in band to the end of the record, the hold-up is at least
+    the record's end − dropout (a lower bound; None otherwise)."""
 
     dropout_s: float | None
     exit_s: float | None
@@ -29,6 +31,7 @@ class HoldUpMetrics:
     v2_v: float | None
     vout_level_v: float
     reason: str = ""
+    at_least_s: float | None = None
 
 
 def energy_hold_up_s(capacitance_f: float, v1_v: float, v2_v: float, power_w: float) -> float:
@@ -69,8 +72,13 @@ def hold_up_metrics(t_s: ArrayLike, vin_v: ArrayLike, vout_v: ArrayLike, *, band
     slope, icpt = np.polyfit(t[sel], vi[sel] ** 2, 1)
     dropout = float((v1 ** 2 - icpt) / slope) if slope < 0 else None
     out = np.flatnonzero((np.abs(vo - level) > band_v) & (np.arange(t.size) >= k0))
-    if out.size == 0 or dropout is None:
-        return HoldUpMetrics(dropout, None, None, v1, None, level, "the output stayed in band within the record")
+    if dropout is None:
+        return HoldUpMetrics(None, None, None, v1, None, level, "the input's v² does not fall: no dropout found")
+    if out.size == 0:
+        at_least = float(t[-1]) - dropout
+        return HoldUpMetrics(dropout, None, None, v1, None, level,
+                             f"the output stayed in band to the end of the record: the hold-up is at least "
+                             f"{at_least:.4g} s; record longer to measure it", at_least if at_least > 0 else None)
     k = int(out[0])
     exit_s = float(t[k])
     return HoldUpMetrics(dropout, exit_s, exit_s - dropout, v1, float(vi[k]), level)

@@ -86,8 +86,9 @@ value with ``missing = "fail"``) > ``not_checked`` > ``borderline`` > ``suspect`
 not settle or whose setpoints were not verified (``settled`` false, ``settle_info``), or
 its result carries a quality flag (``details["flags"]``: clipped, outside_band,
 beyond_standard_range ...): such a value never passes silently. A ``lower_bound`` above
-a max, or an ``upper_bound`` below a min, is a definite fail; any other bound is
-suspect. A quantity that does not exist there (flag ``not_exist``; e.g. no phase
+a max, or an ``upper_bound`` below a min, is a definite fail; a ``lower_bound`` at or above
+a min of a limit without a max (an ``upper_bound`` under a max, no min) proves a pass when
+only the bound is flagged; any other bound is suspect. A quantity that does not exist there (flag ``not_exist``; e.g. no phase
 crossover, so no gain margin) is not a missing value: when its result says it is
 unbounded (``details["unbounded"] = "above" | "below"``) it is compared as +inf / -inf
 (an unbounded gain margin meets any minimum); otherwise it is left out and counted.

@@ -12,7 +12,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from benchctl.analysis.quality import LOWER_BOUND, NOT_EXIST, UPPER_BOUND, point_flags, result_flags
+from benchctl.analysis.quality import CLIPPED, LOWER_BOUND, NOT_EXIST, UPPER_BOUND, point_flags, result_flags
 from benchctl.exit_codes import EXIT_FAILED, EXIT_NOT_CHECKED, EXIT_OK, ExitCode
 from benchctl.units import unit_from_name
 
@@ -396,9 +396,11 @@ def _judge(spec: LimitSpec, row: _Row) -> tuple[str, float, str, float, str]:
     Simple acceptance (ILAC-G8:09/2019 4.2.1): inside (margin >= 0) passes. Guarded
     acceptance (4.2.2/4.2.3, guard band w = U): margin >= U passes, margin < -U fails,
     anything between is borderline (the interval value ± U touches or crosses the bound);
-    no stored U: not checked. A flagged value never passes: a lower bound above a max (an
-    upper bound below a min) is a definite fail, any other flagged value that is not
-    failing is suspect.
+    no stored U: not checked. A flagged value never passes on its own number: a lower bound
+    above a max (an upper bound below a min) is a definite fail; a lower bound at or above a
+    min where the limit has no max (an upper bound under a max, no min) is a pass, the bound
+    proving it, when nothing but the bound (and the clipping that made it) is flagged; any
+    other flagged value that is not failing is suspect.
     """
     m, bname, bvalue = _margin(spec, row.value)
     guarded = spec.decision == GUARDED
@@ -424,6 +426,16 @@ def _judge(spec: LimitSpec, row: _Row) -> tuple[str, float, str, float, str]:
             return FAIL, m, "max", spec.maximum, f"a lower bound above the max: {why}"
         if UPPER_BOUND in row.flags and spec.minimum is not None and row.value + g < spec.minimum:
             return FAIL, m, "min", spec.minimum, f"an upper bound below the min: {why}"
+        if not [f for f in row.flags if f not in (LOWER_BOUND, UPPER_BOUND, CLIPPED)]:
+            # only the bound is in doubt, and it lies on the safe side of the one bound the limit has
+            if (LOWER_BOUND in row.flags and spec.maximum is None and spec.minimum is not None
+                    and row.value - g >= spec.minimum):
+                return PASS, m, "min", spec.minimum, f"the true value is at least {_num(row.value)}, which meets " \
+                    f"the min: {why}"
+            if (UPPER_BOUND in row.flags and spec.minimum is None and spec.maximum is not None
+                    and row.value + g <= spec.maximum):
+                return PASS, m, "max", spec.maximum, f"the true value is at most {_num(row.value)}, which meets " \
+                    f"the max: {why}"
         return SUSPECT, m, bname, bvalue, f"only a bound is known: {why}"
     if status == FAIL:
         return FAIL, m, bname, bvalue, (note + "; " if note else "") + f"flagged {why}"
