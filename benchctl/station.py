@@ -417,7 +417,7 @@ def _parse_term(key: str, item: Any, problems: list[str], *, need_range: bool) -
 
 
 #: What each kind measures, for its accuracy table (a kind not listed: any measured quantity).
-_KIND_QUANTITIES = {"temperature_meter": ("temperature",), "thermal_chamber": ("temperature",),
+_KIND_QUANTITIES = {TEMPERATURE_METER_KIND: ("temperature",), "thermal_chamber": ("temperature",),
                     **{k: ("voltage", "current", "power") for k in ("power_meter", "dc_source", "electronic_load",
                                                                    "oscilloscope", "function_generator")}}
 

@@ -168,7 +168,7 @@ def _record(bench, p: Parameters, point: Mapping[str, Any], profile, tag: str, s
     t = -h if p.phase_convention == "inverted" else h
     g = 20.0 * np.log10(np.abs(t))
     ph = unwrapped_phase_deg(t)
-    spread = _margin_spread(f, t)
+    spread = _margin_spread(f, t, s.margins)
     values = {
         "vin_set_v": point["vin_set_v"], "iout_set_a": point["iout_set_a"],
         "vin_v": vin, "vout_v": vout, "iout_a": iout,
@@ -212,14 +212,14 @@ UNCERTAINTY_METHOD = ("type A from the trace's own scatter about a local quadrat
                       "at 95.45 % (G.3, G.4); checked against a Monte Carlo of analyzer noise (JCGM 101:2008)")
 
 
-def _margin_spread(f: np.ndarray, t: np.ndarray) -> dict[str, float]:
-    """The margins' uncertainty from the trace's scatter (benchctl.analysis.margin_uncertainty); NaN where
-    a margin was not found or too few samples lie near it."""
+def _margin_spread(f: np.ndarray, t: np.ndarray, margins: Any) -> dict[str, float]:
+    """The uncertainty of ``margins`` (the trace's LoopMargins; ``t`` in the convention they were taken
+    in) from the trace's scatter (benchctl.analysis.margin_uncertainty); NaN where a margin was not found
+    or too few samples lie near it."""
     from benchctl.analysis.margin_uncertainty import margin_uncertainty
-    from benchctl.analysis.margins import loop_margins
 
     try:
-        mu = margin_uncertainty(f, t, loop_margins(f, t))
+        mu = margin_uncertainty(f, t, margins)
     except AnalysisInputError:
         return {col: math.nan for cols in _SPREAD_COLUMNS.values() for col in cols}
     out = {}

@@ -43,6 +43,8 @@ class TraceSummary:
     pm_reason: str
     gm_reason: str
     notes: tuple[str, ...]
+    #: The full result these figures were taken from (a :class:`~benchctl.analysis.margins.LoopMargins`).
+    margins: Any = None
 
 
 def scatter_db(freq_hz: np.ndarray, small: np.ndarray, large: np.ndarray, centre_hz: float | None,
@@ -83,6 +85,7 @@ def summarize(freq_hz: np.ndarray, response: np.ndarray, phase_convention: str) 
         pm_reason=wpm.reason if isinstance(wpm, NotFound) else "",
         gm_reason=wgm.reason if isinstance(wgm, NotFound) else "",
         notes=m.notes,
+        margins=m,
     )
 
 

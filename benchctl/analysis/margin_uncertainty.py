@@ -78,14 +78,6 @@ class MarginUncertainty:
     gain_margin_db: Uncertainty | None
     notes: tuple[str, ...] = ()
 
-    def to_dict(self) -> dict[str, float | None]:
-        out: dict[str, float | None] = {}
-        for name, u in (("phase_margin_deg", self.phase_margin_deg), ("crossover_hz", self.crossover_hz),
-                        ("gain_margin_db", self.gain_margin_db)):
-            out[f"{name}_u"] = None if u is None else u.u
-            out[f"{name}_k"] = None if u is None else u.k
-        return out
-
 
 def local_scatter(x: NDArray[np.float64], y: NDArray[np.float64], x_c: float, *,
                   half_width_decades: float = HALF_WIDTH_DECADES, min_per_side: int = MIN_PER_SIDE
